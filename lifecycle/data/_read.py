@@ -73,7 +73,9 @@ def _find_file(folder: Path, name: str, config: Config) -> Path | None:
         file = Path(config.tables[name])
         file = file if file.is_absolute() else folder / file
         if not file.is_file():
-            raise UsageError(f"[tables] {name} = {config.tables[name]!r}, but {file} does not exist")
+            raise UsageError(
+                f"[tables] {name} = {config.tables[name]!r}, but {file} does not exist"
+            )
         return file
     suffixes = _AREA_SUFFIXES if name == "areas" else _TABULAR_SUFFIXES
     for suffix in suffixes:
@@ -89,7 +91,9 @@ def _read_tabular(file: Path, name: str) -> pd.DataFrame:
             return pd.read_parquet(file)
         return pd.read_csv(file, dtype=str, keep_default_na=False, na_values=[""])
     except (OSError, ValueError, pd.errors.ParserError) as exc:
-        raise InputError(table=name, column=None, problem=f"cannot be read from {file}: {exc}")
+        raise InputError(
+            table=name, column=None, problem=f"cannot be read from {file}: {exc}"
+        ) from None
 
 
 def _read_areas_file(file: Path) -> gpd.GeoDataFrame:
@@ -110,7 +114,10 @@ def _read_duckdb(file: Path, config: Config):
     sources: dict[str, str] = {}
     con = duckdb.connect(str(file), read_only=True)
     try:
-        present = {row[0] for row in con.execute("SELECT table_name FROM information_schema.tables").fetchall()}
+        present = {
+            row[0]
+            for row in con.execute("SELECT table_name FROM information_schema.tables").fetchall()
+        }
         for name in TABLE_NAMES:
             table = config.tables.get(name, name)
             if name == "areas" and Path(table).suffix.lower() in _AREA_SUFFIXES:
