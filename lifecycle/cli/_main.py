@@ -1,0 +1,58 @@
+"""The ``lifecycle`` command: a thin layer over the package's functions.
+
+Exit codes: 0 done; 2 bad input or usage (one message, nothing written); 1 an internal fault.
+"""
+
+from __future__ import annotations
+
+import argparse
+import logging
+import sys
+import traceback
+from collections.abc import Sequence
+
+from ..errors import InputError, LifecycleError, UsageError
+from . import _commands
+
+log = logging.getLogger("lifecycle")
+
+
+def _parser() -> argparse.ArgumentParser:
+    parser = argparse.ArgumentParser(
+        prog="lifecycle",
+        description="Customer-lifecycle survival modelling: panels, hazards, value, plans, reports.",
+    )
+    parser.add_argument("-v", "--verbose", action="store_true", help="log every step")
+    parser.add_argument("-q", "--quiet", action="store_true", help="log warnings only")
+    sub = parser.add_subparsers(dest="command", required=True, metavar="COMMAND")
+    for command in _commands.COMMANDS:
+        p = sub.add_parser(command.name, help=command.help, description=command.help)
+        command.arguments(p)
+        p.set_defaults(run=command.run)
+    return parser
+
+
+def main(argv: Sequence[str] | None = None) -> int:
+    """Entry point of the ``lifecycle`` console script; returns the exit code."""
+    args = _parser().parse_args(argv)
+    level = logging.WARNING if args.quiet else logging.DEBUG if args.verbose else logging.INFO
+    logging.basicConfig(level=level, format="%(levelname)s %(name)s: %(message)s", force=True)
+    try:
+        args.run(args)
+    except (InputError, UsageError) as exc:
+        print(f"lifecycle {args.command}: {exc}", file=sys.stderr)
+        return 2
+    except LifecycleError as exc:
+        print(f"lifecycle {args.command}: {exc}", file=sys.stderr)
+        return 1
+    except KeyboardInterrupt:
+        print(f"lifecycle {args.command}: interrupted; nothing partial was kept", file=sys.stderr)
+        return 1
+    except Exception:
+        traceback.print_exc()
+        print(
+            f"lifecycle {args.command}: internal fault (the trace above); please report it",
+            file=sys.stderr,
+        )
+        return 1
+    return 0
