@@ -11,7 +11,7 @@ from hypothesis import strategies as st
 from lifecycle._months import format_month, parse_month
 from lifecycle.config import Config, PanelSettings
 from lifecycle.errors import InputError, UsageError
-from lifecycle.panel import build_panel, panel_layout
+from lifecycle.panel import build_panel, build_snapshot, panel_layout
 from tests._builders import make_tables
 
 AS_OF = parse_month("2026-10")
@@ -216,3 +216,31 @@ def test_product_name_that_cannot_be_a_column_is_refused():
     )
     with pytest.raises(InputError, match=r"uptakes.*product.*backup line"):
         build_panel(tables, "2026-10")
+
+
+@settings(max_examples=40, deadline=None)
+@given(portfolios())
+def test_snapshot_is_next_months_panel_row_of_customers_present_at_as_of(p):
+    tables = make_tables(
+        p["customers"],
+        uptakes=p["uptakes"],
+        activity=p["activity"],
+        extract_month=format_month(p["extract"]),
+        activity_columns=("complaints", "bill"),
+        products=("gadget",),
+    )
+    snapshot = build_snapshot(tables, AS_OF, config=CONFIG)
+    following = build_panel(tables, AS_OF + 1, config=CONFIG)
+    layout = panel_layout(following)
+    expected = following[following["month"].astype(str) == format_month(AS_OF + 1)]
+    expected = expected[expected["tenure_start"] >= 1].drop(columns=list(layout.causes))
+    pd.testing.assert_frame_equal(
+        snapshot.astype({"month": str}), expected.reset_index(drop=True).astype({"month": str})
+    )
+    present = {
+        r["customer_id"]
+        for r in p["customers"]
+        if parse_month(r["start_month"]) <= AS_OF
+        and ("end_month" not in r or parse_month(r["end_month"]) > AS_OF)
+    }
+    assert set(snapshot["customer_id"]) == present

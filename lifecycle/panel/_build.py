@@ -48,13 +48,39 @@ def build_panel(tables: Tables, as_of: str | int, *, config: Config | None = Non
         Rows sorted by customer (in the customers table's order) then month.
     """
     config = config or Config()
+    as_of_index = _as_of_index(tables, as_of)
+    return _assemble(tables, as_of_index, config, window=int(config.panel.window_months))
+
+
+def build_snapshot(
+    tables: Tables, as_of: str | int, *, config: Config | None = None
+) -> pd.DataFrame:
+    """One row per customer at the end of ``as_of``, with the features for the next month.
+
+    This is the row the panel would hold for month ``as_of + 1`` (every feature known at the
+    end of ``as_of``) for each customer who started by ``as_of`` and had not left by its end:
+    the input of scoring. Its ``month`` is ``as_of + 1``, the first month predicted; it has no
+    cause columns. Nothing dated after ``as_of`` is used.
+    """
+    config = config or Config()
+    as_of_index = _as_of_index(tables, as_of)
+    rows = _assemble(tables, as_of_index + 1, config, window=1, outcomes=False)
+    return rows[rows["tenure_start"].to_numpy() >= 1].reset_index(drop=True)
+
+
+def _as_of_index(tables: Tables, as_of: str | int) -> int:
     as_of_index = parse_month(as_of, what="as_of") if isinstance(as_of, str) else int(as_of)
     if as_of_index > tables.extract_month:
         raise UsageError(
             f"as_of was {format_month(as_of_index)} but the data only covers months up to "
             f"{format_month(tables.extract_month)} (the extract month); choose an earlier as_of"
         )
-    window = int(config.panel.window_months)
+    return as_of_index
+
+
+def _assemble(
+    tables: Tables, as_of_index: int, config: Config, *, window: int, outcomes: bool = True
+) -> pd.DataFrame:
     if window < 1:
         raise UsageError(f"[panel] window_months was {window} but must be at least 1")
     for product in tables.products:
@@ -73,10 +99,11 @@ def build_panel(tables: Tables, as_of: str | int, *, config: Config | None = Non
     tenure = rows.month - tables.customers["start"].to_numpy()[rows.customer]
     columns["tenure_start"] = tenure.astype(np.int16)
     columns["tenure_stop"] = (tenure + 1).astype(np.int16)
-    columns.update(_terminal_flags(tables.customers, rows, as_of_index))
     uptake_months = _uptake_months(tables, rows)
-    for product, first_holding in uptake_months.items():
-        columns[UPTAKE_PREFIX + product] = (rows.month == first_holding).astype(np.int8)
+    if outcomes:
+        columns.update(_terminal_flags(tables.customers, rows, as_of_index))
+        for product, first_holding in uptake_months.items():
+            columns[UPTAKE_PREFIX + product] = (rows.month == first_holding).astype(np.int8)
     for product, first_holding in uptake_months.items():
         columns[HOLDS_PREFIX + product] = (rows.month > first_holding).astype(np.int8)
     month_of_year = rows.month % 12
