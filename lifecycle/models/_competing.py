@@ -38,6 +38,6 @@ def survival_and_incidence(hazards: np.ndarray) -> tuple[np.ndarray, np.ndarray]
     if np.any(total < -1e-12) or np.any(total > 1 + 1e-9):
         raise ValueError("the summed hazard of a month must lie in [0, 1]")
     survival = np.cumprod(1.0 - np.clip(total, 0.0, 1.0), axis=-1)
-    before = np.concatenate([np.ones(h.shape[:-2] + (1,)), survival[..., :-1]], axis=-1)
+    before = np.concatenate([np.ones((*h.shape[:-2], 1)), survival[..., :-1]], axis=-1)
     incidence = np.cumsum(before[..., None] * h, axis=-2)
     return survival, incidence
