@@ -1,7 +1,15 @@
 """Input tables: reading them and checking them against the data contract."""
 
 from ._check import check_tables, load_tables
+from ._describe import describe_tables
 from ._read import read_raw_tables
 from ._tables import RawTables, Tables
 
-__all__ = ["RawTables", "Tables", "check_tables", "load_tables", "read_raw_tables"]
+__all__ = [
+    "RawTables",
+    "Tables",
+    "check_tables",
+    "describe_tables",
+    "load_tables",
+    "read_raw_tables",
+]

@@ -1,0 +1,668 @@
+"""Checking the input tables against the data contract, and parsing them into `Tables`.
+
+Every problem found becomes one `InputError`: the first one, in this order: tables that are
+missing, columns that are missing, then the values of ``customers``, ``uptakes``, ``activity``,
+``campaigns`` and ``areas``, each table's checks in the order a reader would mend them (ids,
+months, the dates against each other, then the other columns). The error names the table, the
+column, how many rows are affected and up to five example customer ids (or ``row N``, the Nth
+data row counting from 1, where a row has no id).
+
+Everything is vectorised, so that a million customers and tens of millions of activity rows
+are checked in seconds: months are parsed once per distinct value, ids are looked up with
+`pandas.Index.get_indexer`.
+"""
+
+from __future__ import annotations
+
+import logging
+from dataclasses import dataclass
+from pathlib import Path
+
+import geopandas as gpd
+import numpy as np
+import pandas as pd
+import pyproj
+
+from .._months import format_month, months_to_index
+from ..config import REASONS, Config
+from ..errors import InputError, UsageError
+from ._read import read_raw_tables
+from ._tables import RawTables, Tables
+
+__all__ = ["check_tables", "load_tables"]
+
+log = logging.getLogger(__name__)
+
+REQUIRED_TABLES = ("customers", "uptakes", "areas")
+REQUIRED_COLUMNS = {
+    "customers": ("customer_id", "start_month", "end_month", "end_reason", "monthly_margin"),
+    "uptakes": ("customer_id", "product", "month"),
+    "activity": ("customer_id", "month"),
+    "campaigns": ("customer_id", "month", "offer", "arm"),
+    "areas": ("area_id", "geometry"),
+}
+ARMS = ("offered", "held_out")
+# Decision flags: a blank could hide a customer who must not be contacted, so they must be 0/1.
+FLAG_COLUMNS = ("do_not_contact", "hardship")
+_COORDINATES = ("x", "y", "lon", "lat")
+_RESERVED = ("start", "end")  # names of parsed customer columns
+_POLYGONS = ("Polygon", "MultiPolygon")
+_SCAN = 1000  # flagged rows looked at when picking distinct examples
+
+
+def load_tables(source: str | Path, config: Config | None = None) -> Tables:
+    """Read the input tables from ``source`` and check them: `read_raw_tables` then `check_tables`.
+
+    Parameters
+    ----------
+    source
+        A folder of CSV / Parquet files (areas as GeoPackage, GeoJSON or GeoParquet) or a DuckDB
+        database file.
+    config
+        Settings; ``None`` gives the defaults.
+
+    Raises
+    ------
+    InputError
+        At the first table, column or value that breaks the data contract.
+    UsageError
+        When ``source`` does not exist or a setting (a CRS, a reason mapping) is malformed.
+    """
+    config = config or Config()
+    return check_tables(read_raw_tables(source, config), config)
+
+
+def check_tables(raw: RawTables, config: Config) -> Tables:
+    """Check tables as read against the data contract and parse them into working types.
+
+    Months become integer indices ``m = 12·year + (month − 1)``. A customer is active in the
+    months ``start ≤ m ≤ end`` (no upper bound while ``end`` is blank); activity rows and uptakes
+    must fall in those months. No month of any table may be later than the extract month
+    ``config.extract_month_index()``. End reasons are mapped through ``config.reasons`` onto
+    ``churn``, ``move_out`` and ``other``. Other customer columns are the static attributes:
+    numbers (or text that all reads as numbers) become float64, except columns of 0 and 1
+    without blanks, which become int8 flags; other text is kept as ``string``. The decision
+    flags ``do_not_contact`` and ``hardship``, when given, must be 0 or 1 on every row.
+
+    Returns
+    -------
+    Tables
+        Typed as its docstring says; customers keep their input order.
+
+    Raises
+    ------
+    InputError
+        At the first problem found (see the module docstring for the order).
+    UsageError
+        When ``config`` holds a CRS pyproj does not know or a reason mapped onto no cause.
+    """
+    extract = config.extract_month_index()
+    _check_presence(raw)
+    for name in ("customers", "uptakes", "activity", "campaigns", "areas"):
+        frame = getattr(raw, name)
+        if frame is not None:
+            _check_columns(name, frame)
+    x_name, y_name, premise_crs = _coordinate_columns(raw.customers, config)
+
+    customers, static_columns = _check_customers(raw.customers, config, extract, x_name, y_name)
+    known = _Customers.of(customers)
+    uptakes = _check_uptakes(raw.uptakes, known, extract)
+    activity, activity_columns = _check_activity(raw.activity, known, extract)
+    campaigns = _check_campaigns(raw.campaigns, known, extract)
+    areas = _check_areas(raw.areas, config)
+    products = sorted(pd.unique(uptakes["product"]).tolist())
+    log.info(
+        "checked %d customers, %d uptakes of %d products, %d activity rows, %d campaign rows, "
+        "%d areas; extract month %s",
+        len(customers), len(uptakes), len(products), len(activity), len(campaigns),
+        len(areas), format_month(extract),
+    )  # fmt: skip
+    return Tables(
+        customers=customers,
+        uptakes=uptakes,
+        areas=areas,
+        activity=activity,
+        campaigns=campaigns,
+        premise_crs=premise_crs,
+        extract_month=extract,
+        products=products,
+        static_columns=static_columns,
+        activity_columns=activity_columns,
+    )
+
+
+# --- reporting ---------------------------------------------------------------------------------
+
+
+@dataclass(frozen=True)
+class _Report:
+    """Raises `InputError` for the rows of one table flagged by a mask."""
+
+    table: str
+    ids: pd.Series | None  # example labels; None: row numbers
+
+    def fail(self, column: str, problem: str, mask: np.ndarray, fix: str | None = None) -> None:
+        mask = np.asarray(mask, dtype=bool)
+        if mask.any():
+            raise InputError(
+                table=self.table,
+                column=column,
+                problem=problem,
+                count=int(mask.sum()),
+                examples=self.examples(mask),
+                fix=fix,
+            )
+
+    def examples(self, mask: np.ndarray) -> list[object]:
+        rows = np.flatnonzero(mask)[:_SCAN]
+        labels = self.ids.iloc[rows].tolist() if self.ids is not None else [None] * len(rows)
+        out: list[object] = []
+        for row, label in zip(rows, labels, strict=True):
+            label = f"row {row + 1}" if label is None or pd.isna(label) else label
+            if label not in out:
+                out.append(label)
+            if len(out) == 5:
+                break
+        return out
+
+
+def _values_of(values: pd.Series, mask: np.ndarray, limit: int = 5) -> list[object]:
+    """Up to ``limit`` distinct offending values, for messages."""
+    return pd.unique(values[mask].iloc[:_SCAN]).tolist()[:limit]
+
+
+# --- tables and columns ------------------------------------------------------------------------
+
+
+def _check_presence(raw: RawTables) -> None:
+    for name in REQUIRED_TABLES:
+        if getattr(raw, name) is None:
+            files = (
+                "areas.gpkg, areas.geojson or areas.parquet"
+                if name == "areas"
+                else (f"{name}.csv or {name}.parquet")
+            )
+            raise InputError(
+                table=name,
+                column=None,
+                problem="is missing; it is required",
+                fix=f"Add {files} to the data folder (or a DuckDB table named {name}), "
+                f"or point [tables] {name} at it",
+            )
+
+
+def _check_columns(table: str, frame: pd.DataFrame) -> None:
+    columns = set(frame.columns)
+    if table == "areas":
+        try:
+            columns.add(frame.geometry.name)
+            columns.add("geometry")
+        except AttributeError:  # a plain DataFrame, or a GeoDataFrame without geometry
+            pass
+    for column in REQUIRED_COLUMNS[table]:
+        if column not in columns:
+            raise InputError(
+                table=table,
+                column=column,
+                problem=f"is missing; the columns are {sorted(map(str, frame.columns))}",
+                fix=f'Rename your column, or map it in [columns.{table}] {column} = "yours"',
+            )
+    if table == "customers":
+        for column in _RESERVED:
+            if column in columns:
+                raise InputError(
+                    table=table,
+                    column=column,
+                    problem="has a name the checked table uses for the parsed start/end month",
+                    fix="Rename it",
+                )
+
+
+def _coordinate_columns(customers: pd.DataFrame, config: Config) -> tuple[str, str, str]:
+    """Which columns hold the premise coordinates, and their CRS."""
+    columns = set(customers.columns)
+    if {"x", "y"} <= columns and config.premise_crs:
+        try:
+            pyproj.CRS.from_user_input(config.premise_crs)
+        except pyproj.exceptions.CRSError as exc:
+            raise UsageError(
+                f"[data] premise_crs was {config.premise_crs!r} but pyproj does not know it "
+                f'({exc}); give an EPSG code such as "EPSG:32630"'
+            ) from None
+        return "x", "y", str(config.premise_crs)
+    if {"lon", "lat"} <= columns:
+        return "lon", "lat", "EPSG:4326"
+    if {"x", "y"} <= columns:
+        raise InputError(
+            table="customers",
+            column="x",
+            problem="x, y are given but their CRS is not",
+            fix='Set [data] premise_crs (e.g. premise_crs = "EPSG:32630") in lifecycle.toml, '
+            "or give lon, lat instead",
+        )
+    pair = ("lon", "lat") if columns & {"lon", "lat"} else ("x", "y")
+    missing = next(c for c in pair if c not in columns)
+    raise InputError(
+        table="customers",
+        column=missing,
+        problem=f"is missing; premise coordinates are x, y (with [data] premise_crs) or lon, lat; "
+        f"the columns are {sorted(map(str, columns))}",
+        fix="Add the coordinates, or map your names in [columns.customers]",
+    )
+
+
+# --- parsing helpers ---------------------------------------------------------------------------
+
+
+def _plain_index(frame: pd.DataFrame) -> pd.DataFrame:
+    """The frame indexed 0..n−1 (as read), without copying its columns."""
+    if isinstance(frame.index, pd.RangeIndex) and frame.index.start == 0 and frame.index.step == 1:
+        return frame
+    frame = frame.copy(deep=False)
+    frame.index = pd.RangeIndex(len(frame))
+    return frame
+
+
+def _is_text(values: pd.Series) -> bool:
+    return values.dtype == object or isinstance(values.dtype, pd.StringDtype | pd.CategoricalDtype)
+
+
+def _blank(values: pd.Series) -> np.ndarray:
+    """Missing values, and text that is empty or only spaces."""
+    blank = values.isna().to_numpy(dtype=bool)
+    if _is_text(values) and not blank.all():
+        codes, uniques = pd.factorize(values)
+        empty = np.array([isinstance(u, str) and not u.strip() for u in uniques], dtype=bool)
+        if empty.any():
+            blank |= np.append(empty, False)[codes]
+    return blank
+
+
+def _months(values: pd.Series) -> tuple[np.ndarray, np.ndarray]:
+    """`months_to_index`, parsing each distinct text once (a month column has few)."""
+    if not _is_text(values):
+        return months_to_index(values)
+    codes, uniques = pd.factorize(values)
+    parsed, bad = months_to_index(pd.Series(np.asarray(uniques, dtype=object), dtype=object))
+    return np.append(parsed, np.nan)[codes], np.append(bad, False)[codes]
+
+
+def _numbers(values: pd.Series) -> tuple[np.ndarray, np.ndarray]:
+    """``(float64 values, bad)``: ``bad`` marks values present but not a finite number."""
+    if pd.api.types.is_bool_dtype(values.dtype):
+        return values.to_numpy(dtype=np.float64, na_value=np.nan), np.zeros(len(values), bool)
+    if pd.api.types.is_numeric_dtype(values.dtype):
+        out = values.to_numpy(dtype=np.float64, na_value=np.nan)
+        return out, np.isinf(out)
+    codes, uniques = pd.factorize(values)
+    if len(uniques) <= len(values) // 2:  # few distinct texts: parse each once
+        parsed = _to_float(pd.Series(np.asarray(uniques, dtype=object), dtype=object))
+        out = np.append(parsed, np.nan)[codes]
+    else:
+        out = _to_float(values if values.dtype == object else values.astype(object))
+    bad = ~np.isfinite(out) & (codes >= 0)
+    if bad.any():
+        bad &= ~_blank(values)
+        out[~np.isfinite(out)] = np.nan
+    return out, bad
+
+
+def _to_float(values: pd.Series) -> np.ndarray:
+    return pd.to_numeric(values, errors="coerce").to_numpy(dtype=np.float64, na_value=np.nan)
+
+
+def _static(values: pd.Series) -> pd.Series:
+    """A static attribute: 0/1 flags as int8, numbers as float64, other text as string."""
+    if isinstance(values.dtype, pd.CategoricalDtype) or pd.api.types.is_datetime64_any_dtype(
+        values.dtype
+    ):
+        return values
+    numeric, bad = _numbers(values)
+    if bad.any() or (_is_text(values) and np.isnan(numeric).all() and values.notna().any()):
+        return values.astype("string")
+    if not np.isnan(numeric).any() and np.isin(numeric, (0.0, 1.0)).all() and len(numeric):
+        return pd.Series(numeric.astype(np.int8), index=values.index, name=values.name)
+    return pd.Series(numeric, index=values.index, name=values.name)
+
+
+def _text_ids(values: pd.Series) -> pd.Series:
+    """Ids as text, integral floats without ``.0``, for matching ids read with other types."""
+    if pd.api.types.is_float_dtype(values.dtype):
+        whole = values.notna() & (values % 1 == 0)
+        text = values.astype(object).where(~whole, values[whole].astype("int64"))
+        return text.astype(str).where(values.notna())
+    return values.astype(str).where(values.notna())
+
+
+@dataclass(frozen=True)
+class _Customers:
+    """The checked customers, for looking up the rows of the other tables."""
+
+    ids: pd.Series
+    index: pd.Index
+    start: np.ndarray  # int64
+    end: np.ndarray  # float64, +inf while active
+
+    @classmethod
+    def of(cls, customers: pd.DataFrame) -> _Customers:
+        end = customers["end"].to_numpy(dtype=np.float64)
+        return cls(
+            ids=customers["customer_id"],
+            index=pd.Index(customers["customer_id"]),
+            start=customers["start"].to_numpy(dtype=np.int64),
+            end=np.where(np.isnan(end), np.inf, end),
+        )
+
+    def positions(self, ids: pd.Series) -> tuple[np.ndarray, pd.Series]:
+        """Row of each id in the customers table (−1 if unknown), and the ids in its dtype.
+
+        Ids stored with another type (text in one table, integers in another) are matched by
+        their text.
+        """
+        if isinstance(ids.dtype, pd.CategoricalDtype):
+            lookup = np.append(self.index.get_indexer(ids.cat.categories), -1)
+            pos = lookup[ids.cat.codes.to_numpy()]
+        else:
+            pos = self.index.get_indexer(ids)
+        if (pos < 0).any() and ids.dtype != self.ids.dtype:
+            text = pd.Index(_text_ids(self.ids))
+            if text.is_unique:
+                alt = text.get_indexer(_text_ids(ids))
+                if (alt >= 0).sum() > (pos >= 0).sum():
+                    pos = alt
+        if ids.dtype != self.ids.dtype and (pos >= 0).all():
+            ids = pd.Series(self.ids.to_numpy()[pos], name=ids.name)
+        return pos, ids
+
+
+# --- customers ---------------------------------------------------------------------------------
+
+
+def _check_customers(
+    raw: pd.DataFrame, config: Config, extract: int, x_name: str, y_name: str
+) -> tuple[pd.DataFrame, list[str]]:
+    raw = _plain_index(raw)
+    if raw.empty:
+        raise InputError(
+            table="customers", column=None, problem="has no rows", fix="Export the customers"
+        )
+    report = _Report("customers", raw["customer_id"])
+    ids = raw["customer_id"]
+    report.fail("customer_id", "is blank", _blank(ids))
+    report.fail("customer_id", "is not unique", ids.duplicated(keep=False).to_numpy())
+
+    start, bad_start = _months(raw["start_month"])
+    end, bad_end = _months(raw["end_month"])
+    report.fail("start_month", _not_month(raw["start_month"], bad_start), bad_start)
+    report.fail("start_month", "is blank; every customer needs a start month", np.isnan(start))
+    report.fail("end_month", _not_month(raw["end_month"], bad_end), bad_end)
+    future = f"is later than the extract month {format_month(extract)}"
+    report.fail("start_month", future, start > extract, _FUTURE_FIX)
+    report.fail("end_month", future, end > extract, _FUTURE_FIX)
+    report.fail("end_month", "is before start_month", end < start)
+
+    reason = _end_reasons(raw["end_reason"], config, report)
+    report.fail(
+        "end_month",
+        "is blank but end_reason is given",
+        np.isnan(end) & ~np.asarray(reason.isna()),
+        "Give the month the customer left, or blank the reason if the customer is active",
+    )
+    report.fail(
+        "end_reason",
+        "is blank but end_month is given",
+        ~np.isnan(end) & np.asarray(reason.isna()),
+        f"Give the reason ({', '.join(REASONS)}, or your code mapped in [reasons])",
+    )
+
+    margin, bad = _numbers(raw["monthly_margin"])
+    report.fail("monthly_margin", "is not a number", bad)
+    report.fail("monthly_margin", "is blank", np.isnan(margin))
+    report.fail("monthly_margin", "is negative", margin < 0)
+
+    x, y = _coordinates(raw, x_name, y_name, report)
+    out = pd.DataFrame(
+        {
+            "customer_id": ids,
+            "start": start.astype(np.int32),
+            "end": end,
+            "end_reason": reason,
+            "x": x,
+            "y": y,
+            "monthly_margin": margin,
+        }
+    )
+    skip = set(REQUIRED_COLUMNS["customers"]) | set(_COORDINATES)
+    static_columns = [c for c in raw.columns if c not in skip]
+    for name in static_columns:
+        out[name] = _static(raw[name])
+        if name in FLAG_COLUMNS:
+            flag, _ = _numbers(raw[name])
+            report.fail(
+                name,
+                "is a decision flag and must be 0 or 1 (blank is not allowed)",
+                ~np.isin(flag, (0.0, 1.0)),
+                "Write 1 for flagged customers and 0 for the others",
+            )
+    return out, static_columns
+
+
+_FUTURE_FIX = "Set [data] extract_month to the last month the data covers, or remove the later rows"
+
+
+def _not_month(values: pd.Series, bad: np.ndarray) -> str:
+    return f"has values that are not YYYY-MM months, e.g. {_values_of(values, bad, 3)}"
+
+
+def _end_reasons(values: pd.Series, config: Config, report: _Report) -> pd.Categorical:
+    """End-reason codes mapped onto ``churn`` / ``move_out`` / ``other``."""
+    wrong = {k: v for k, v in config.reasons.items() if v not in REASONS}
+    if wrong:
+        raise UsageError(f"[reasons] maps onto {wrong}; each must be one of {list(REASONS)}")
+    mapping = {r: r for r in REASONS} | {str(k): v for k, v in config.reasons.items()}
+    codes, uniques = pd.factorize(values)
+    texts = _text_ids(pd.Series(np.asarray(uniques, dtype=object), dtype=object))
+    texts = [str(t).strip() for t in texts]
+    mapped = np.array([mapping.get(t, "" if t else None) for t in texts] + [None], dtype=object)
+    unknown = np.array([m == "" for m in mapped], dtype=bool)
+    flagged = unknown[codes]
+    report.fail(
+        "end_reason",
+        f"has unknown codes {sorted({t for t, u in zip(texts, unknown, strict=False) if u})[:5]}; "
+        f"known are {sorted(mapping)}",
+        flagged,
+        'Map each code onto churn, move_out or other in [reasons], e.g. CODE = "churn"',
+    )
+    return pd.Categorical(mapped[codes], categories=list(REASONS))
+
+
+def _coordinates(
+    raw: pd.DataFrame, x_name: str, y_name: str, report: _Report
+) -> tuple[np.ndarray, np.ndarray]:
+    out = []
+    for name, limit in ((x_name, 180.0), (y_name, 90.0)):
+        values, bad = _numbers(raw[name])
+        report.fail(name, "is not a number", bad)
+        report.fail(name, "is blank; every customer needs premise coordinates", np.isnan(values))
+        if name in ("lon", "lat"):
+            report.fail(
+                name,
+                f"is outside −{limit:g}..{limit:g} degrees",
+                np.abs(values) > limit,
+                "Check that lon and lat are not swapped, or give x, y with [data] premise_crs",
+            )
+        out.append(values)
+    return out[0], out[1]
+
+
+# --- uptakes, activity, campaigns --------------------------------------------------------------
+
+
+def _rows_of_customers(
+    table: str, raw: pd.DataFrame, known: _Customers, extract: int
+) -> tuple[np.ndarray, pd.Series, np.ndarray, _Report]:
+    """The checks every customer-month table shares: ids known, months present and not later
+    than the extract month. Returns (customer rows, ids, month indices, report)."""
+    report = _Report(table, raw["customer_id"])
+    # Only missing ids here: ids of spaces are not customers, reported just below.
+    report.fail("customer_id", "is blank", raw["customer_id"].isna().to_numpy())
+    pos, ids = known.positions(raw["customer_id"])
+    report.fail(
+        "customer_id",
+        "is not in the customers table",
+        pos < 0,
+        "Remove these rows, or add the customers",
+    )
+    report = _Report(table, ids)
+    month, bad = _months(raw["month"])
+    report.fail("month", _not_month(raw["month"], bad), bad)
+    report.fail("month", "is blank", np.isnan(month))
+    report.fail(
+        "month", f"is later than the extract month {format_month(extract)}", month > extract,
+        _FUTURE_FIX,
+    )  # fmt: skip
+    return pos, ids, month.astype(np.int32), report
+
+
+def _duplicated(pos: np.ndarray, other: np.ndarray) -> np.ndarray:
+    """Rows sharing their (customer, other) pair with another row; ``other`` ≥ 0 integers."""
+    if len(pos) < 2:
+        return np.zeros(len(pos), dtype=bool)
+    lo = int(other.min())
+    key = pos.astype(np.int64) * (int(other.max()) - lo + 1) + (other.astype(np.int64) - lo)
+    if (np.diff(key) > 0).all():  # sorted input, the usual case: no hashing needed
+        return np.zeros(len(pos), dtype=bool)
+    return pd.Series(key).duplicated(keep=False).to_numpy()
+
+
+def _empty(known: _Customers, text_columns: tuple[str, ...]) -> pd.DataFrame:
+    """An absent optional table: ``customer_id`` (the customers' dtype), ``month``, text."""
+    columns = {"customer_id": pd.Series([], dtype=known.ids.dtype), "month": np.array([], np.int32)}
+    return pd.DataFrame(columns | {c: pd.Series([], dtype=object) for c in text_columns})
+
+
+def _check_uptakes(raw: pd.DataFrame, known: _Customers, extract: int) -> pd.DataFrame:
+    raw = _plain_index(raw)
+    pos, ids, month, report = _rows_of_customers("uptakes", raw, known, extract)
+    report.fail("product", "is blank", _blank(raw["product"]))
+    product = raw["product"].astype(str)
+    codes, _ = pd.factorize(product)
+    report.fail(
+        "product",
+        "has more than one row for the same customer and product; give the first month only",
+        _duplicated(pos, codes),
+    )
+    report.fail("month", "is before the customer's start_month", month < known.start[pos])
+    report.fail("month", "is after the customer's end_month", month > known.end[pos])
+    return pd.DataFrame({"customer_id": ids, "product": product.astype(object), "month": month})
+
+
+def _check_activity(
+    raw: pd.DataFrame | None, known: _Customers, extract: int
+) -> tuple[pd.DataFrame, list[str]]:
+    if raw is None:
+        return _empty(known, ()), []
+    raw = _plain_index(raw)
+    pos, ids, month, report = _rows_of_customers("activity", raw, known, extract)
+    report.fail(
+        "month",
+        "has more than one row for the same customer and month",
+        _duplicated(pos, month),
+    )
+    outside = (month < known.start[pos]) | (month > known.end[pos])
+    report.fail(
+        "month",
+        "is outside the customer's active months (start_month..end_month)",
+        outside,
+        "Remove activity from before the start or after the end",
+    )
+    columns = [c for c in raw.columns if c not in ("customer_id", "month")]
+    data: dict[str, object] = {"customer_id": ids, "month": month}
+    for name in columns:
+        values, bad = _numbers(raw[name])
+        if bad.any():
+            report.fail(
+                name, f"is not a number, e.g. {_values_of(raw[name], bad, 3)}", bad,
+                "Activity columns must be numeric; blank means unknown",
+            )  # fmt: skip
+        data[name] = values
+    return pd.DataFrame(data, copy=False), list(columns)
+
+
+def _check_campaigns(raw: pd.DataFrame | None, known: _Customers, extract: int) -> pd.DataFrame:
+    if raw is None:
+        return _empty(known, ("offer", "arm"))
+    raw = _plain_index(raw)
+    _, ids, month, report = _rows_of_customers("campaigns", raw, known, extract)
+    report.fail("offer", "is blank", _blank(raw["offer"]))
+    arm = raw["arm"].astype("string").str.strip()
+    wrong = ~arm.isin(ARMS).to_numpy(dtype=bool)
+    report.fail(
+        "arm",
+        f"is not one of {list(ARMS)}: {_values_of(raw['arm'], wrong)}",
+        wrong,
+        "Write offered for customers who got the offer, held_out for the random hold-out",
+    )
+    return pd.DataFrame(
+        {
+            "customer_id": ids,
+            "month": month,
+            "offer": raw["offer"].astype(str).astype(object),
+            "arm": arm.astype(object),
+        }
+    )
+
+
+# --- areas -------------------------------------------------------------------------------------
+
+
+def _check_areas(raw: gpd.GeoDataFrame, config: Config) -> gpd.GeoDataFrame:
+    if not isinstance(raw, gpd.GeoDataFrame):
+        raise InputError(
+            table="areas", column="geometry", problem="is not a geometry column",
+            fix="Give the areas as GeoPackage, GeoJSON or GeoParquet",
+        )  # fmt: skip
+    areas = _plain_index(raw)
+    if areas.geometry.name != "geometry":
+        areas = areas.rename_geometry("geometry")
+    if areas.empty:
+        raise InputError(table="areas", column=None, problem="has no rows")
+    if areas.crs is None:
+        if not config.areas_crs:
+            raise InputError(
+                table="areas",
+                column="geometry",
+                problem="has no CRS",
+                fix="Save the areas with their CRS, or set [data] areas_crs in lifecycle.toml",
+            )
+        try:
+            areas = areas.set_crs(config.areas_crs)
+        except pyproj.exceptions.CRSError as exc:
+            raise UsageError(
+                f"[data] areas_crs was {config.areas_crs!r} but pyproj does not know it ({exc})"
+            ) from None
+    report = _Report("areas", areas["area_id"])
+    report.fail("area_id", "is blank", _blank(areas["area_id"]))
+    report.fail("area_id", "is not unique", areas["area_id"].duplicated(keep=False).to_numpy())
+    geometry = areas.geometry
+    report.fail("geometry", "is missing or empty", (geometry.isna() | geometry.is_empty).to_numpy())
+    kind = geometry.geom_type
+    wrong = ~kind.isin(_POLYGONS).to_numpy()
+    report.fail(
+        "geometry",
+        f"is not a polygon but {_values_of(kind, wrong)}; areas must be Polygon or MultiPolygon",
+        wrong,
+    )
+    invalid = ~geometry.is_valid.to_numpy()
+    if invalid.any():
+        log.warning(
+            "areas: %d polygons are not valid (e.g. %s); point-in-polygon results near their "
+            "flaws may be off; shapely.make_valid can mend them",
+            int(invalid.sum()), report.examples(invalid),
+        )  # fmt: skip
+    for name in areas.columns:
+        if name not in ("area_id", "geometry") and _is_text(areas[name]):
+            values, bad = _numbers(areas[name])
+            if not bad.any() and not np.isnan(values).all():
+                areas[name] = values
+    return areas
