@@ -53,7 +53,8 @@ def format_table(results: Sequence[Measurement]) -> str:
     """A plain-text table; for each plain-route case, the ratio of its time to ours."""
     header = f"{'suite':<9} {'case':<40} {'size':<24} {'seconds':>9} {'peak MB':>9}  note"
     lines = [
-        f"machine: {platform.machine()}, {os.cpu_count()} cores, Python {platform.python_version()}",
+        f"machine: {platform.machine()}, {os.cpu_count()} cores, "
+        f"Python {platform.python_version()}",
         header,
         "-" * len(header),
     ]
@@ -64,7 +65,9 @@ def format_table(results: Sequence[Measurement]) -> str:
     ratios = []
     for plain in (m for m in results if m.role == "plain"):
         ours = [
-            m for m in results if m.role == "ours" and m.suite == plain.suite and m.size == plain.size
+            m
+            for m in results
+            if m.role == "ours" and m.suite == plain.suite and m.size == plain.size
         ]
         for m in ours:
             ratios.append(

@@ -4,9 +4,9 @@ from __future__ import annotations
 
 import argparse
 import logging
+from collections.abc import Callable
 from dataclasses import dataclass
 from pathlib import Path
-from typing import Callable
 
 from .._months import format_month, parse_month
 from ..config import Config, load_config
@@ -52,7 +52,9 @@ def _check_run(args: argparse.Namespace) -> None:
     print(describe_tables(tables))
 
 
-CHECK = Command("check", "validate the input tables and print what they hold", _data_arguments, _check_run)
+CHECK = Command(
+    "check", "validate the input tables and print what they hold", _data_arguments, _check_run
+)
 
 
 # panel ---------------------------------------------------------------------------------------
@@ -66,12 +68,15 @@ def _panel_arguments(p: argparse.ArgumentParser) -> None:
 
 
 def build_panel_with_context(tables, as_of: str, config: Config, *, spatial: bool = True):
-    """The panel of ``as_of`` with the spatial context appended (what ``lifecycle panel`` writes)."""
+    """The panel of ``as_of`` with its spatial context (what ``lifecycle panel`` writes)."""
     from ..panel import build_panel
-    from ..spatial import add_spatial_context
 
     panel = build_panel(tables, as_of, config=config)
-    return add_spatial_context(panel, tables, config=config) if spatial else panel
+    if not spatial:
+        return panel
+    from ..spatial import add_spatial_context
+
+    return add_spatial_context(panel, tables, config=config)
 
 
 def _panel_run(args: argparse.Namespace) -> None:
@@ -117,7 +122,10 @@ def _demo_run(args: argparse.Namespace) -> None:
 
 
 DEMO = Command(
-    "demo", "write the invented demo scenario and run the monthly cycle on it", _demo_arguments, _demo_run
+    "demo",
+    "write the invented demo scenario and run the monthly cycle on it",
+    _demo_arguments,
+    _demo_run,
 )
 
 
@@ -137,7 +145,10 @@ def _bench_run(args: argparse.Namespace) -> None:
 
 
 BENCH = Command(
-    "bench", "performance benchmarks, measured side by side in one run", _bench_arguments, _bench_run
+    "bench",
+    "performance benchmarks, measured side by side in one run",
+    _bench_arguments,
+    _bench_run,
 )
 
 COMMANDS = (CHECK, PANEL, DEMO, BENCH)

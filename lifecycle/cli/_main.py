@@ -20,10 +20,11 @@ log = logging.getLogger("lifecycle")
 def _parser() -> argparse.ArgumentParser:
     parser = argparse.ArgumentParser(
         prog="lifecycle",
-        description="Customer-lifecycle survival modelling: panels, hazards, value, plans, reports.",
+        description="Customer-lifecycle survival modelling: panels, hazards, value, plans.",
     )
-    parser.add_argument("-v", "--verbose", action="store_true", help="log every step")
-    parser.add_argument("-q", "--quiet", action="store_true", help="log warnings only")
+    parser.add_argument(
+        "-v", "--verbose", action="count", default=0, help="log each step (-vv: and details)"
+    )
     sub = parser.add_subparsers(dest="command", required=True, metavar="COMMAND")
     for command in _commands.COMMANDS:
         p = sub.add_parser(command.name, help=command.help, description=command.help)
@@ -35,7 +36,7 @@ def _parser() -> argparse.ArgumentParser:
 def main(argv: Sequence[str] | None = None) -> int:
     """Entry point of the ``lifecycle`` console script; returns the exit code."""
     args = _parser().parse_args(argv)
-    level = logging.WARNING if args.quiet else logging.DEBUG if args.verbose else logging.INFO
+    level = {0: logging.WARNING, 1: logging.INFO}.get(args.verbose, logging.DEBUG)
     logging.basicConfig(level=level, format="%(levelname)s %(name)s: %(message)s", force=True)
     try:
         args.run(args)

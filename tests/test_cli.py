@@ -1,0 +1,68 @@
+"""The command line: exit codes, one clear message, and nothing written on bad input."""
+
+from __future__ import annotations
+
+import subprocess
+import sys
+
+import pandas as pd
+import pytest
+
+from lifecycle.cli import main
+from tests._tables_factory import EXTRACT, PREMISE_CRS, valid_frames, write_csv
+
+
+@pytest.fixture
+def data(tmp_path):
+    folder = write_csv(tmp_path / "data", valid_frames())
+    (folder / "lifecycle.toml").write_text(
+        f'[data]\nextract_month = "{EXTRACT}"\npremise_crs = "{PREMISE_CRS}"\n'
+    )
+    return folder
+
+
+def test_check_prints_what_it_found(data, capsys):
+    assert main(["check", str(data)]) == 0
+    out = capsys.readouterr().out
+    assert "customers: 6" in out and "all checks passed" in out
+
+
+def test_bad_input_exits_2_with_one_message_and_writes_nothing(data, tmp_path, capsys):
+    customers = pd.read_csv(data / "customers.csv", dtype=str)
+    customers.loc[1, "customer_id"] = customers.loc[0, "customer_id"]
+    customers.to_csv(data / "customers.csv", index=False)
+    out = tmp_path / "out" / "panel.parquet"
+    assert main(["panel", str(data), "--as-of", "2026-03", "--out", str(out)]) == 2
+    err = capsys.readouterr().err.strip().splitlines()
+    assert len(err) == 1
+    assert "table 'customers', column 'customer_id'" in err[0] and "C001" in err[0]
+    assert not out.exists() and not out.parent.exists()
+
+
+def test_bad_month_and_bad_output_name_are_usage_errors(data, tmp_path, capsys):
+    out = tmp_path / "panel.parquet"
+    assert main(["panel", str(data), "--as-of", "2026-13", "--out", str(out)]) == 2
+    assert "--as-of was '2026-13'" in capsys.readouterr().err
+    assert main(["panel", str(data), "--as-of", "2026-03", "--out", str(tmp_path / "p.csv")]) == 2
+    assert main(["panel", str(data), "--as-of", "2026-09", "--out", str(out)]) == 2
+    assert "only covers months up to 2026-06" in capsys.readouterr().err
+    assert not out.exists()
+
+
+def test_panel_writes_parquet_atomically(data, tmp_path):
+    out = tmp_path / "panel.parquet"
+    assert main(["panel", str(data), "--as-of", "2026-03", "--out", str(out), "--no-spatial"]) == 0
+    panel = pd.read_parquet(out)
+    assert list(panel.columns[:4]) == ["customer_id", "month", "tenure_start", "tenure_stop"]
+    assert [p.name for p in tmp_path.iterdir()] == ["data", "panel.parquet"]  # no temp left
+
+
+def test_console_entry_point_runs():
+    done = subprocess.run(
+        [sys.executable, "-m", "lifecycle", "--help"], capture_output=True, text=True, check=False
+    )
+    assert done.returncode == 0 and "check" in done.stdout and "panel" in done.stdout
+    done = subprocess.run(
+        [sys.executable, "-m", "lifecycle", "no-such-step"], capture_output=True, text=True
+    )
+    assert done.returncode == 2
