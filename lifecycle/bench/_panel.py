@@ -65,8 +65,24 @@ def run_panel_bench(
     size = f"{customers:,} × {months} months"
     small = f"{baseline_customers:,} × {months} months"
     return [
-        measure("panel", "build_panel (late entry)", size, _ours, customers=customers, months=months, late_entry=True),
-        measure("panel", "build_panel", small, _ours, customers=baseline_customers, months=months, late_entry=False),
+        measure(
+            "panel",
+            "build_panel (late entry)",
+            size,
+            _ours,
+            customers=customers,
+            months=months,
+            late_entry=True,
+        ),
+        measure(
+            "panel",
+            "build_panel",
+            small,
+            _ours,
+            customers=baseline_customers,
+            months=months,
+            late_entry=False,
+        ),
         measure(
             "panel",
             "lifelines long-format route",
