@@ -27,6 +27,7 @@ def atomic_path(dest: str | Path) -> Iterator[Path]:
     fd, tmp_name = tempfile.mkstemp(prefix=f".{dest.name}.", suffix=".part", dir=dest.parent)
     os.close(fd)
     tmp = Path(tmp_name)
+    os.chmod(tmp, 0o666 & ~_umask())  # mkstemp makes 0600; give what open() would
     try:
         yield tmp
         with open(tmp, "rb+") as handle:
@@ -35,6 +36,12 @@ def atomic_path(dest: str | Path) -> Iterator[Path]:
     finally:
         if tmp.exists():
             tmp.unlink()
+
+
+def _umask() -> int:
+    mask = os.umask(0)
+    os.umask(mask)
+    return mask
 
 
 def write_atomic(dest: str | Path, write: Callable[[Path], object]) -> Path:

@@ -149,4 +149,6 @@ def write_demo(out_dir: str | Path, *, customers: int = 20_000, seed: int = 7) -
 
 def _check_int(name: str, value: object, lo: int, hi: int) -> None:
     if not isinstance(value, numbers.Integral) or isinstance(value, bool) or not lo <= value <= hi:
-        raise UsageError(f"{name} was {value!r} but is expected to be a whole number in [{lo}, {hi}]")
+        raise UsageError(
+            f"{name} was {value!r} but is expected to be a whole number in [{lo}, {hi}]"
+        )
