@@ -67,7 +67,7 @@ class Baseline:
 
 
 BASELINE: dict[str, Baseline] = {
-    "churn": Baseline(early=0.0210, late=0.0120, decay_months=10.0),
+    "churn": Baseline(early=0.0056, late=0.0032, decay_months=10.0),
     "move_out": Baseline(early=0.0060, late=0.0030, decay_months=30.0),
     "other": Baseline(early=0.0009, late=0.0009, decay_months=12.0),
     PRODUCT: Baseline(early=0.0028, late=0.0028, decay_months=12.0),
@@ -84,12 +84,12 @@ HOLDS = f"holds_{PRODUCT}"
 BETA: dict[str, dict[str, float]] = {
     "churn": {
         "contract_ending": math.log(2.6),
-        "contract_months_left": -0.04,
+        "contract_months_left": -0.06,
         "bill_shock": math.log(1.8),
         "complaints_3m": 0.22,
         "late_payment": math.log(1.35),
         HOLDS: math.log(0.7),
-        "monthly_margin": -0.012,
+        "monthly_margin": 0.05,  # bigger bills shop around: a lasting difference between customers
         "rental_share": 0.55,
         "season_sin": 0.0,
         "season_cos": 0.10,
