@@ -1,0 +1,22 @@
+"""Evaluation: accuracy metrics on censored follow-up, observed outcomes and backtests."""
+
+from ._backtest import BacktestResult, backtest, champions
+from ._baseline import TenureLifeTable
+from ._calibration import calibration_table, lift_and_capture
+from ._metrics import CensoringCurve, brier_score, time_dependent_auc, uno_concordance
+from ._outcomes import observed_outcomes, outcome_for_cause
+
+__all__ = [
+    "BacktestResult",
+    "CensoringCurve",
+    "TenureLifeTable",
+    "backtest",
+    "brier_score",
+    "calibration_table",
+    "champions",
+    "lift_and_capture",
+    "observed_outcomes",
+    "outcome_for_cause",
+    "time_dependent_auc",
+    "uno_concordance",
+]
