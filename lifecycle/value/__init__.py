@@ -1,0 +1,22 @@
+"""Value: lifetime value, the expected value of offers, and offer effects from past campaigns."""
+
+from ._campaigns import campaign_follow_up, estimate_offer_effects
+from ._lifetime import (
+    ValueSettings,
+    discount_factors,
+    lifetime_value,
+    monthly_discount_rate,
+    value_settings,
+)
+from ._offer_value import offer_values
+
+__all__ = [
+    "ValueSettings",
+    "campaign_follow_up",
+    "discount_factors",
+    "estimate_offer_effects",
+    "lifetime_value",
+    "monthly_discount_rate",
+    "offer_values",
+    "value_settings",
+]
