@@ -1,0 +1,601 @@
+"""Cause-specific Cox regression with time-varying covariates (one lifelines fit per cause)."""
+
+from __future__ import annotations
+
+import logging
+import numbers
+import re
+import time
+import warnings
+from dataclasses import dataclass
+
+import numpy as np
+import pandas as pd
+from lifelines import CoxTimeVaryingFitter
+from lifelines.exceptions import ConvergenceError
+from scipy import stats
+
+from ..errors import InputError, UsageError
+from ..panel import PanelLayout
+from ._base import HazardModel
+from ._design import CovariateDesign
+
+log = logging.getLogger(__name__)
+
+_Z95 = float(stats.norm.ppf(0.975))
+_TAIL_MONTHS = 12
+_MAX_LOG_RISK = 50.0  # exp(50) ≈ 5e21: far beyond any sensible relative hazard
+_START, _STOP, _EVENT, _WEIGHT = "_start_", "_stop_", "_event_", "_weight_"
+
+
+@dataclass
+class _CauseFit:
+    """What one cause's fit keeps: coefficients, the design and the baseline by tenure month."""
+
+    cause: str
+    design: CovariateDesign | None
+    beta: np.ndarray  # (p,)
+    se: np.ndarray  # (p,)
+    centre: np.ndarray  # (p,): covariates at which the baseline is expressed
+    increments: np.ndarray  # (M,): ΔH0 of tenure months (0,1], (1,2], ..., (M−1, M]
+    tail: float  # ΔH0 used beyond month M
+    n_rows: int
+    n_events: int
+
+    def cumulative_hazards(self, future: pd.DataFrame) -> np.ndarray:
+        """``ΔH0(t) · exp(β·(x − centre))`` for each row (its tenure month ``t``)."""
+        start = np.floor(future["tenure_start"].to_numpy(dtype=np.float64)).astype(np.int64)
+        start = np.maximum(start, 0)
+        inside = start < self.increments.size
+        base = np.full(start.size, self.tail)
+        base[inside] = self.increments[start[inside]]
+        if self.design is None or self.beta.size == 0:
+            return base
+        x = self.design.transform(future)
+        eta = np.clip((x - self.centre) @ self.beta, -_MAX_LOG_RISK, _MAX_LOG_RISK)
+        return base * np.exp(eta)
+
+
+class CauseSpecificCox(HazardModel):
+    """Cause-specific Cox proportional hazards on the customer-month panel.
+
+    For each cause k (terminal causes and product uptakes) a Cox model with time-varying
+    covariates is fitted on the start-stop rows at risk of k (for ``uptake_<p>`` only rows
+    with ``holds_<p> == 0``), time being tenure and each row the interval
+    ``(tenure_start, tenure_stop]``:
+
+        λ_k(t | x(t)) = λ_{0k}(t) · exp(β_k · x(t))
+
+    The partial likelihood is maximised by lifelines' ``CoxTimeVaryingFitter`` (Newton–Raphson),
+    with Efron's approximation for tied event times (lifelines' method for this fitter). The
+    covariates are the panel's features turned numeric by `CovariateDesign` (median imputation
+    with ``<column>_missing`` indicators, one-hot categoricals, constant columns dropped),
+    separately for each cause; a column the partial likelihood cannot identify (constant
+    within every risk set, such as the missing indicator of a lagged column that is missing
+    exactly in a customer's first month, or a linear combination of other columns there) is
+    left out and logged (`identifiable_columns`).
+
+    The baseline cumulative hazard is Breslow's estimator with the fit's row weights,
+    ``ΔĤ_{0k}(u) = Σ_{i: event k at u} w_i / Σ_{j at risk at u} w_j exp(β̂_k·(x_j − c_k))``,
+    expressed at the weighted covariate mean ``c_k`` (lifelines centres its own baseline at the
+    unweighted mean and leaves the weights out of the denominator; this estimator equals
+    lifelines' for unit weights once re-centred). It is summed into tenure months:
+    ``ΔH_{0k}(t) = H_{0k}(t) − H_{0k}(t − 1)`` for month ``t`` = ``(t − 1, t]``. The monthly
+    hazard of a row in tenure month t is
+
+        h_k(t | x) = 1 − exp(−ΔH_{0k}(t) · exp(β̂_k · (x − c_k)))
+
+    and beyond the last tenure month seen in training the baseline is held at the mean of
+    ``ΔH_{0k}`` over the last 12 months seen. (Should the terminal hazards of a row sum past 1,
+    which takes extreme covariates, they are replaced by the continuous-time split
+    ``Λ_k/ΣΛ · (1 − exp(−ΣΛ))`` with ``Λ_k = ΔH_{0k} exp(β̂_k·(x − c_k))``, and an uptake hazard
+    is capped at 1 minus the terminal ones, so that survival stays a probability.)
+
+    Parameters
+    ----------
+    penalizer : float, default 0.0
+        L2 penalty of lifelines' fitter (applied to the coefficients of standardised
+        covariates, scaled by the number of rows); 0 is the plain partial likelihood.
+    sample_fraction : float in (0, 1], optional
+        Fit each cause on all its event rows plus a random fraction of its non-event rows,
+        weighted ``1 / sample_fraction``, so that the weighted partial likelihood and the
+        baseline estimate those of the full fit. Standard errors are then the model-based
+        ones of the weighted fit (they approximate the full fit's and leave out the extra
+        variance of the sampling). ``None`` uses every row.
+    random_state : int or None, default 0
+        Seed of the row sampling; the same seed gives the same fit.
+
+    Learned attributes
+    ------------------
+    coefficients_ : pandas.DataFrame
+        ``cause``, ``feature``, ``coef`` (β̂, log hazard ratio per unit), ``se``,
+        ``hazard_ratio`` (exp β̂), ``lower_95``, ``upper_95`` (the 95 % Wald interval of the
+        hazard ratio, ``exp(β̂ ∓ 1.96 se)``).
+    ph_tests_ : pandas.DataFrame
+        ``cause``, ``feature``, ``statistic``, ``p_value``: the proportional-hazards test of
+        each covariate (Grambsch & Therneau 1994, Biometrika 81, 515–526) — the correlation of
+        its scaled Schoenfeld residuals with the rank of the event time (tied times share their
+        mean rank), ``T_j = (Σ_i (g_i − ḡ) r*_ij)² / (D · V_jj · Σ_i (g_i − ḡ)²)`` with
+        ``r*_i = D · V · r_i`` (``r_i`` the Efron Schoenfeld residual of event i, D events,
+        V the coefficients' covariance), referred to χ² with 1 degree of freedom. Small
+        p-values flag covariates whose effect changes with tenure.
+    baseline_hazard_ : pandas.DataFrame
+        ``ΔH_{0k}(t)`` by tenure month (index ``tenure_start`` = t − 1) and cause, at the
+        weighted covariate mean of that cause's training rows; NaN past a cause's last month.
+    cause_fits_ : dict
+        Per cause, the arrays used for prediction (no training rows are kept).
+    """
+
+    def __init__(
+        self,
+        *,
+        penalizer: float = 0.0,
+        sample_fraction: float | None = None,
+        random_state: int | None = 0,
+    ) -> None:
+        self.penalizer = penalizer
+        self.sample_fraction = sample_fraction
+        self.random_state = random_state
+
+    # -- fitting ------------------------------------------------------------------------------
+    def _fit(self, panel: pd.DataFrame) -> None:
+        self._check_hyperparameters()
+        start, stop = _tenure(panel)
+        seeds = np.random.SeedSequence(self.random_state).spawn(len(self.causes_))
+        fits: dict[str, _CauseFit] = {}
+        coef_rows: list[pd.DataFrame] = []
+        ph_rows: list[pd.DataFrame] = []
+        for cause, seed in zip(self.causes_, seeds, strict=True):
+            began = time.perf_counter()
+            fit, coefs, ph = self._fit_cause(panel, cause, start, stop, seed)
+            fits[cause] = fit
+            coef_rows.append(coefs)
+            ph_rows.append(ph)
+            log.info(
+                "cox: %s fitted on %d rows with %d events, %d covariates (%.1f s)",
+                cause,
+                fit.n_rows,
+                fit.n_events,
+                fit.beta.size,
+                time.perf_counter() - began,
+            )
+        self.cause_fits_ = fits
+        self.coefficients_ = _stack(coef_rows, _COEF_COLUMNS)
+        self.ph_tests_ = _stack(ph_rows, _PH_COLUMNS)
+        self.baseline_hazard_ = _baseline_frame(fits)
+        flagged = self.ph_tests_[self.ph_tests_["p_value"] < 0.01]
+        if len(flagged):
+            log.info(
+                "cox: %d covariate-cause pairs fail the proportional-hazards test at 1 %%: %s",
+                len(flagged),
+                ", ".join(
+                    f"{c}:{f}" for c, f in zip(flagged["cause"], flagged["feature"], strict=True)
+                ),
+            )
+
+    def _check_hyperparameters(self) -> None:
+        p = self.penalizer
+        if isinstance(p, bool) or not isinstance(p, numbers.Real) or not p >= 0:
+            raise UsageError(f"penalizer was {p!r} but is expected to be a number >= 0")
+        f = self.sample_fraction
+        if f is not None and (
+            isinstance(f, bool) or not isinstance(f, numbers.Real) or not 0 < f <= 1
+        ):
+            raise UsageError(f"sample_fraction was {f!r} but is expected to be None or in (0, 1]")
+        r = self.random_state
+        if r is not None and (isinstance(r, bool) or not isinstance(r, numbers.Integral) or r < 0):
+            raise UsageError(f"random_state was {r!r} but is expected to be None or an int >= 0")
+
+    def _fit_cause(
+        self,
+        panel: pd.DataFrame,
+        cause: str,
+        start: np.ndarray,
+        stop: np.ndarray,
+        seed: np.random.SeedSequence,
+    ) -> tuple[_CauseFit, pd.DataFrame, pd.DataFrame]:
+        at_risk = _at_risk(panel, cause)
+        event = _event_flags(panel, cause)[at_risk]
+        rows = panel.loc[at_risk] if not at_risk.all() else panel
+        start, stop = start[at_risk], stop[at_risk]
+        months = int(np.ceil(stop.max())) if stop.size else 0
+        empty = (_stack([], _COEF_COLUMNS), _stack([], _PH_COLUMNS))
+        if not event.any():
+            log.info("cox: no %s events in the panel; its hazard is 0", cause)
+            nothing = np.empty(0)
+            fit = _CauseFit(cause, None, nothing, nothing, nothing, np.zeros(months), 0.0,
+                            int(at_risk.sum()), 0)  # fmt: skip
+            return fit, *empty
+
+        design = CovariateDesign()
+        x = design.fit_transform(rows, self.features_)
+        risk = RiskSets(start, stop, np.unique(stop[event]))
+        flat = ~identifiable_columns(risk, x, stop, event)
+        if flat.any():
+            names = [n for n, f in zip(design.names_, flat, strict=True) if f]
+            log.info(
+                "cox: %s: %s left out: constant within every risk set, or a linear "
+                "combination of earlier columns there (not identified by the partial "
+                "likelihood; a function of tenure alone is absorbed by the baseline)",
+                cause,
+                names,
+            )
+            design.drop(names)
+            x = x[:, ~flat]
+        weights = np.ones(event.size)
+        if self.sample_fraction is not None and self.sample_fraction < 1:
+            keep = event | (np.random.default_rng(seed).random(event.size) < self.sample_fraction)
+            x, start, stop, event = x[keep], start[keep], stop[keep], event[keep]
+            weights = np.where(event, 1.0, 1.0 / self.sample_fraction)
+            risk = RiskSets(start, stop, risk.times)
+
+        if x.shape[1]:
+            beta, cov = self._partial_likelihood(
+                x, start, stop, event, weights, cause, design.names_
+            )
+        else:
+            beta, cov = np.empty(0), np.empty((0, 0))
+        se = np.sqrt(np.diag(cov))
+        centre = np.average(x, axis=0, weights=weights) if x.shape[1] else np.empty(0)
+        phi = weights * np.exp(np.clip((x - centre) @ beta, -_MAX_LOG_RISK, _MAX_LOG_RISK))
+        increments = _monthly(
+            risk.times, breslow_increments(risk, stop, event, weights, phi), months
+        )
+        tail = float(increments[-_TAIL_MONTHS:].mean()) if increments.size else 0.0
+        fit = _CauseFit(cause, design, beta, se, centre, increments, tail,
+                        int(event.size), int(event.sum()))  # fmt: skip
+
+        names = list(design.names_)
+        coefs = _coefficient_table(cause, names, beta, se)
+        if not names:
+            return fit, coefs, empty[1]
+        statistic, p_value = ph_test(risk, x, stop, event, phi, cov)
+        ph = pd.DataFrame(
+            {"cause": cause, "feature": names, "statistic": statistic, "p_value": p_value},
+            columns=_PH_COLUMNS,
+        )
+        return fit, coefs, ph
+
+    def _partial_likelihood(
+        self,
+        x: np.ndarray,
+        start: np.ndarray,
+        stop: np.ndarray,
+        event: np.ndarray,
+        weights: np.ndarray,
+        cause: str,
+        names: tuple[str, ...],
+    ) -> tuple[np.ndarray, np.ndarray]:
+        """β̂ and its covariance from lifelines' ``CoxTimeVaryingFitter`` (Efron ties).
+
+        The covariates are standardised before the fit (lifelines warns about columns of small
+        variance, such as monthly rates, whatever their information) and the estimates scaled
+        back: ``β = β_s / s``, ``V = V_s / (s sᵀ)``. lifelines' warnings (low variance among
+        the events of a rare cause, slow convergence) are logged with the cause named.
+        """
+        scale = x.std(axis=0)
+        frame = pd.DataFrame(
+            (x - x.mean(axis=0)) / scale, columns=[f"x{j}" for j in range(x.shape[1])]
+        )
+        frame[_START] = start
+        frame[_STOP] = stop
+        frame[_EVENT] = event.astype(np.int8)
+        frame[_WEIGHT] = weights
+        fitter = CoxTimeVaryingFitter(penalizer=float(self.penalizer))
+        try:
+            with warnings.catch_warnings(record=True) as caught:
+                warnings.simplefilter("always")
+                fitter.fit(
+                    frame, event_col=_EVENT, start_col=_START, stop_col=_STOP, weights_col=_WEIGHT
+                )
+        except (ConvergenceError, np.linalg.LinAlgError) as exc:
+            reason = " ".join(str(exc).split())
+            raise InputError(
+                table="panel",
+                column=cause,
+                problem=f"the Cox fit of this cause ({int(event.sum())} events) did not "
+                f"converge: {reason}",
+                fix=(
+                    "set a penalizer > 0 (e.g. 0.01), or leave out features that separate "
+                    "events from non-events"
+                ),
+            ) from exc
+        for warning in caught:
+            text = " ".join(str(warning.message).split())
+            text = re.sub(r"\bx(\d+)\b", lambda m: names[int(m.group(1))], text)
+            text = text.replace(_EVENT, cause)
+            log.warning("cox: %s: %s", cause, text)
+        beta = fitter.params_.to_numpy(dtype=np.float64) / scale
+        cov = fitter.variance_matrix_.to_numpy(dtype=np.float64) / np.outer(scale, scale)
+        return beta, cov
+
+    # -- prediction ---------------------------------------------------------------------------
+    def _hazard_array(self, future: pd.DataFrame, n: int, horizon: int) -> np.ndarray:
+        k = len(self.terminal_causes_)
+        cumulative = np.column_stack(
+            [self.cause_fits_[c].cumulative_hazards(future) for c in self.causes_]
+        )
+        hazards = -np.expm1(-cumulative)
+        terminal_total = hazards[:, :k].sum(axis=1)
+        over = terminal_total > 1.0
+        if over.any():
+            lam = cumulative[over, :k]
+            total = lam.sum(axis=1, keepdims=True)
+            hazards[over, :k] = lam / total * -np.expm1(-total)
+            terminal_total[over] = hazards[over, :k].sum(axis=1)
+            log.warning(
+                "cox: %d customer-months had terminal hazards summing past 1 (extreme "
+                "covariates); split by the continuous-time rule",
+                int(over.sum()),
+            )
+        if hazards.shape[1] > k:
+            room = np.maximum(1.0 - terminal_total, 0.0)[:, None]
+            hazards[:, k:] = np.minimum(hazards[:, k:], room)
+        return hazards.reshape(n, horizon, -1)
+
+
+_COEF_COLUMNS = ["cause", "feature", "coef", "se", "hazard_ratio", "lower_95", "upper_95"]
+_PH_COLUMNS = ["cause", "feature", "statistic", "p_value"]
+
+
+# -- the estimators behind the fit ---------------------------------------------------------------
+class RiskSets:
+    """Sums over the risk sets of given times, for start-stop rows.
+
+    Row i is at risk at time u when ``start_i < u ≤ stop_i``. With the times sorted
+    ``u_0 < u_1 < …``, row i is at risk exactly at the times ``u_g`` with ``c_i ≤ g < b_i``,
+    where ``c_i = #{g: u_g ≤ start_i}`` and ``b_i = #{g: u_g ≤ stop_i}``; a sum over each
+    risk set is then a cumulative sum of per-row contributions added at ``c_i`` and taken
+    off at ``b_i``: O(n) per column once the two positions are known.
+    """
+
+    def __init__(self, start: np.ndarray, stop: np.ndarray, times: np.ndarray) -> None:
+        self.times = np.asarray(times, dtype=np.float64)
+        self._enter = np.searchsorted(self.times, start, side="right")
+        self._leave = np.searchsorted(self.times, stop, side="right")
+
+    def sums(self, values: np.ndarray) -> np.ndarray:
+        """``Σ_{i at risk at u_g} values_i`` for each time: ``(G,)`` or ``(G, d)``."""
+        values = np.asarray(values, dtype=np.float64)
+        if values.ndim == 2:
+            return np.column_stack([self.sums(values[:, j]) for j in range(values.shape[1])])
+        size = self.times.size + 1
+        delta = np.bincount(self._enter, weights=values, minlength=size)
+        delta -= np.bincount(self._leave, weights=values, minlength=size)
+        return np.cumsum(delta)[:-1]
+
+    def sums_over_times_at_risk(self, per_time: np.ndarray) -> np.ndarray:
+        """``Σ_{g: row i at risk at u_g} per_time_g`` for each row i: ``(n,)``."""
+        suffix = np.concatenate([np.cumsum(per_time[::-1])[::-1], [0.0]])
+        return suffix[self._enter] - suffix[self._leave]
+
+
+def risk_set_sums(
+    start: np.ndarray, stop: np.ndarray, times: np.ndarray, values: np.ndarray
+) -> np.ndarray:
+    """``Σ_i values_i`` over the rows at risk at each of the sorted ``times``
+    (``start_i < u ≤ stop_i``); see `RiskSets`."""
+    return RiskSets(start, stop, times).sums(values)
+
+
+def identifiable_columns(
+    risk: RiskSets, x: np.ndarray, stop: np.ndarray, event: np.ndarray
+) -> np.ndarray:
+    """Mask of the columns of ``x`` whose coefficients the partial likelihood identifies.
+
+    The information at β = 0 is ``I = Σ_u d(u) · Cov_{R(u)}(x)``: the covariance of the
+    covariates within the risk set of each event time u, times the events at u. A direction v
+    with ``vᵀ I v = 0`` leaves the partial likelihood flat (``v·x`` is constant within every
+    risk set, e.g. an indicator of a customer's first month, which is a function of tenure
+    alone and so absorbed by the baseline). Columns are taken in order and one is kept when
+    its part not explained by the kept ones (the Schur complement ``I_jj − I_jK I_KK⁻¹ I_Kj``)
+    exceeds 10⁻⁹ of ``I_jj``, and ``I_jj`` itself is more than rounding.
+
+    With ``n(u)`` rows and means ``m(u)`` in the risk sets,
+    ``I = Σ_i ω_i x_i x_iᵀ − Σ_u d(u) m(u) m(u)ᵀ`` where ``ω_i = Σ_{u: i at risk} d(u)/n(u)``:
+    one weighted cross product instead of one risk-set sum per pair of columns.
+    """
+    p = x.shape[1]
+    keep = np.zeros(p, dtype=bool)
+    if p == 0:
+        return keep
+    deaths = np.bincount(
+        np.searchsorted(risk.times, stop[event]), minlength=risk.times.size
+    ).astype(np.float64)
+    n = risk.sums(np.ones(x.shape[0]))
+    xc = x - x.mean(axis=0)
+    mean = risk.sums(xc) / n[:, None]
+    omega = risk.sums_over_times_at_risk(deaths / n)
+    info = (xc * omega[:, None]).T @ xc - (mean * deaths[:, None]).T @ mean
+    rounding = 1e-10 * deaths.sum() * (xc**2).mean(axis=0)
+    for j in range(p):
+        if info[j, j] <= rounding[j]:
+            continue
+        kept = np.flatnonzero(keep)
+        residual = info[j, j]
+        if kept.size:
+            block = info[np.ix_(kept, kept)]
+            residual -= info[j, kept] @ np.linalg.solve(block, info[kept, j])
+        keep[j] = residual > 1e-9 * info[j, j]
+    return keep
+
+
+def breslow_increments(
+    risk: RiskSets, stop: np.ndarray, event: np.ndarray, weights: np.ndarray, phi: np.ndarray
+) -> np.ndarray:
+    """Breslow's baseline cumulative-hazard jumps at the event times ``risk.times``.
+
+    ``ΔĤ0(u) = Σ_{i: event at u} w_i / Σ_{j: start_j < u ≤ stop_j} φ_j``, with
+    ``φ_j = w_j · exp(β̂·(x_j − c))`` (so Ĥ0 is the baseline at covariates c).
+    """
+    events = np.flatnonzero(event)
+    group = np.searchsorted(risk.times, stop[events])
+    deaths = np.bincount(group, weights=weights[events], minlength=risk.times.size)
+    return deaths / risk.sums(phi)
+
+
+def efron_schoenfeld(
+    risk: RiskSets, x: np.ndarray, stop: np.ndarray, event: np.ndarray, phi: np.ndarray
+) -> tuple[np.ndarray, np.ndarray]:
+    """Schoenfeld residuals of the event rows under Efron's handling of ties.
+
+    For the m events tied at time u, with ``R = Σ_{at risk} φ``, ``R_x = Σ_{at risk} φ x`` and
+    ``T``, ``T_x`` the same sums over the tied events, the expected covariate is Efron's mean
+    ``x̄(u) = (1/m) Σ_{l=0}^{m−1} (R_x − (l/m) T_x) / (R − (l/m) T)`` and the residual of event
+    i at u is ``x_i − x̄(u)``.
+
+    Returns
+    -------
+    times, residuals
+        The event time of each event row (in row order) and its residual ``(D, p)``.
+    """
+    events = np.flatnonzero(event)
+    t_event = stop[events]
+    n_times, p = risk.times.size, x.shape[1]
+    group = np.searchsorted(risk.times, t_event)
+    counts = np.bincount(group, minlength=n_times)
+    at_risk = risk.sums(phi)
+    at_risk_x = risk.sums(phi[:, None] * x)
+    tie = np.bincount(group, weights=phi[events], minlength=n_times)
+    tie_x = np.column_stack(
+        [
+            np.bincount(group, weights=phi[events] * x[events, j], minlength=n_times)
+            for j in range(p)
+        ]
+    )
+    # one term per (time, l): l = 0..m−1 within each tied group
+    g = np.repeat(np.arange(n_times), counts)
+    first = np.concatenate([[0], np.cumsum(counts)[:-1]])
+    frac = (np.arange(g.size) - first[g]) / counts[g]
+    terms = (at_risk_x[g] - frac[:, None] * tie_x[g]) / (at_risk[g] - frac * tie[g])[:, None]
+    terms /= counts[g, None]
+    xbar = np.column_stack(
+        [np.bincount(g, weights=terms[:, j], minlength=n_times) for j in range(p)]
+    )
+    return t_event, x[events] - xbar[group]
+
+
+def ph_test(
+    risk: RiskSets,
+    x: np.ndarray,
+    stop: np.ndarray,
+    event: np.ndarray,
+    phi: np.ndarray,
+    cov: np.ndarray,
+    *,
+    time_transform: str = "rank",
+) -> tuple[np.ndarray, np.ndarray]:
+    """Grambsch–Therneau proportional-hazards test of each covariate (see `CauseSpecificCox`).
+
+    ``time_transform`` is ``"rank"`` (rank of the event time among the events, ties sharing
+    their mean rank) or ``"identity"`` (the time itself). Row weights enter through ``phi``
+    (``w · exp(β̂·x)``); the events are counted unweighted (a weighted-sample fit keeps its
+    event rows at weight 1). Returns the χ²(1) statistics and
+    their p-values, one per column of ``x``.
+    """
+    t_event, resid = efron_schoenfeld(risk, x, stop, event, phi)
+    n_events = t_event.size
+    scaled = n_events * resid @ cov
+    if time_transform == "rank":
+        g = stats.rankdata(t_event)
+    elif time_transform == "identity":
+        g = t_event.astype(np.float64)
+    else:
+        raise UsageError(
+            f"time_transform was {time_transform!r} but is expected to be 'rank' or 'identity'"
+        )
+    centred = g - g.mean()
+    spread = (centred**2).sum()
+    with np.errstate(divide="ignore", invalid="ignore"):
+        statistic = (centred @ scaled) ** 2 / (n_events * np.diag(cov) * spread)
+    statistic = np.where(np.isfinite(statistic), statistic, np.nan)
+    return statistic, stats.chi2.sf(statistic, 1)
+
+
+# -- helpers -------------------------------------------------------------------------------------
+def _tenure(panel: pd.DataFrame) -> tuple[np.ndarray, np.ndarray]:
+    start = panel["tenure_start"].to_numpy(dtype=np.float64, na_value=np.nan)
+    stop = panel["tenure_stop"].to_numpy(dtype=np.float64, na_value=np.nan)
+    bad = ~(stop > start) | np.isnan(start) | (start < 0)
+    if bad.any():
+        raise InputError(
+            table="panel",
+            column="tenure_stop",
+            problem="must be greater than tenure_start, both present and tenure_start >= 0",
+            count=int(bad.sum()),
+            examples=_ids(panel, bad),
+        )
+    return start, stop
+
+
+def _event_flags(panel: pd.DataFrame, cause: str) -> np.ndarray:
+    values = panel[cause].to_numpy(dtype=np.float64, na_value=np.nan)
+    bad = ~np.isin(values, (0.0, 1.0))
+    if bad.any():
+        raise InputError(
+            table="panel",
+            column=cause,
+            problem="a cause column must hold 0 or 1",
+            count=int(bad.sum()),
+            examples=_ids(panel, bad),
+        )
+    return values == 1.0
+
+
+def _at_risk(panel: pd.DataFrame, cause: str) -> np.ndarray:
+    holds = PanelLayout.at_risk_column(cause)
+    if holds is None or holds not in panel.columns:
+        return np.ones(len(panel), dtype=bool)
+    return panel[holds].to_numpy(dtype=np.float64, na_value=np.nan) == 0
+
+
+def _ids(panel: pd.DataFrame, mask: np.ndarray) -> list[object]:
+    if "customer_id" in panel.columns:
+        return panel["customer_id"].to_numpy()[mask][:5].tolist()
+    return np.flatnonzero(mask)[:5].tolist()
+
+
+def _monthly(times: np.ndarray, jumps: np.ndarray, months: int) -> np.ndarray:
+    """Jumps at event times summed into tenure months: month t collects ``(t − 1, t]``."""
+    month = np.clip(np.ceil(times).astype(np.int64) - 1, 0, None)
+    inside = month < months
+    return np.bincount(month[inside], weights=jumps[inside], minlength=months)[:months]
+
+
+def _coefficient_table(
+    cause: str, names: list[str], beta: np.ndarray, se: np.ndarray
+) -> pd.DataFrame:
+    """``coefficients_`` rows of one cause; a separated covariate may give an infinite bound."""
+    with np.errstate(over="ignore"):
+        return pd.DataFrame(
+            {
+                "cause": cause,
+                "feature": names,
+                "coef": beta,
+                "se": se,
+                "hazard_ratio": np.exp(beta),
+                "lower_95": np.exp(beta - _Z95 * se),
+                "upper_95": np.exp(beta + _Z95 * se),
+            },
+            columns=_COEF_COLUMNS,
+        )
+
+
+def _stack(frames: list[pd.DataFrame], columns: list[str]) -> pd.DataFrame:
+    """Row-bind the non-empty frames; an empty result still has typed columns."""
+    frames = [f for f in frames if len(f)]
+    if frames:
+        return pd.concat(frames, ignore_index=True)
+    return pd.DataFrame(
+        {c: pd.Series(dtype=object if c in ("cause", "feature") else np.float64) for c in columns}
+    )
+
+
+def _baseline_frame(fits: dict[str, _CauseFit]) -> pd.DataFrame:
+    months = max((f.increments.size for f in fits.values()), default=0)
+    data = {}
+    for cause, fit in fits.items():
+        column = np.full(months, np.nan)
+        column[: fit.increments.size] = fit.increments
+        data[cause] = column
+    return pd.DataFrame(data, index=pd.RangeIndex(months, name="tenure_start"))
