@@ -29,9 +29,16 @@ def _spatial_suite(customers: int | None, months: int) -> list[Measurement]:
     return run_spatial_bench(customers=customers or 1_000_000, months=months)
 
 
+def _decisions_suite(customers: int | None, months: int) -> list[Measurement]:
+    from ._decisions import run_decisions_bench
+
+    return run_decisions_bench(customers=customers or 1_000_000)
+
+
 SUITES: dict[str, Callable[[int | None, int], list[Measurement]]] = {
     "panel": _panel_suite,
     "spatial": _spatial_suite,
+    "decisions": _decisions_suite,
 }
 
 

@@ -1,0 +1,47 @@
+"""From expected values to decisions: offers, the contact plan, its weeks and its reasons.
+
+The offers and the plan's settings are read from ``lifecycle.toml`` (format in
+`lifecycle.decisions._offers`); `make_plan` chooses at most one offer per customer within the
+budget and capacities (exact MILP or greedy, with the optimality gap), schedules the contacts
+into weeks, most urgent first, and gives each row its top reasons in plain words.
+"""
+
+from ._offers import (
+    Eligibility,
+    Offer,
+    PlanSettings,
+    cooldown_ok,
+    eligible_mask,
+    excluded_mask,
+    last_contact_months,
+    offers_from_config,
+    plan_settings_from_config,
+)
+from ._plan import PLAN_COLUMNS, Plan, expected_value_matrix, make_plan
+from ._reasons import DEFAULT_PHRASES, Phrase, join_reasons, phrases_from_config, top_reasons
+from ._schedule import schedule_weeks
+from ._solve import Allocation, allocate
+
+__all__ = [
+    "DEFAULT_PHRASES",
+    "PLAN_COLUMNS",
+    "Allocation",
+    "Eligibility",
+    "Offer",
+    "Phrase",
+    "Plan",
+    "PlanSettings",
+    "allocate",
+    "cooldown_ok",
+    "eligible_mask",
+    "excluded_mask",
+    "expected_value_matrix",
+    "join_reasons",
+    "last_contact_months",
+    "make_plan",
+    "offers_from_config",
+    "phrases_from_config",
+    "plan_settings_from_config",
+    "schedule_weeks",
+    "top_reasons",
+]

@@ -1,0 +1,279 @@
+"""The contact plan: who gets which offer, in which week, and why.
+
+`make_plan` puts the steps together: the pairs allowed (eligibility, the exclusion flags, the
+contact cooldown), the choice of offers (`allocate`: exact MILP or greedy, with the
+optimality gap), the weeks (`schedule_weeks`, most urgent first) and the reasons
+(`top_reasons`). The caller writes the table, e.g. with ``lifecycle._files.write_csv_atomic``.
+"""
+
+from __future__ import annotations
+
+import logging
+from collections.abc import Sequence
+from dataclasses import dataclass
+from typing import Any
+
+import numpy as np
+import pandas as pd
+
+from .._months import categorical_to_index, format_month, parse_month
+from ..errors import InputError, UsageError
+from ._offers import Offer, PlanSettings, _numbers, cooldown_ok, eligible_mask, excluded_mask
+from ._reasons import DEFAULT_PHRASES, Phrase, join_reasons, top_reasons
+from ._schedule import schedule_weeks
+from ._solve import Allocation, allocate
+
+log = logging.getLogger(__name__)
+
+__all__ = ["Plan", "expected_value_matrix", "make_plan"]
+
+PLAN_COLUMNS = ["customer_id", "offer", "week", "expected_value", "cost", "reasons"]
+
+
+@dataclass(frozen=True)
+class Plan:
+    """A contact plan and the figures that describe it.
+
+    Attributes
+    ----------
+    table
+        ``customer_id``, ``offer``, ``week``, ``expected_value``, ``cost``, ``reasons``;
+        sorted by week, then urgency (highest first).
+    allocation
+        The solver's result (choice, objective, bound, gap, solver, counts).
+    offers
+        The offers, in the order of the allocation's columns.
+    budget
+        The budget the plan had.
+    excluded
+        Customers never considered because of an exclusion flag.
+    """
+
+    table: pd.DataFrame
+    allocation: Allocation
+    offers: tuple[Offer, ...]
+    budget: float
+    excluded: int
+
+    def summary(self) -> dict[str, Any]:
+        """The key figures as plain values (for the report's JSON)."""
+        a = self.allocation
+        return {
+            "objective": a.objective,
+            "bound": a.bound,
+            "gap": a.gap,
+            "relative_gap": a.relative_gap,
+            "solver": a.solver,
+            "status": a.status,
+            "budget": self.budget,
+            "budget_used": a.budget_used,
+            "contacts": int(sum(a.counts)),
+            "counts": {o.name: c for o, c in zip(self.offers, a.counts, strict=True)},
+            "candidate_pairs": a.candidates,
+            "excluded_customers": self.excluded,
+        }
+
+
+def expected_value_matrix(
+    values: pd.DataFrame, customer_ids: Sequence[Any], offers: Sequence[Offer]
+) -> np.ndarray:
+    """``(n, O)`` expected values from a long table ``customer_id``, ``offer``,
+    ``expected_value``, aligned to ``customer_ids`` and ``offers``; missing pairs are NaN (not
+    allowed)."""
+    missing = [c for c in ("customer_id", "offer", "expected_value") if c not in values]
+    if missing:
+        raise UsageError(f"the expected values lack the column(s) {missing}")
+    names = [o.name for o in offers]
+    unknown = sorted(set(values["offer"].astype(str)) - set(names))
+    if unknown:
+        raise UsageError(f"expected values name offers {unknown} that are not configured: {names}")
+    if values.duplicated(["customer_id", "offer"]).any():
+        dup = values[values.duplicated(["customer_id", "offer"], keep=False)]
+        raise InputError(
+            table="expected_values",
+            column="customer_id",
+            problem="a customer has two expected values for one offer",
+            count=len(dup),
+            examples=dup["customer_id"],
+        )
+    wide = values.pivot(index="customer_id", columns="offer", values="expected_value")
+    wide = wide.reindex(index=pd.Index(customer_ids), columns=names)
+    return wide.to_numpy(dtype=float)
+
+
+def make_plan(
+    frame: pd.DataFrame,
+    expected_values: np.ndarray | pd.DataFrame,
+    offers: Sequence[Offer],
+    settings: PlanSettings,
+    *,
+    last_contact: pd.Series | None = None,
+    plan_month: str | int | None = None,
+    model: Any = None,
+    snapshot: pd.DataFrame | None = None,
+    phrases: Sequence[Phrase] = DEFAULT_PHRASES,
+) -> Plan:
+    """The contact plan for one month.
+
+    Parameters
+    ----------
+    frame
+        One row per customer: ``customer_id`` (unique), the columns the offers' eligibility
+        rules name, each offer's urgency column (``settings.urgency``, e.g. ``cif_churn_3m``)
+        and the exclusion flags (``do_not_contact``, ``hardship``). Typically the snapshot
+        merged with its scores and the customers' flags.
+    expected_values
+        ``(n, O)`` array in the order of ``frame`` and ``offers`` (NaN: not allowed), or a
+        long table ``customer_id``, ``offer``, ``expected_value``. The expected value of an
+        offer is its value with the offer minus without it minus its cost.
+    offers, settings
+        From `offers_from_config` and `plan_settings_from_config`.
+    last_contact
+        Month index of each customer's last contact, indexed by ``customer_id`` (see
+        `last_contact_months`); customers within an offer's cooldown are not contacted.
+    plan_month
+        The month the contacts happen (index or ``YYYY-MM``); default the ``month`` column of
+        ``frame`` (a snapshot's first predicted month).
+    model, snapshot
+        A fitted model and the snapshot rows (default ``frame``) for the reasons; without a
+        model the ``reasons`` column is empty.
+    phrases
+        The phrase table for reasons (`phrases_from_config`).
+    """
+    offers = tuple(offers)
+    if not offers:
+        raise UsageError("no offers are configured; add [[offers]] tables to the config")
+    ids = frame["customer_id"] if "customer_id" in frame else None
+    if ids is None:
+        raise UsageError("the planning frame needs a customer_id column")
+    if ids.duplicated().any():
+        dup = ids[ids.duplicated(keep=False)]
+        raise InputError(
+            table="scores",
+            column="customer_id",
+            problem="customer_id is not unique",
+            count=len(dup),
+            examples=dup,
+        )
+    n = len(frame)
+    if isinstance(expected_values, pd.DataFrame):
+        ev = expected_value_matrix(expected_values, ids.to_numpy(), offers)
+    else:
+        ev = np.asarray(expected_values, dtype=float)
+        if ev.shape != (n, len(offers)):
+            raise UsageError(
+                f"expected values have shape {ev.shape} but the plan has {n} customers × "
+                f"{len(offers)} offers"
+            )
+    urgency_columns = [settings.urgency_column(o) for o in offers]
+    absent = sorted({c for c in urgency_columns if c not in frame})
+    if absent:
+        raise UsageError(
+            f"[plan] urgency names column(s) {absent}, which the planning frame lacks; "
+            "score with those horizons or change [plan] urgency"
+        )
+
+    allowed = np.column_stack([eligible_mask(frame, o) for o in offers])
+    for flag in settings.exclude:
+        if flag not in frame:
+            log.warning("plan: no %r column, so no customer is excluded by it", flag)
+    excluded = excluded_mask(frame, settings.exclude)
+    allowed &= ~excluded[:, None]
+    if last_contact is not None:
+        month = _plan_month(frame, plan_month)
+        last = pd.Series(last_contact).reindex(ids.to_numpy()).to_numpy(dtype=float)
+        for j, offer in enumerate(offers):
+            allowed[:, j] &= cooldown_ok(last, month, offer.cooldown_months)
+    log.info(
+        "plan: %d customers, %d excluded by flags, %d allowed pairs",
+        n,
+        int(excluded.sum()),
+        int(allowed.sum()),
+    )
+
+    allocation = allocate(
+        ev,
+        np.array([o.cost for o in offers]),
+        np.array([o.capacity(settings.weeks) for o in offers]),
+        settings.budget,
+        allowed=allowed,
+        solver=settings.solver,
+        max_exact_customers=settings.max_exact_customers,
+        time_limit_s=settings.time_limit_s,
+        mip_gap=settings.mip_gap,
+    )
+    rows = np.flatnonzero(allocation.choice >= 0)
+    chosen = allocation.choice[rows]
+    urgency_all = np.column_stack([_numbers(frame[c]) for c in urgency_columns])
+    urgency = urgency_all[rows, chosen]
+    value = ev[rows, chosen]
+    week = schedule_weeks(
+        chosen, urgency, [o.weekly_capacity for o in offers], settings.weeks, tiebreak=value
+    )
+    table = pd.DataFrame(
+        {
+            "customer_id": ids.to_numpy()[rows],
+            "offer": np.array([o.name for o in offers], dtype=object)[chosen],
+            "week": week,
+            "expected_value": value,
+            "cost": np.array([o.cost for o in offers])[chosen],
+            "reasons": "",
+        }
+    )
+    order = np.lexsort((-value, -np.nan_to_num(urgency, nan=-np.inf), week))
+    table = table.iloc[order].reset_index(drop=True)
+    if model is not None and settings.reasons > 0 and len(table):
+        rows_sorted = rows[order]
+        source = (frame if snapshot is None else snapshot).reset_index(drop=True)
+        if snapshot is not None:
+            position = pd.Index(source["customer_id"]).get_indexer(table["customer_id"])
+            if (position < 0).any():
+                raise UsageError("the snapshot lacks planned customers; pass the matching snapshot")
+        else:
+            position = rows_sorted
+        causes = [offers[o].target for o in allocation.choice[rows_sorted]]
+        reasons = top_reasons(
+            model, source.iloc[position], causes, settings.reasons, phrases=phrases
+        )
+        table["reasons"] = join_reasons(reasons, table["customer_id"].tolist())
+    log.info(
+        "plan: %d contacts, expected value %.2f (bound %.2f, gap %.3g%%), %s solver",
+        len(table),
+        allocation.objective,
+        allocation.bound,
+        100 * allocation.relative_gap,
+        allocation.solver,
+    )
+    return Plan(
+        table=table[PLAN_COLUMNS],
+        allocation=allocation,
+        offers=offers,
+        budget=float(settings.budget),
+        excluded=int(excluded.sum()),
+    )
+
+
+def _plan_month(frame: pd.DataFrame, plan_month: str | int | None) -> int:
+    if plan_month is not None:
+        return (
+            parse_month(plan_month, what="plan_month")
+            if isinstance(plan_month, str)
+            else int(plan_month)
+        )
+    if "month" not in frame:
+        raise UsageError(
+            "a cooldown needs the plan month: pass plan_month, or a frame with the snapshot's "
+            "month column"
+        )
+    month = frame["month"]
+    if isinstance(month.dtype, pd.CategoricalDtype):
+        distinct = pd.Series(month.cat.remove_unused_categories().cat.categories)
+    else:
+        distinct = pd.Series(pd.unique(month.to_numpy()))  # parse each distinct value once
+    months = np.unique(categorical_to_index(distinct))
+    if len(months) != 1:
+        raise UsageError(
+            f"the planning frame spans months {[format_month(m) for m in months[:5]]}; "
+            "pass plan_month"
+        )
+    return int(months[0])

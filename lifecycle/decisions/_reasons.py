@@ -1,0 +1,329 @@
+"""Reasons in plain words: the features that push a customer's hazard up most.
+
+For customer i, cause c and feature f with reference value r_f (the training median or mode
+the model stored at fit as ``feature_reference_``, else the snapshot's median or mode), the
+effect of f is
+
+    effect_if = h_c(x_i) − h_c(x_i with f set to r_f)
+
+where h_c is the model's 1-month hazard of c from its public `predict_hazard`. Only the model's
+output is used, so this works for every family. A positive effect means the customer's own
+value of f raises the hazard above what it would be at the reference; the top k positive
+effects are the customer's reasons.
+
+Each reason is put in words by the first phrase whose pattern matches the feature name in
+full (a Python regular expression; named groups become placeholders). The phrase used is
+``high`` when the value is above the reference and ``low`` when below; placeholders are
+``{value}``, ``{reference}``, ``{feature}``, ``{s}`` ("" when the value is 1, else "s") and
+the pattern's named groups (underscores shown as spaces). Phrases from ``[reason_phrases]``
+come before the built-in ones (`DEFAULT_PHRASES`)::
+
+    [reason_phrases]
+    "contract_ending" = "contract ends within 2 months"   # a text: the phrase when high
+    "discount_(?P<kind>.+)" = { high = "a large {kind} discount", low = "a small {kind} discount" }
+
+A feature without a phrase for its direction gets "<feature> is high (value)" or
+"<feature> is low (value)" ("<feature> is <value>" for a category).
+"""
+
+from __future__ import annotations
+
+import logging
+import re
+import string
+from collections.abc import Mapping, Sequence
+from dataclasses import dataclass
+from typing import Any
+
+import numpy as np
+import pandas as pd
+
+from ..config import Config
+from ..errors import UsageError
+
+log = logging.getLogger(__name__)
+
+__all__ = ["DEFAULT_PHRASES", "Phrase", "join_reasons", "phrases_from_config", "top_reasons"]
+
+# features a snapshot cannot move: future months recompute them from the calendar
+_NOT_REASONS = re.compile(r"season_(sin|cos)")
+
+
+@dataclass(frozen=True)
+class Phrase:
+    """Words for a feature: ``pattern`` (full match on the name), ``high`` and ``low``
+    templates (``None``: use the generic words)."""
+
+    pattern: str
+    high: str | None = None
+    low: str | None = None
+
+    def __post_init__(self) -> None:
+        try:
+            compiled = re.compile(self.pattern)
+        except re.error as exc:
+            raise UsageError(
+                f"[reason_phrases] pattern {self.pattern!r} is not a regular expression: {exc}"
+            ) from None
+        allowed = {"value", "reference", "feature", "s", *compiled.groupindex}
+        for template in (self.high, self.low):
+            if template is None:
+                continue
+            try:
+                fields = {f for _, f, _, _ in string.Formatter().parse(template) if f is not None}
+            except ValueError as exc:
+                raise UsageError(
+                    f"[reason_phrases] {self.pattern!r}: template {template!r} is malformed: {exc}"
+                ) from None
+            unknown = sorted(fields - allowed)
+            if unknown:
+                raise UsageError(
+                    f"[reason_phrases] {self.pattern!r}: template {template!r} uses {unknown}; "
+                    f"the placeholders allowed are {sorted(allowed)}"
+                )
+
+    def words(self, feature: str, value: Any, reference: Any, high: bool) -> str | None:
+        """The phrase for ``feature`` at ``value``, or ``None`` when this phrase has no words
+        for the direction or does not match."""
+        match = re.fullmatch(self.pattern, feature)
+        template = self.high if high else self.low
+        if match is None or template is None:
+            return None
+        groups = {k: v.replace("_", " ") for k, v in match.groupdict().items() if v is not None}
+        plural = "" if _is_one(value) else "s"
+        try:
+            return template.format(
+                value=value, reference=reference, feature=feature, s=plural, **groups
+            )
+        except (ValueError, TypeError, KeyError, IndexError):
+            return None
+
+
+DEFAULT_PHRASES: tuple[Phrase, ...] = (
+    Phrase("contract_ending", "contract ends within 2 months", "contract not ending soon"),
+    Phrase(
+        "contract_months_left",
+        "{value:.0f} month{s} left on the contract",
+        "only {value:.0f} month{s} left on the contract",
+    ),
+    Phrase("complaints_3m", "{value:.0f} complaint{s} in the last quarter"),
+    Phrase("complaints_(?P<k>\\d+)m", "{value:.0f} complaint{s} in the last {k} months"),
+    Phrase("complaints", "{value:.0f} complaint{s} last month"),
+    Phrase("bill_shock", "a bill shock last month"),
+    Phrase("bill_shock_(?P<k>\\d+)m", "{value:.0f} bill shock{s} in the last {k} months"),
+    Phrase("late_payment", "a late payment last month"),
+    Phrase("late_payment_(?P<k>\\d+)m", "{value:.0f} late payment{s} in the last {k} months"),
+    Phrase("local_move_rate", "many move-outs nearby", "few move-outs nearby"),
+    Phrase("rental_share", "an area with many renters", "an area with few renters"),
+    Phrase(
+        "nearby_adoption_(?P<product>.+)_(?P<radius>\\d+)m",
+        "many neighbours within {radius} m have {product} ({value:.0%})",
+        "few neighbours within {radius} m have {product} ({value:.0%})",
+    ),
+    Phrase(
+        "nearby_adopters_(?P<product>.+)_(?P<radius>\\d+)m",
+        "{value:.0f} neighbour{s} within {radius} m have {product}",
+        "only {value:.0f} neighbour{s} within {radius} m have {product}",
+    ),
+    Phrase("holds_(?P<product>.+)", "already has {product}", "does not have {product}"),
+    Phrase(
+        "tenure|tenure_start",
+        "{value:.0f} month{s} as a customer",
+        "only {value:.0f} month{s} as a customer",
+    ),
+    Phrase(
+        "monthly_margin",
+        "a high monthly margin ({value:.2f})",
+        "a low monthly margin ({value:.2f})",
+    ),
+)
+
+
+def phrases_from_config(config: Config) -> tuple[Phrase, ...]:
+    """The ``[reason_phrases]`` of a config followed by `DEFAULT_PHRASES`."""
+    raw = config.raw.get("reason_phrases", {})
+    src = str(config.source) if config.source is not None else "config"
+    if not isinstance(raw, dict):
+        raise UsageError(f"{src}: [reason_phrases] must be a table: pattern = phrase")
+    own = []
+    for pattern, entry in raw.items():
+        if isinstance(entry, str):
+            high, low = entry, None
+        elif isinstance(entry, dict) and set(entry) <= {"high", "low"} and entry:
+            high, low = entry.get("high"), entry.get("low")
+            if not all(t is None or isinstance(t, str) for t in (high, low)):
+                raise UsageError(f"{src}: [reason_phrases] {pattern!r}: high and low must be texts")
+        else:
+            raise UsageError(
+                f"{src}: [reason_phrases] {pattern!r} was {entry!r} but must be a text or a "
+                'table { high = "...", low = "..." }'
+            )
+        try:
+            own.append(Phrase(pattern, high, low))
+        except UsageError as exc:
+            raise UsageError(f"{src}: {exc}") from None
+    return (*own, *DEFAULT_PHRASES)
+
+
+def top_reasons(
+    model: Any,
+    snapshot: pd.DataFrame,
+    cause: str | Sequence[str],
+    k: int = 3,
+    *,
+    reference: Mapping[str, Any] | None = None,
+    phrases: Sequence[Phrase] = DEFAULT_PHRASES,
+) -> pd.DataFrame:
+    """Each customer's top ``k`` reasons: the features that raise its 1-month hazard most.
+
+    Parameters
+    ----------
+    model
+        A fitted model with ``features_``, ``causes_`` and ``predict_hazard`` (any family).
+    snapshot
+        One row per customer, as `lifecycle.panel.build_snapshot` gives it.
+    cause
+        The cause whose hazard is explained: one for every row, or one per row.
+    k
+        Reasons per customer (fewer when fewer features raise the hazard).
+    reference
+        Feature → reference value; default the model's ``feature_reference_`` (if it stored
+        one at fit), else the snapshot's median (numbers) or most common value (categories).
+    phrases
+        Phrase table, first match wins (see the module docstring).
+
+    Returns
+    -------
+    pandas.DataFrame
+        One row per reason: ``customer_id``, ``rank`` (1 = strongest), ``feature``, ``value``,
+        ``reference``, ``effect`` (the 1-month hazard it adds, ``effect_if`` above), ``phrase``.
+        Sorted by customer (snapshot order) then rank.
+    """
+    n = len(snapshot)
+    causes = [cause] * n if isinstance(cause, str) else list(cause)
+    if len(causes) != n:
+        raise UsageError(f"cause gives {len(causes)} causes for {n} customers")
+    known = list(getattr(model, "causes_", ()))
+    unknown = sorted(set(causes) - set(known))
+    if unknown:
+        raise UsageError(f"cause(s) {unknown} are not modelled; the model's causes are {known}")
+    if n == 0 or k < 1:
+        return _empty()
+    at = np.array([known.index(c) for c in causes])
+    rows = np.arange(n)
+    snapshot = snapshot.reset_index(drop=True)
+    base = _one_month(model, snapshot)[rows, at]
+    stored = reference if reference is not None else getattr(model, "feature_reference_", None)
+    features = [f for f in model.features_ if not _NOT_REASONS.fullmatch(f)]
+    effects = np.zeros((n, len(features)))
+    refs = []
+    for j, feature in enumerate(features):
+        ref = (
+            stored[feature]
+            if stored is not None and feature in stored
+            else _typical(snapshot[feature])
+        )
+        refs.append(ref)
+        moved = snapshot.assign(**{feature: _filled(snapshot[feature], ref)})
+        effects[:, j] = base - _one_month(model, moved)[rows, at]
+        if feature.startswith("holds_"):
+            # holding a product makes its own uptake hazard 0 by construction: not a reason
+            effects[np.array(causes) == "uptake_" + feature.removeprefix("holds_"), j] = 0.0
+    order = np.argsort(-effects, axis=1, kind="stable")[:, :k]
+    top = np.take_along_axis(effects, order, axis=1)
+    keep = top > 1e-12  # sorted, so the kept reasons of a row come first
+    i, r = np.nonzero(keep)
+    if len(i) == 0:
+        return _empty()
+    j = order[i, r]
+    values = np.empty(len(i), dtype=object)
+    for f in np.unique(j):
+        at = j == f
+        values[at] = snapshot[features[f]].to_numpy(dtype=object)[i[at]]
+    ref_of = np.empty(len(refs), dtype=object)
+    ref_of[:] = refs
+    out = pd.DataFrame(
+        {
+            "customer_id": snapshot["customer_id"].to_numpy()[i],
+            "rank": r + 1,
+            "feature": np.array(features, dtype=object)[j],
+            "value": values,
+            "reference": ref_of[j],
+            "effect": top[i, r],
+        }
+    )
+    out["phrase"] = [
+        _phrase(f, v, ref, phrases)
+        for f, v, ref in zip(out["feature"], values, out["reference"], strict=True)
+    ]
+    return out
+
+
+def join_reasons(reasons: pd.DataFrame, customer_ids: Sequence[Any], sep: str = "; ") -> list[str]:
+    """The phrases of each customer in ``customer_ids``, in rank order, joined by ``sep``
+    ("" for a customer without reasons)."""
+    joined = (
+        reasons.sort_values(["customer_id", "rank"], kind="stable")
+        .groupby("customer_id", sort=False)["phrase"]
+        .agg(sep.join)
+    )
+    return [joined.get(c, "") for c in customer_ids]
+
+
+_COLUMNS = ["customer_id", "rank", "feature", "value", "reference", "effect", "phrase"]
+
+
+def _empty() -> pd.DataFrame:
+    return pd.DataFrame({c: pd.Series(dtype=object) for c in _COLUMNS})
+
+
+def _one_month(model: Any, snapshot: pd.DataFrame) -> np.ndarray:
+    """``(n, K)`` hazards of month 1 through the model's public `predict_hazard`."""
+    return model.predict_hazard(snapshot, 1).to_numpy(dtype=float)
+
+
+def _typical(values: pd.Series) -> Any:
+    """The median of numbers (NaN skipped), else the most common value."""
+    if pd.api.types.is_numeric_dtype(values) and not pd.api.types.is_bool_dtype(values):
+        return float(np.nanmedian(values.to_numpy(dtype=float))) if values.notna().any() else np.nan
+    mode = values.mode(dropna=True)
+    return mode.iloc[0] if len(mode) else values.iloc[0]
+
+
+def _filled(values: pd.Series, ref: Any) -> pd.Series:
+    """A column like ``values`` (same dtype, categories kept) holding ``ref`` in every row."""
+    if isinstance(values.dtype, pd.CategoricalDtype):
+        return pd.Series(
+            pd.Categorical([ref] * len(values), dtype=values.dtype), index=values.index
+        )
+    filled = pd.Series(np.full(len(values), ref, dtype=object), index=values.index)
+    try:
+        return filled.astype(values.dtype)
+    except (TypeError, ValueError):
+        return filled
+
+
+def _phrase(feature: str, value: Any, ref: Any, phrases: Sequence[Phrase]) -> str:
+    try:
+        high = bool(float(value) > float(ref))
+        numeric = True
+    except (TypeError, ValueError):
+        high, numeric = True, False
+    if numeric:
+        value = float(value)
+    for phrase in phrases:
+        words = phrase.words(feature, value, ref, high)
+        if words is not None:
+            return words
+        if re.fullmatch(phrase.pattern, feature):
+            break  # the first matching pattern decides; no words for this direction
+    if not numeric:
+        return f"{feature} is {value}"
+    return f"{feature} is {'high' if high else 'low'} ({value:.3g})"
+
+
+def _is_one(value: Any) -> bool:
+    try:
+        return float(value) == 1.0
+    except (TypeError, ValueError):
+        return False
