@@ -86,7 +86,7 @@ class HazardModel(BaseEstimator):
         columns ``1..horizon``.
         """
         array = self._hazards(snapshot, horizon)
-        survival, _ = survival_and_incidence(array[..., : len(self.terminal_causes_)])
+        survival = survival_from_hazards(array, len(self.terminal_causes_))
         return pd.DataFrame(
             survival,
             index=pd.Index(snapshot["customer_id"].to_numpy(), name="customer_id"),
@@ -105,19 +105,16 @@ class HazardModel(BaseEstimator):
         leaving. Index (``customer_id``, ``month_ahead``), one column per cause.
         """
         array = self._hazards(snapshot, horizon)
-        k = len(self.terminal_causes_)
-        _, terminal = survival_and_incidence(array[..., :k])
-        parts = [terminal]
-        for j in range(k, array.shape[-1]):
-            stacked = np.concatenate([array[..., j : j + 1], array[..., :k]], axis=-1)
-            _, incidence = survival_and_incidence(stacked)
-            parts.append(incidence[..., :1])
-        out = np.concatenate(parts, axis=-1)
+        out = incidence_from_hazards(array, len(self.terminal_causes_))
         index = pd.MultiIndex.from_product(
             [snapshot["customer_id"].to_numpy(), np.arange(1, horizon + 1)],
             names=["customer_id", "month_ahead"],
         )
         return pd.DataFrame(out.reshape(-1, out.shape[-1]), index=index, columns=self.causes_)
+
+    def hazard_array(self, snapshot: pd.DataFrame, horizon: int = 12) -> np.ndarray:
+        """`predict_hazard` as an array ``(n, horizon, K)`` in `causes_` order (no index)."""
+        return self._hazards(snapshot, horizon)
 
     def _hazards(self, snapshot: pd.DataFrame, horizon: int) -> np.ndarray:
         if not hasattr(self, "features_"):
@@ -137,6 +134,32 @@ class HazardModel(BaseEstimator):
                 # a customer who holds the product already cannot take it up again
                 array[snapshot[holds].to_numpy() == 1, :, j] = 0.0
         return array
+
+
+def survival_from_hazards(hazards: np.ndarray, n_terminal: int) -> np.ndarray:
+    """Survival ``(n, T)`` from hazards ``(n, T, K)`` whose first ``n_terminal`` causes are
+    the terminal ones (`survival_and_incidence` over those)."""
+    survival, _ = survival_and_incidence(hazards[..., :n_terminal])
+    return survival
+
+
+def incidence_from_hazards(hazards: np.ndarray, n_terminal: int) -> np.ndarray:
+    """Cumulative incidence ``(n, T, K)`` of every cause from hazards ``(n, T, K)``.
+
+    Terminal causes compete with each other; each uptake cause (after the terminal ones)
+    competes with all terminal causes (see `HazardModel.predict_cumulative_incidence`).
+    """
+    k = n_terminal
+    _, terminal = survival_and_incidence(hazards[..., :k])
+    parts = [terminal]
+    exits = hazards[..., :k].sum(axis=-1, keepdims=True)
+    for j in range(k, hazards.shape[-1]):
+        # within a month, uptake and exits share one probability: cap uptake at what is left
+        uptake = np.minimum(hazards[..., j : j + 1], np.clip(1.0 - exits, 0.0, 1.0))
+        stacked = np.concatenate([uptake, hazards[..., :k]], axis=-1)
+        _, incidence = survival_and_incidence(stacked)
+        parts.append(incidence[..., :1])
+    return np.concatenate(parts, axis=-1)
 
 
 def future_rows(snapshot: pd.DataFrame, horizon: int) -> pd.DataFrame:

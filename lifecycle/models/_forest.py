@@ -1,0 +1,366 @@
+"""Random survival forests on landmark snapshots, one per cause."""
+
+from __future__ import annotations
+
+import logging
+
+import numpy as np
+import pandas as pd
+from sksurv.ensemble import RandomSurvivalForest
+from sksurv.metrics import concordance_index_censored
+from sksurv.util import Surv
+
+from ..errors import InputError, UsageError
+from ._base import HazardModel
+from ._landmarks import TIME, UPTAKE_TIME_PREFIX, landmark_snapshots
+
+log = logging.getLogger(__name__)
+
+_MAX_CATEGORIES = 30
+_MIN_HELD_OUT_EVENTS = 5
+
+
+class SurvivalForest(HazardModel):
+    """Cause-specific random survival forests fitted on landmark snapshots.
+
+    The panel is cut into landmark snapshots (`landmark_snapshots`): at every
+    ``landmark_every``-th month (the latest ``max_landmarks`` of them) the customers active
+    then, with their covariates then (tenure at the landmark ``tenure_start``, season and every
+    feature), followed for up to ``horizon`` months. One forest is grown per terminal cause on
+    all landmark rows (the other causes censor), and one per product on the rows not holding it
+    (an exit censors). Each forest's cumulative hazard ``Λ_k(t)`` at whole months gives
+    the monthly hazards: with ``ΔΛ_k(t) = Λ_k(t) − Λ_k(t − 1)``,
+
+        h_uptake(t) = 1 − exp(−ΔΛ_uptake(t))
+        h_k(t)      = (1 − exp(−Σ_j ΔΛ_j(t))) · ΔΛ_k(t) / Σ_j ΔΛ_j(t)     (terminal causes)
+
+    the terminal form being ``1 − exp(−ΔΛ_k(t))`` to first order, but never summing above 1
+    where risk sets are small (the hazard within a month is taken as constant). Survival and
+    incidence follow through the shared `survival_and_incidence`. Predictions use the snapshot
+    row alone: the forest's time axis carries tenure and season forward.
+
+    Sampling, to keep time and memory sane on a monthly grid: landmarks are every
+    ``landmark_every``-th month only, and each forest is grown on at most ``max_rows`` rows:
+    when a forest has more candidate rows, all its event rows are kept (or, when events alone
+    exceed half of ``max_rows``, a random half-``max_rows`` of them) and the non-event rows are
+    drawn at random without replacement to fill ``max_rows``; each sampled row carries the weight
+    (candidates / drawn) of its stratum (Horvitz–Thompson), so that the weighted Nelson–Aalen
+    estimates in the leaves estimate the full data's: the sample changes their precision, not
+    their target. Randomness is seeded by ``random_state``.
+
+    Covariates: the forest needs numbers without gaps, so numeric features are imputed with the
+    training median and get a 0/1 missing indicator when they had gaps in training; categorical
+    (and text) features are one-hot coded over their 30 most frequent training levels (other
+    levels code as all zeros). Both are learned at ``fit``.
+
+    ``low_memory`` mode of scikit-survival is not used: it keeps only a risk score, while the
+    hazards need each leaf's cumulative hazard. The forest stays small because its leaves hold
+    the cumulative hazard only at the ``horizon`` whole months (and ``min_samples_leaf``,
+    ``max_depth`` bound the leaves). No training rows are kept.
+
+    Parameters
+    ----------
+    horizon
+        Months of follow-up after each landmark; predictions reach at most this far.
+    landmark_every, max_landmarks
+        Landmark spacing in months and the largest number of landmarks (the latest are kept).
+    max_rows
+        Largest number of landmark rows one forest is grown on (see sampling above).
+    n_estimators, max_depth, min_samples_leaf, max_features, max_samples, n_jobs
+        Passed to `sksurv.ensemble.RandomSurvivalForest` (``min_samples_split`` is
+        ``2 · min_samples_leaf``).
+    importance_rows
+        Landmark rows held out (whole customers, drawn at random, at most a quarter of the
+        customers) to measure permutation importances; 0 skips them.
+    importance_repeats
+        Permutations per feature.
+    random_state
+        Seed of landmark sampling, hold-out and forests.
+
+    Attributes
+    ----------
+    forests_ : dict
+        Cause → fitted `RandomSurvivalForest` (``None`` for a cause without events: hazard 0).
+    encoder_ : _Encoder
+        The learned imputation and one-hot coding.
+    inputs_ : tuple of str
+        ``tenure_start`` and the features, as given to the encoder.
+    feature_importances_ : pandas.DataFrame
+        ``cause``, ``feature``, ``importance``, ``importance_sd``: the drop in Harrell's
+        concordance (`sksurv.metrics.concordance_index_censored`, risk score = the forest's
+        summed cumulative hazard) on the held-out landmark rows when the feature's values are
+        permuted among them, mean and standard deviation over ``importance_repeats``.
+    n_rows_ : dict
+        Cause → rows the forest was grown on.
+    """
+
+    def __init__(
+        self,
+        *,
+        horizon: int = 24,
+        landmark_every: int = 3,
+        max_landmarks: int = 12,
+        max_rows: int = 20_000,
+        n_estimators: int = 100,
+        max_depth: int | None = 10,
+        min_samples_leaf: int = 100,
+        max_features: str | int | float | None = "sqrt",
+        max_samples: int | float | None = None,
+        n_jobs: int | None = None,
+        importance_rows: int = 2_000,
+        importance_repeats: int = 3,
+        random_state: int | None = 0,
+    ) -> None:
+        self.horizon = horizon
+        self.landmark_every = landmark_every
+        self.max_landmarks = max_landmarks
+        self.max_rows = max_rows
+        self.n_estimators = n_estimators
+        self.max_depth = max_depth
+        self.min_samples_leaf = min_samples_leaf
+        self.max_features = max_features
+        self.max_samples = max_samples
+        self.n_jobs = n_jobs
+        self.importance_rows = importance_rows
+        self.importance_repeats = importance_repeats
+        self.random_state = random_state
+
+    # -- fitting --------------------------------------------------------------------------------
+    def _fit(self, panel: pd.DataFrame) -> None:
+        if not isinstance(self.max_rows, int | np.integer) or self.max_rows < 10:
+            raise UsageError(f"max_rows was {self.max_rows!r} but must be a whole number >= 10")
+        landmarks = landmark_snapshots(
+            panel,
+            horizon=self.horizon,
+            every=self.landmark_every,
+            max_landmarks=self.max_landmarks,
+        )
+        if landmarks.empty:
+            raise InputError(
+                table="panel",
+                column="month",
+                problem="no customer is active in any landmark month",
+                fix="pass a panel with rows, or lower landmark_every",
+            )
+        rng = np.random.default_rng(self.random_state)
+        self.inputs_ = ("tenure_start", *self.features_)
+        held_out = self._hold_out(landmarks, rng)
+        train = landmarks.loc[~held_out]
+        self.encoder_ = _Encoder.learn(train, self.inputs_)
+        self.forests_, self.n_rows_ = {}, {}
+        for cause in self.causes_:
+            rows, time, event = _outcome(train, cause)
+            self.forests_[cause], self.n_rows_[cause] = self._grow(
+                train.loc[rows], time, event, cause, rng
+            )
+        self.feature_importances_ = self._importances(landmarks.loc[held_out], rng)
+
+    def _hold_out(self, landmarks: pd.DataFrame, rng: np.random.Generator) -> np.ndarray:
+        """Mask of the landmark rows of customers held out for the importances."""
+        held = np.zeros(len(landmarks), dtype=bool)
+        if self.importance_rows <= 0:
+            return held
+        codes, uniques = pd.factorize(landmarks["customer_id"])
+        per_customer = np.bincount(codes, minlength=len(uniques))
+        order = rng.permutation(len(uniques))
+        enough = np.searchsorted(np.cumsum(per_customer[order]), self.importance_rows) + 1
+        chosen = order[: min(enough, len(uniques) // 4)]
+        return np.isin(codes, chosen)
+
+    def _grow(
+        self,
+        rows: pd.DataFrame,
+        time: np.ndarray,
+        event: np.ndarray,
+        cause: str,
+        rng: np.random.Generator,
+    ) -> tuple[RandomSurvivalForest | None, int]:
+        if not event.any() or len(rows) < 2:
+            log.warning("%s: no events in the landmark rows; its hazard is taken as 0", cause)
+            return None, 0
+        pick, weight = _sample(event, self.max_rows, rng)
+        forest = RandomSurvivalForest(
+            n_estimators=self.n_estimators,
+            max_depth=self.max_depth,
+            min_samples_leaf=self.min_samples_leaf,
+            min_samples_split=2 * self.min_samples_leaf,
+            max_features=self.max_features,
+            max_samples=self.max_samples,
+            n_jobs=self.n_jobs,
+            random_state=int(rng.integers(2**31 - 1)),
+        )
+        x = self.encoder_.transform(rows.iloc[pick])
+        forest.fit(x, Surv.from_arrays(event[pick], time[pick]), sample_weight=weight)
+        # scikit-survival keeps the training weights for out-of-bag scoring only
+        forest._sample_weight = None
+        log.info(
+            "%s: forest of %d trees on %d landmark rows (%d events)",
+            cause,
+            self.n_estimators,
+            pick.size,
+            int(event[pick].sum()),
+        )
+        return forest, int(pick.size)
+
+    def _importances(self, held: pd.DataFrame, rng: np.random.Generator) -> pd.DataFrame:
+        records = []
+        for cause in self.causes_:
+            forest = self.forests_[cause]
+            rows, time, event = _outcome(held, cause)
+            if forest is None or event.sum() < _MIN_HELD_OUT_EVENTS:
+                continue
+            sample = held.loc[rows].reset_index(drop=True)
+            observed = event.astype(bool)
+            base = _concordance(forest, self.encoder_.transform(sample), observed, time)
+            for feature in self.inputs_:
+                drops = []
+                for _ in range(self.importance_repeats):
+                    shuffled = sample.copy()
+                    shuffled[feature] = sample[feature].to_numpy()[rng.permutation(len(sample))]
+                    x = self.encoder_.transform(shuffled)
+                    drops.append(base - _concordance(forest, x, observed, time))
+                records.append((cause, feature, float(np.mean(drops)), float(np.std(drops))))
+        frame = pd.DataFrame(records, columns=["cause", "feature", "importance", "importance_sd"])
+        return frame.sort_values(
+            ["cause", "importance"],
+            ascending=[True, False],
+            key=lambda s: s.map(self.causes_.index) if s.name == "cause" else s,
+        ).reset_index(drop=True)
+
+    # -- predicting -----------------------------------------------------------------------------
+    def _hazard_array(self, future: pd.DataFrame, n: int, horizon: int) -> np.ndarray:
+        if horizon > self.horizon:
+            raise UsageError(
+                f"horizon was {horizon} but this forest was fitted with horizon={self.horizon}; "
+                f"ask for at most {self.horizon} months or refit with a longer horizon"
+            )
+        snapshot = future.iloc[::horizon]
+        x = self.encoder_.transform(snapshot)
+        increments = np.zeros((n, horizon, len(self.causes_)))
+        grid = np.arange(horizon + 1)
+        for j, cause in enumerate(self.causes_):
+            forest = self.forests_[cause]
+            if forest is None:
+                continue
+            chf = forest.predict_cumulative_hazard_function(x, return_array=True)
+            at = np.searchsorted(forest.unique_times_, grid, side="right") - 1
+            curve = np.where(at >= 0, chf[:, np.maximum(at, 0)], 0.0)
+            increments[:, :, j] = np.maximum(np.diff(curve, axis=1), 0.0)
+        k = len(self.terminal_causes_)
+        hazards = 1.0 - np.exp(-increments)
+        total = increments[..., :k].sum(axis=-1, keepdims=True)
+        share = np.divide(
+            increments[..., :k], total, out=np.zeros_like(increments[..., :k]), where=total > 0
+        )
+        hazards[..., :k] = (1.0 - np.exp(-total)) * share
+        return hazards
+
+
+def _outcome(landmarks: pd.DataFrame, cause: str) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Rows at risk of ``cause`` at the landmark, their follow-up time and event flag."""
+    if cause.startswith("uptake_"):
+        time = landmarks[UPTAKE_TIME_PREFIX + cause].to_numpy()
+        rows = time > 0
+    else:
+        time = landmarks[TIME].to_numpy()
+        rows = np.ones(len(landmarks), dtype=bool)
+    event = landmarks[cause].to_numpy()[rows] == 1
+    return rows, time[rows].astype(np.float64), event
+
+
+def _sample(event: np.ndarray, max_rows: int, rng: np.random.Generator):
+    """Row positions and weights: all events if they fit in half, the rest filled by non-events.
+
+    Each stratum (events, non-events) is drawn without replacement; a drawn row's weight is
+    the stratum's size over the number drawn from it.
+    """
+    n = event.size
+    if n <= max_rows:
+        return np.arange(n), np.ones(n)
+    events, others = np.flatnonzero(event), np.flatnonzero(~event)
+    keep_events = min(events.size, max_rows // 2)
+    keep_others = min(others.size, max_rows - keep_events)
+    picks, weights = [], []
+    for stratum, keep in ((events, keep_events), (others, keep_others)):
+        if keep == 0:
+            continue
+        drawn = np.sort(rng.choice(stratum, size=keep, replace=False))
+        picks.append(drawn)
+        weights.append(np.full(keep, stratum.size / keep))
+    pick, weight = np.concatenate(picks), np.concatenate(weights)
+    order = np.argsort(pick)
+    return pick[order], weight[order]
+
+
+def _concordance(forest, x: np.ndarray, event: np.ndarray, time: np.ndarray) -> float:
+    return float(concordance_index_censored(event, time, forest.predict(x))[0])
+
+
+class _Encoder:
+    """Median imputation with missing indicators, and one-hot coding, learned from a frame.
+
+    Numeric column c becomes ``c`` (NaN → the training median ``med_c``) and, when c had gaps
+    in training, ``c__missing`` (1 where NaN). A categorical or text column becomes one 0/1
+    column per learned level.
+    """
+
+    def __init__(self, columns: list[tuple[str, str, object]]) -> None:
+        # (name, kind, state): kind "numeric" with (median, indicator) or "categorical" with levels
+        self.columns = columns
+
+    @classmethod
+    def learn(cls, frame: pd.DataFrame, names: tuple[str, ...]) -> _Encoder:
+        columns: list[tuple[str, str, object]] = []
+        for name in names:
+            values = frame[name]
+            if _is_numeric(values):
+                numbers = values.to_numpy(dtype=np.float64, na_value=np.nan)
+                if np.isinf(numbers).any():
+                    raise InputError(
+                        table="panel",
+                        column=name,
+                        problem="the feature has infinite values",
+                        count=int(np.isinf(numbers).sum()),
+                        examples=frame["customer_id"].to_numpy()[np.isinf(numbers)],
+                        fix="replace them with finite values or blanks",
+                    )
+                gaps = np.isnan(numbers)
+                median = float(np.median(numbers[~gaps])) if (~gaps).any() else 0.0
+                columns.append((name, "numeric", (median, bool(gaps.any()))))
+            else:
+                counts = values.astype("object").value_counts(dropna=True)
+                columns.append((name, "categorical", list(counts.index[:_MAX_CATEGORIES])))
+        return cls(columns)
+
+    @property
+    def names(self) -> list[str]:
+        out = []
+        for name, kind, state in self.columns:
+            if kind == "numeric":
+                out.append(name)
+                if state[1]:
+                    out.append(f"{name}__missing")
+            else:
+                out.extend(f"{name}={level}" for level in state)
+        return out
+
+    def transform(self, frame: pd.DataFrame) -> np.ndarray:
+        parts = []
+        for name, kind, state in self.columns:
+            values = frame[name]
+            if kind == "numeric":
+                numbers = values.to_numpy(dtype=np.float64, na_value=np.nan)
+                gaps = np.isnan(numbers)
+                parts.append(np.where(gaps, state[0], numbers))
+                if state[1]:
+                    parts.append(gaps.astype(np.float64))
+            else:
+                objects = values.astype("object").to_numpy()
+                parts.extend((objects == level).astype(np.float64) for level in state)
+        return np.column_stack(parts).astype(np.float32) if parts else np.empty((len(frame), 0))
+
+
+def _is_numeric(values: pd.Series) -> bool:
+    return pd.api.types.is_numeric_dtype(values) and not isinstance(
+        values.dtype, pd.CategoricalDtype
+    )
