@@ -67,18 +67,6 @@ def _panel_arguments(p: argparse.ArgumentParser) -> None:
     )
 
 
-def build_panel_with_context(tables, as_of: str, config: Config, *, spatial: bool = True):
-    """The panel of ``as_of`` with its spatial context (what ``lifecycle panel`` writes)."""
-    from ..panel import build_panel
-
-    panel = build_panel(tables, as_of, config=config)
-    if not spatial:
-        return panel
-    from ..spatial import add_spatial_context
-
-    return add_spatial_context(panel, tables, config=config)
-
-
 def _panel_run(args: argparse.Namespace) -> None:
     from .._files import write_parquet_atomic
 
@@ -86,7 +74,9 @@ def _panel_run(args: argparse.Namespace) -> None:
     if args.out.suffix.lower() != ".parquet":
         raise UsageError(f"--out was {str(args.out)!r} but must be a .parquet file")
     tables, config = _load(args)
-    panel = build_panel_with_context(tables, args.as_of, config, spatial=not args.no_spatial)
+    from ..cycle import panel_with_context
+
+    panel = panel_with_context(tables, args.as_of, config, spatial=not args.no_spatial)
     write_parquet_atomic(args.out, panel)
     print(f"wrote {args.out}: {len(panel):,} customer-months, {panel.shape[1]} columns")
 
@@ -104,21 +94,36 @@ def _demo_arguments(p: argparse.ArgumentParser) -> None:
 
 
 def _demo_run(args: argparse.Namespace) -> None:
-    from .._files import write_parquet_atomic
-    from ..data import load_tables
     from ..demo import write_demo
 
-    if args.customers < 100:
-        raise UsageError(f"--customers was {args.customers} but must be at least 100")
+    if args.customers < 500:
+        raise UsageError(f"--customers was {args.customers} but must be at least 500")
     paths = write_demo(args.out, customers=args.customers, seed=args.seed)
     config = load_config(paths["config"])
-    tables = load_tables(args.out, config)
-    as_of = format_month(tables.extract_month)
-    panel = build_panel_with_context(tables, as_of, config)
-    panel_path = args.out / f"panel_{as_of}.parquet"
-    write_parquet_atomic(panel_path, panel)
-    print(f"demo data in {args.out}/ (truth in {paths['truth']})")
-    print(f"panel {panel_path}: {len(panel):,} customer-months, {panel.shape[1]} columns")
+    print(f"demo data in {args.out}/ (true parameters in {paths['truth']})")
+    last = parse_month(config.extract_month)
+    # Two monthly runs, so that the second month's report judges the first month's predictions.
+    for month in (format_month(last - 1), format_month(last)):
+        _run_and_report(args.out, config, month, force=True)
+
+
+def _run_and_report(data: Path, config: Config, month: str | None, *, force: bool) -> None:
+    from ..cycle import run_cycle
+    from ._progress import steps_progress
+
+    with steps_progress(f"month {month or 'latest'}") as step:
+        result = run_cycle(data, config, as_of=month, force=force, step=step)
+    print(f"month {result.month}: wrote {_shown(result.folder)}/")
+    for name, path in result.files.items():
+        print(f"  {name:<10} {_shown(path)}")
+
+
+def _shown(path: Path) -> str:
+    """A path relative to the working folder when it lies below it."""
+    try:
+        return str(path.resolve().relative_to(Path.cwd().resolve()))
+    except ValueError:
+        return str(path)
 
 
 DEMO = Command(
@@ -127,6 +132,195 @@ DEMO = Command(
     _demo_arguments,
     _demo_run,
 )
+
+
+# fit -----------------------------------------------------------------------------------------
+def _fit_arguments(p: argparse.ArgumentParser) -> None:
+    _data_arguments(p)
+    p.add_argument("--as-of", required=True, help="last month of the training panel, YYYY-MM")
+    p.add_argument("--family", required=True, choices=["cox", "forest", "boosted"])
+    p.add_argument("--out", required=True, type=Path, help="folder for the model and manifest")
+
+
+def _fit_run(args: argparse.Namespace) -> None:
+    from ..cycle import fit_model
+    from ..models import save_model
+
+    parse_month(args.as_of, what="--as-of")
+    tables, config = _load(args)
+    model, window = fit_model(tables, args.as_of, args.family, config)
+    save_model(model, args.out, training_window=window, family=args.family)
+    print(f"wrote {args.out}/ ({args.family}; trained on {window[0]} to {window[1]})")
+
+
+FIT = Command("fit", "fit one model family over every cause", _fit_arguments, _fit_run)
+
+
+# score ---------------------------------------------------------------------------------------
+def _score_arguments(p: argparse.ArgumentParser) -> None:
+    _data_arguments(p)
+    p.add_argument("--model", required=True, type=Path, help="folder written by lifecycle fit")
+    p.add_argument("--as-of", required=True, help="score the customers present at its end")
+    p.add_argument("--out", required=True, type=Path, help="CSV or Parquet file to write")
+    p.add_argument("--horizons", default="3,6,12", help="months, comma-separated (3,6,12)")
+
+
+def _score_run(args: argparse.Namespace) -> None:
+    from ..cycle import score_portfolio
+    from ..models import load_model
+
+    parse_month(args.as_of, what="--as-of")
+    horizons = _whole_numbers(args.horizons, "--horizons")
+    _check_table_path(args.out)
+    model = load_model(args.model)
+    tables, config = _load(args)
+    scored = score_portfolio(tables, model, args.as_of, config, horizons=horizons)
+    _write_table(args.out, scored.scores)
+    print(f"wrote {args.out}: {len(scored.scores):,} customers")
+
+
+SCORE = Command(
+    "score", "survival, cumulative incidence and lifetime value per customer", _score_arguments,
+    _score_run,
+)  # fmt: skip
+
+
+# backtest ------------------------------------------------------------------------------------
+def _backtest_arguments(p: argparse.ArgumentParser) -> None:
+    _data_arguments(p)
+    p.add_argument("--as-of", required=True, help="the latest month of data to use, YYYY-MM")
+    p.add_argument("--families", default="cox,boosted", help="comma-separated (cox,boosted)")
+    p.add_argument("--cutoffs", help="comma-separated YYYY-MM (default: two with full follow-up)")
+    p.add_argument("--horizons", default="3,6,12", help="months, comma-separated (3,6,12)")
+    p.add_argument("--out", required=True, type=Path, help="CSV of the metrics table")
+
+
+def _backtest_run(args: argparse.Namespace) -> None:
+    from ..cycle import default_cutoffs
+    from ..evaluation import TenureLifeTable, backtest
+    from ..models._families import make_model
+
+    parse_month(args.as_of, what="--as-of")
+    horizons = _whole_numbers(args.horizons, "--horizons")
+    _check_table_path(args.out, csv_only=True)
+    tables, config = _load(args)
+    families = {"life_table": TenureLifeTable()}
+    for name in [f.strip() for f in args.families.split(",") if f.strip()]:
+        families[name] = make_model(name, config)
+    if args.cutoffs:
+        cutoffs = [c.strip() for c in args.cutoffs.split(",") if c.strip()]
+        for c in cutoffs:
+            parse_month(c, what="--cutoffs")
+    else:
+        cutoffs = default_cutoffs(args.as_of, max(horizons))
+    result = backtest(tables, families=families, cutoffs=cutoffs, horizons=horizons, config=config)
+    _write_table(args.out, result.metrics)
+    print(f"wrote {args.out}: {len(result.metrics):,} rows; champions:")
+    for row in result.champions.itertuples():
+        print(f"  {row.cause}: {row.family} (Uno C {row.uno_c:.3f} at {row.horizon} months)")
+
+
+BACKTEST = Command(
+    "backtest", "out-of-time metrics of each family at past cutoffs", _backtest_arguments,
+    _backtest_run,
+)  # fmt: skip
+
+
+# plan and forecast ---------------------------------------------------------------------------
+def _decision_arguments(p: argparse.ArgumentParser) -> None:
+    _data_arguments(p)
+    p.add_argument("--model", required=True, type=Path, help="folder written by lifecycle fit")
+    p.add_argument("--as-of", required=True, help="plan for the month after it, YYYY-MM")
+    p.add_argument("--out", required=True, type=Path, help="CSV file to write")
+
+
+def _plan_run(args: argparse.Namespace) -> None:
+    from ..cycle import plan_contacts, score_portfolio
+    from ..models import load_model
+
+    parse_month(args.as_of, what="--as-of")
+    _check_table_path(args.out, csv_only=True)
+    model = load_model(args.model)
+    tables, config = _load(args)
+    scored = score_portfolio(tables, model, args.as_of, config)
+    plan = plan_contacts(tables, model, scored, config)
+    _write_table(args.out, plan.table)
+    summary = plan.summary()
+    print(
+        f"wrote {args.out}: {summary['contacts']:,} contacts, expected value "
+        f"{summary['objective']:,.0f}, cost {summary['budget_used']:,.0f} of "
+        f"{summary['budget']:,.0f} ({summary['solver']}, gap {summary['relative_gap']:.2%})"
+    )
+
+
+PLAN = Command(
+    "plan", "the contact plan: offers within budget and capacity, by week, with reasons",
+    _decision_arguments, _plan_run,
+)  # fmt: skip
+
+
+def _forecast_run(args: argparse.Namespace) -> None:
+    from ..cycle import forecast_portfolio, score_portfolio
+    from ..models import load_model
+
+    parse_month(args.as_of, what="--as-of")
+    _check_table_path(args.out, csv_only=True)
+    model = load_model(args.model)
+    tables, config = _load(args)
+    scored = score_portfolio(tables, model, args.as_of, config)
+    forecast = forecast_portfolio(tables, scored, config)
+    _write_table(args.out, forecast)
+    print(f"wrote {args.out}: {len(forecast):,} rows")
+
+
+FORECAST = Command(
+    "forecast", "expected uptakes by month and area with 90%% intervals", _decision_arguments,
+    _forecast_run,
+)  # fmt: skip
+
+
+def _whole_numbers(text: str, what: str) -> list[int]:
+    try:
+        values = [int(part) for part in text.split(",") if part.strip()]
+    except ValueError:
+        values = []
+    if not values or min(values) < 1:
+        raise UsageError(f"{what} was {text!r} but must be whole months >= 1, e.g. 3,6,12")
+    return values
+
+
+def _check_table_path(path: Path, *, csv_only: bool = False) -> None:
+    allowed = (".csv",) if csv_only else (".csv", ".parquet")
+    if path.suffix.lower() not in allowed:
+        raise UsageError(f"--out was {str(path)!r} but must end in {' or '.join(allowed)}")
+
+
+def _write_table(path: Path, frame) -> None:
+    from .._files import write_csv_atomic, write_parquet_atomic
+
+    if path.suffix.lower() == ".parquet":
+        write_parquet_atomic(path, frame)
+    else:
+        write_csv_atomic(path, frame)
+
+
+# run -----------------------------------------------------------------------------------------
+def _run_arguments(p: argparse.ArgumentParser) -> None:
+    p.add_argument("--config", required=True, type=Path, help="lifecycle.toml of the data")
+    p.add_argument("--data", type=Path, help="the data (default: the config's folder)")
+    p.add_argument("--as-of", help="the month to run (default: the extract month)")
+    p.add_argument("--force", action="store_true", help="rewrite a month that was run already")
+
+
+def _run_run(args: argparse.Namespace) -> None:
+    if args.as_of:
+        parse_month(args.as_of, what="--as-of")
+    config = load_config(args.config)
+    data = args.data or args.config.parent
+    _run_and_report(data, config, args.as_of, force=args.force)
+
+
+RUN = Command("run", "the whole monthly cycle into reports/<YYYY-MM>/", _run_arguments, _run_run)
 
 
 # bench ---------------------------------------------------------------------------------------
@@ -151,4 +345,4 @@ BENCH = Command(
     _bench_run,
 )
 
-COMMANDS = (CHECK, PANEL, DEMO, BENCH)
+COMMANDS = (CHECK, PANEL, FIT, BACKTEST, SCORE, PLAN, FORECAST, RUN, DEMO, BENCH)

@@ -1,6 +1,7 @@
 """Input tables: reading them and checking them against the data contract."""
 
 from ._check import check_tables, load_tables
+from ._cut import tables_as_of
 from ._describe import describe_tables
 from ._read import read_raw_tables
 from ._tables import RawTables, Tables
@@ -12,4 +13,5 @@ __all__ = [
     "describe_tables",
     "load_tables",
     "read_raw_tables",
+    "tables_as_of",
 ]

@@ -176,6 +176,65 @@ trailing_sums = {{ complaints = 3 }}
 [spatial]
 radii_m = [{P.RADIUS_M}]
 move_rate_months = {move_rate_months}
+
+[models.boosted]
+max_iter = 150
+n_threads = 1
+
+[models.cox]
+sample_fraction = 0.25
+
+[value]
+annual_discount = 0.08
+horizon_months = 24
+
+[forecast]
+horizon_months = 12
+
+# The offers of the invented provider. The loyalty credit's hazard ratio here is the team's
+# guess; the past campaign with a random hold-out replaces it with an estimate.
+[[offers]]
+name = "loyalty_credit"
+target = "churn"
+cost = 20.0
+hazard_ratio = 0.8
+months = 6
+cooldown_months = 3
+weekly_capacity = 150
+
+[offers.eligible]
+min_tenure = 3
+
+[[offers]]
+name = "moving_home_transfer"
+target = "move_out"
+cost = 12.0
+hazard_ratio = 0.7
+months = 3
+cooldown_months = 3
+weekly_capacity = 100
+
+[[offers]]
+name = "{P.PRODUCT}_trial"
+target = "uptake_{P.PRODUCT}"
+cost = 4.0
+hazard_ratio = 1.8
+months = 3
+value_per_uptake = 120.0
+cooldown_months = 3
+weekly_capacity = 250
+
+[offers.eligible]
+not_holding = "{P.PRODUCT}"
+
+[plan]
+budget = 15000.0
+weeks = 4
+
+[run]
+families = ["cox", "boosted"]
+reports = "../reports"
+work = "../.lifecycle-work"
 """
 
 

@@ -1,0 +1,28 @@
+"""The monthly cycle: its steps as functions, and the whole cycle in one call."""
+
+from ._run import RunResult, RunSettings, run_cycle, run_settings
+from ._steps import (
+    Scored,
+    default_cutoffs,
+    fit_model,
+    forecast_portfolio,
+    panel_with_context,
+    plan_contacts,
+    score_portfolio,
+    snapshot_with_context,
+)
+
+__all__ = [
+    "RunResult",
+    "RunSettings",
+    "Scored",
+    "default_cutoffs",
+    "fit_model",
+    "forecast_portfolio",
+    "panel_with_context",
+    "plan_contacts",
+    "run_cycle",
+    "run_settings",
+    "score_portfolio",
+    "snapshot_with_context",
+]

@@ -1,0 +1,287 @@
+"""``lifecycle run``: the whole monthly cycle, resumable, writing one month folder atomically.
+
+Settings come from the ``[run]`` section of ``lifecycle.toml``::
+
+    [run]
+    families = ["cox", "boosted"]   # compared in the backtest (the tenure life table always is)
+    cutoffs = 2                     # past cutoffs in the backtest, 3 months apart
+    refit_months = 1                # refit when the newest saved model is this many months old
+    reports = "reports"             # month folders go to <reports>/<YYYY-MM>/ (relative to
+                                    # the config file's folder)
+    history = ""                    # score history; default <reports>/history.duckdb
+    work = ".lifecycle-work"        # saved models, cached steps and the staging folder
+
+A run writes everything for month M into a staging folder first and renames it to
+``<reports>/M`` at the end, so a month folder is complete or absent; an existing month is
+never rewritten without ``force``. Steps whose inputs (the data files' and the config's
+SHA-256) have not changed are taken from the work folder instead of being redone.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import json
+import logging
+import os
+import shutil
+from collections.abc import Callable
+from dataclasses import dataclass, field
+from pathlib import Path
+
+import pandas as pd
+
+from .._files import write_csv_atomic, write_text_atomic
+from .._months import format_month, parse_month
+from ..config import Config
+from ..errors import ModelFileError, UsageError
+
+log = logging.getLogger(__name__)
+
+_RUN_KEYS = {"families", "cutoffs", "refit_months", "reports", "history", "work"}
+
+
+@dataclass(frozen=True)
+class RunSettings:
+    """The ``[run]`` section (see the module docstring)."""
+
+    families: tuple[str, ...] = ("cox", "boosted")
+    cutoffs: int = 2
+    refit_months: int = 1
+    reports: Path = Path("reports")
+    history: Path | None = None
+    work: Path = Path(".lifecycle-work")
+
+    @property
+    def history_path(self) -> Path:
+        return self.history or self.reports / "history.duckdb"
+
+
+def run_settings(config: Config, *, reports: str | Path | None = None) -> RunSettings:
+    """Read ``[run]``; relative paths are taken from the config file's folder."""
+    raw = config.raw.get("run", {})
+    unknown = sorted(set(raw) - _RUN_KEYS)
+    if unknown:
+        raise UsageError(f"[run] has unknown setting(s) {unknown}; allowed are {sorted(_RUN_KEYS)}")
+    base = config.source.parent if config.source else Path.cwd()
+
+    def path(value: object, default: str) -> Path:
+        p = Path(str(value or default))
+        return (p if p.is_absolute() else base / p).resolve()
+
+    families = tuple(raw.get("families", ("cox", "boosted")))
+    from ..models._families import FAMILY_NAMES
+
+    bad = [f for f in families if f not in FAMILY_NAMES]
+    if bad or not families:
+        raise UsageError(f"[run] families was {list(families)}; choose from {list(FAMILY_NAMES)}")
+    for key in ("cutoffs", "refit_months"):
+        value = raw.get(key, 1)
+        if isinstance(value, bool) or not isinstance(value, int) or value < 1:
+            raise UsageError(f"[run] {key} was {value!r} but must be a whole number >= 1")
+    reports_path = (
+        Path(reports).resolve() if reports is not None else path(raw.get("reports"), "reports")
+    )
+    return RunSettings(
+        families=families,
+        cutoffs=int(raw.get("cutoffs", 2)),
+        refit_months=int(raw.get("refit_months", 1)),
+        reports=reports_path,
+        history=path(raw["history"], "") if raw.get("history") else None,
+        work=path(raw.get("work"), ".lifecycle-work"),
+    )
+
+
+@dataclass
+class RunResult:
+    """What a run wrote: the month, its folder and each file in it."""
+
+    month: str
+    folder: Path
+    files: dict[str, Path] = field(default_factory=dict)
+    summary: dict[str, object] = field(default_factory=dict)
+
+
+def data_fingerprint(source: str | Path, config: Config) -> str:
+    """SHA-256 over the input files (or DuckDB file) and the config text."""
+    digest = hashlib.sha256()
+    source = Path(source)
+    files = sorted(p for p in source.rglob("*") if p.is_file()) if source.is_dir() else [source]
+    for file in files:
+        hidden = any(part.startswith(".") for part in file.relative_to(source.parent).parts)
+        derived = file.suffix == ".parquet" and file.stem.startswith("panel_")
+        if hidden or derived:  # our own work files are not inputs
+            continue
+        digest.update(file.name.encode())
+        with open(file, "rb") as handle:
+            for block in iter(lambda: handle.read(1 << 20), b""):
+                digest.update(block)
+    if config.source is not None and config.source.is_file():
+        digest.update(config.source.read_bytes())
+    return digest.hexdigest()
+
+
+Step = Callable[[str], None]
+
+
+def run_cycle(
+    source: str | Path,
+    config: Config,
+    *,
+    as_of: str | None = None,
+    reports: str | Path | None = None,
+    force: bool = False,
+    step: Step | None = None,
+) -> RunResult:
+    """Run the monthly cycle for ``as_of`` (default: the extract month).
+
+    Check the inputs, build the panel with context, backtest the families over past cutoffs
+    and pick a champion per cause, fit (or reuse) the champion model, score every customer,
+    value the offers, plan the contacts, forecast uptake, write the report, and append the
+    month to the score history. ``step`` is called with the name of each step as it starts
+    (for a progress display).
+    """
+    from ..data import load_tables, tables_as_of
+    from ..evaluation import TenureLifeTable, backtest
+    from ..models._families import make_model
+    from ._steps import default_cutoffs, forecast_portfolio, plan_contacts, score_portfolio
+
+    tick = step or (lambda name: None)
+    settings = run_settings(config, reports=reports)
+    tick("check")
+    tables = load_tables(source, config)
+    month = as_of or format_month(tables.extract_month)
+    month_index = parse_month(month, what="as_of")
+    if month_index > tables.extract_month:
+        raise UsageError(
+            f"as_of was {month} but the data only covers months up to "
+            f"{format_month(tables.extract_month)}"
+        )
+    tables = tables_as_of(tables, month_index)  # a past month sees only what it knew
+    folder = settings.reports / month
+    if folder.exists() and not force:
+        raise UsageError(
+            f"{folder} exists: month {month} was run already; pass --force to rewrite it"
+        )
+    fingerprint = hashlib.sha256(f"{data_fingerprint(source, config)}:{month}".encode()).hexdigest()
+    work = settings.work
+    staging = work / f"staging-{month}-{os.getpid()}"
+    shutil.rmtree(staging, ignore_errors=True)
+    staging.mkdir(parents=True)
+    try:
+        tick("backtest")
+        families = {"life_table": TenureLifeTable()}
+        for name in settings.families:
+            families[name] = make_model(name, config)
+        result = _cached_backtest(
+            work, fingerprint, month, lambda: backtest(
+                tables,
+                families=families,
+                cutoffs=default_cutoffs(month, 12, count=settings.cutoffs),
+                config=config,
+            ),
+        )  # fmt: skip
+        champions = dict(
+            zip(result["champions"]["cause"], result["champions"]["family"], strict=True)
+        )
+        tick("fit")
+        model = _champion_model(
+            work, fingerprint, month, tables, config, families, champions, settings.refit_months
+        )
+        tick("score")
+        scored = score_portfolio(tables, model, month, config)
+        tick("plan")
+        plan = plan_contacts(tables, model, scored, config)
+        tick("forecast")
+        forecast = forecast_portfolio(tables, scored, config)
+        files = {
+            "scores": write_csv_atomic(staging / "scores.csv", scored.scores),
+            "plan": write_csv_atomic(staging / "contact_plan.csv", plan.table),
+            "forecast": write_csv_atomic(staging / "uptake_forecast.csv", forecast),
+            "backtest": write_csv_atomic(staging / "backtest_metrics.csv", result["metrics"]),
+        }
+        summary = {
+            "month": month,
+            "customers_scored": len(scored.scores),
+            "champions": champions,
+            "plan": plan.summary(),
+            "data_sha256": fingerprint,
+        }
+        files["summary"] = write_text_atomic(
+            staging / "run_summary.json", json.dumps(summary, indent=2, sort_keys=True, default=str)
+        )
+        tick("publish")
+        _publish(staging, folder, force=force)
+    finally:
+        shutil.rmtree(staging, ignore_errors=True)
+    return RunResult(
+        month=month,
+        folder=folder,
+        files={k: folder / v.name for k, v in files.items()},
+        summary=summary,
+    )
+
+
+def _cached_backtest(work: Path, fingerprint: str, month: str, compute) -> dict[str, pd.DataFrame]:
+    """The backtest's tables, from the work folder when the data and config are unchanged."""
+    cache = work / "cache" / f"backtest-{month}-{fingerprint[:16]}"
+    names = ("metrics", "champions")
+    if all((cache / f"{n}.parquet").is_file() for n in names):
+        log.info("backtest: inputs unchanged, reusing %s", cache)
+        return {n: pd.read_parquet(cache / f"{n}.parquet") for n in names}
+    result = compute()
+    out = {"metrics": result.metrics, "champions": result.champions}
+    from .._files import write_parquet_atomic
+
+    for name, frame in out.items():
+        write_parquet_atomic(cache / f"{name}.parquet", frame)
+    return out
+
+
+def _champion_model(work, fingerprint, month, tables, config, families, champions, refit_months):
+    """The champion model of ``month``: the one saved for these inputs, else one saved less
+    than ``refit_months`` months before (the refit schedule), else a new fit."""
+    from ..models import load_model, save_model
+    from ..models._champion import ChampionModel
+    from ._steps import panel_with_context
+
+    models = work / "models"
+    folder = models / f"champion-{month}-{fingerprint[:16]}"
+    candidates = [folder]
+    if refit_months > 1 and models.is_dir():
+        now = parse_month(month)
+        older = []
+        for path in models.glob("champion-*"):
+            trained = path.name.split("-")[1:3]
+            trained_month = parse_month("-".join(trained)) if len(trained) == 2 else None
+            if trained_month is not None and now - refit_months < trained_month < now:
+                older.append((trained_month, path))
+        candidates += [path for _, path in sorted(older, reverse=True)]
+    for candidate in candidates:
+        if (candidate / "manifest.json").is_file():
+            try:
+                model = load_model(candidate)
+            except ModelFileError as exc:
+                log.warning("not reusing %s: %s", candidate, exc)
+                continue
+            log.info("model: reusing %s (refit every %d months)", candidate, refit_months)
+            return model
+    panel = panel_with_context(tables, month, config)
+    model = ChampionModel(families=families, champions=champions).fit(panel)
+    window = (str(panel["month"].min()), str(panel["month"].max()))
+    save_model(model, folder, training_window=window, family="champion")
+    return model
+
+
+def _publish(staging: Path, folder: Path, *, force: bool) -> None:
+    """Move the staging folder to ``folder`` in one rename; with ``force`` the old folder is
+    moved aside first and removed only after the new one is in place."""
+    folder.parent.mkdir(parents=True, exist_ok=True)
+    if folder.exists():
+        if not force:
+            raise UsageError(f"{folder} appeared while running; not overwriting it")
+        aside = staging.parent / f"replaced-{folder.name}-{os.getpid()}"
+        os.replace(folder, aside)
+        os.replace(staging, folder)
+        shutil.rmtree(aside, ignore_errors=True)
+    else:
+        os.replace(staging, folder)

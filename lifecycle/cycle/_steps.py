@@ -1,0 +1,211 @@
+"""The steps of the monthly cycle as plain functions: each reads what the last one gave.
+
+The command line's subcommands and `run_cycle` are thin layers over these.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import logging
+from collections.abc import Sequence
+from dataclasses import dataclass
+
+import numpy as np
+import pandas as pd
+
+from .._months import categorical_to_index, format_month, parse_month
+from ..config import Config
+from ..data import Tables
+from ..models import HazardModel, score_customers
+from ..models._families import make_model
+from ..panel import build_panel, build_snapshot
+
+log = logging.getLogger(__name__)
+
+SCORE_HORIZONS = (3, 6, 12)
+
+
+def panel_with_context(
+    tables: Tables, as_of: str | int, config: Config, *, spatial: bool = True
+) -> pd.DataFrame:
+    """The panel of ``as_of`` with its spatial context (what ``lifecycle panel`` writes)."""
+    panel = build_panel(tables, as_of, config=config)
+    if not spatial:
+        return panel
+    from ..spatial import add_spatial_context
+
+    return add_spatial_context(panel, tables, config=config)
+
+
+def snapshot_with_context(tables: Tables, as_of: str | int, config: Config) -> pd.DataFrame:
+    """The scoring snapshot at the end of ``as_of``, with its spatial context."""
+    from ..spatial import add_spatial_context
+
+    snapshot = build_snapshot(tables, as_of, config=config)
+    return add_spatial_context(snapshot, tables, config=config)
+
+
+def fit_model(
+    tables: Tables, as_of: str | int, family: str, config: Config
+) -> tuple[HazardModel, tuple[str, str]]:
+    """Fit ``family`` on the panel of ``as_of``; returns the model and its training window."""
+    panel = panel_with_context(tables, as_of, config)
+    months = panel["month"]
+    window = (str(months.min()), str(months.max()))
+    log.info("fitting %s on %d customer-months (%s to %s)", family, len(panel), *window)
+    model = make_model(family, config).fit(panel)
+    return model, window
+
+
+@dataclass
+class Scored:
+    """What scoring the portfolio at ``as_of`` gives.
+
+    Attributes
+    ----------
+    snapshot
+        One row per customer present at the end of ``as_of`` (features for the next month).
+    hazards
+        ``(n, T, K)`` monthly hazards for the next T months, causes in ``causes`` order.
+    causes
+        Cause names (terminal, then uptake).
+    scores
+        ``customer_id``, ``survival_<h>m``, ``cif_<cause>_<h>m``, ``lifetime_value``.
+    """
+
+    snapshot: pd.DataFrame
+    hazards: np.ndarray
+    causes: tuple[str, ...]
+    n_terminal: int
+    scores: pd.DataFrame
+
+    @property
+    def first_month(self) -> str:
+        """The first month predicted (the month after ``as_of``)."""
+        return format_month(int(categorical_to_index(self.snapshot["month"])[0]))
+
+
+def score_portfolio(
+    tables: Tables,
+    model: HazardModel,
+    as_of: str | int,
+    config: Config,
+    *,
+    horizons: Sequence[int] = SCORE_HORIZONS,
+) -> Scored:
+    """Score every customer present at the end of ``as_of``: survival, cumulative incidence at
+    each horizon, and lifetime value over the ``[value]`` horizon."""
+    from ..forecast import forecast_settings
+    from ..value import lifetime_value, value_settings
+
+    values = value_settings(config)
+    months = max(max(horizons), values.horizon_months, forecast_settings(config).horizon_months)
+    snapshot = snapshot_with_context(tables, as_of, config)
+    hazards = model.hazard_array(snapshot, months)
+    scores = score_customers(model, snapshot, horizons, hazards=hazards)
+    survival = _survival(hazards, len(model.terminal_causes_))
+    scores["lifetime_value"] = lifetime_value(
+        survival[:, : values.horizon_months],
+        snapshot["monthly_margin"].to_numpy(dtype=np.float64),
+        annual_discount=values.annual_discount,
+    )
+    return Scored(snapshot, hazards, model.causes_, len(model.terminal_causes_), scores)
+
+
+def _survival(hazards: np.ndarray, n_terminal: int) -> np.ndarray:
+    from ..models._base import survival_from_hazards
+
+    return survival_from_hazards(hazards, n_terminal)
+
+
+def plan_contacts(tables: Tables, model: HazardModel, scored: Scored, config: Config):
+    """The contact plan of the month after ``as_of`` (`lifecycle.decisions.Plan`).
+
+    Offer effects estimated from past campaigns with random hold-outs replace the configured
+    hazard ratios (logged); the expected values come from `lifecycle.value.offer_values`.
+    """
+    from ..decisions import (
+        last_contact_months,
+        make_plan,
+        offers_from_config,
+        phrases_from_config,
+        plan_settings_from_config,
+    )
+    from ..value import estimate_offer_effects, offer_values, value_settings
+
+    offers = offers_from_config(config)
+    settings = plan_settings_from_config(config)
+    offers = _with_estimated_effects(offers, estimate_offer_effects(tables, offers=offers))
+    values = value_settings(config)
+    snapshot = scored.snapshot
+    ev = offer_values(
+        scored.hazards,
+        scored.causes,
+        snapshot["monthly_margin"].to_numpy(dtype=np.float64),
+        offers,
+        annual_discount=values.annual_discount,
+        horizon=values.horizon_months,
+        customer_ids=snapshot["customer_id"].to_numpy(),
+    )
+    frame = snapshot.merge(scored.scores, on="customer_id", how="left")
+    flags = [c for c in settings.exclude if c in tables.customers.columns]
+    if flags:
+        frame = frame.merge(tables.customers[["customer_id", *flags]], on="customer_id", how="left")
+    frame = frame.rename(columns={"tenure_start": "tenure"}).assign(
+        tenure_start=frame["tenure_start"]
+    )
+    return make_plan(
+        frame,
+        ev[["customer_id", "offer", "expected_value"]],
+        offers,
+        settings,
+        last_contact=last_contact_months(tables.campaigns),
+        model=model,
+        snapshot=snapshot,
+        phrases=phrases_from_config(config),
+    )
+
+
+def _with_estimated_effects(offers, effects: pd.DataFrame):
+    if effects is None or effects.empty:
+        return offers
+    by_name = effects.set_index("offer")
+    out = []
+    for offer in offers:
+        if offer.name in by_name.index:
+            row = by_name.loc[offer.name]
+            ratio = float(row["hazard_ratio"])
+            log.info(
+                "offer %s: using the hazard ratio %.3f (95%% %.3f–%.3f) estimated from its past "
+                "campaign instead of the configured %.3f",
+                offer.name, ratio, row["lower_95"], row["upper_95"], offer.hazard_ratio,
+            )  # fmt: skip
+            offer = dataclasses.replace(offer, hazard_ratio=ratio)
+        out.append(offer)
+    return tuple(out)
+
+
+def forecast_portfolio(tables: Tables, scored: Scored, config: Config) -> pd.DataFrame:
+    """Uptake forecast by area and in total from the scored portfolio's hazards."""
+    from ..forecast import forecast_settings, forecast_uptake
+    from ..spatial import premise_areas
+
+    settings = forecast_settings(config)
+    ids = scored.snapshot["customer_id"]
+    areas = premise_areas(tables, config).reindex(ids.to_numpy()).to_numpy()
+    return forecast_uptake(
+        scored.hazards[:, : settings.horizon_months],
+        scored.causes,
+        start_month=scored.first_month,
+        areas=areas,
+        levels=settings.levels,
+        method=settings.method,
+        exact_max=settings.exact_max,
+        customer_ids=ids.to_numpy(),
+    )
+
+
+def default_cutoffs(as_of: str | int, horizon: int, count: int = 2, step: int = 3) -> list[str]:
+    """Past cutoffs with full follow-up: ``as_of − horizon``, then every ``step`` months back."""
+    last = (parse_month(as_of) if isinstance(as_of, str) else int(as_of)) - horizon
+    return [format_month(last - step * i) for i in reversed(range(count))]
