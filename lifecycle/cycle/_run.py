@@ -142,8 +142,16 @@ def run_cycle(
     """
     from ..data import load_tables, tables_as_of
     from ..evaluation import TenureLifeTable, backtest
+    from ..history import ScoreHistory
     from ..models._families import make_model
-    from ._steps import default_cutoffs, forecast_portfolio, plan_contacts, score_portfolio
+    from ..report import write_report
+    from ._steps import (
+        default_cutoffs,
+        forecast_portfolio,
+        panel_with_context,
+        plan_contacts,
+        score_portfolio,
+    )
 
     tick = step or (lambda name: None)
     settings = run_settings(config, reports=reports)
@@ -184,8 +192,9 @@ def run_cycle(
             zip(result["champions"]["cause"], result["champions"]["family"], strict=True)
         )
         tick("fit")
+        panel = panel_with_context(tables, month, config)
         model = _champion_model(
-            work, fingerprint, month, tables, config, families, champions, settings.refit_months
+            work, fingerprint, month, panel, families, champions, settings.refit_months
         )
         tick("score")
         scored = score_portfolio(tables, model, month, config)
@@ -208,6 +217,29 @@ def run_cycle(
         }
         files["summary"] = write_text_atomic(
             staging / "run_summary.json", json.dumps(summary, indent=2, sort_keys=True, default=str)
+        )
+        tick("report")
+        history = ScoreHistory(settings.history_path)
+        previous = history.previous_month(month)
+        inputs = _report_inputs(
+            tables, config, month, panel, scored, model, result, plan, forecast, history, previous
+        )
+        files.update(write_report(inputs, staging))
+        tick("history")
+        # The month folder does not exist (checked above), so a stored month without one is
+        # an earlier attempt that stopped before publishing: replace it.
+        history.append_run(
+            month,
+            scores=scored.scores,
+            plan=plan.table,
+            metrics=_key_metrics(summary, plan),
+            meta={
+                "created": pd.Timestamp(parse_month(month) // 12, parse_month(month) % 12 + 1, 1),
+                "families": champions,
+                "config_hash": _config_hash(config),
+                "data_hash": fingerprint,
+            },
+            force=True,
         )
         tick("publish")
         _publish(staging, folder, force=force)
@@ -237,12 +269,11 @@ def _cached_backtest(work: Path, fingerprint: str, month: str, compute) -> dict[
     return out
 
 
-def _champion_model(work, fingerprint, month, tables, config, families, champions, refit_months):
+def _champion_model(work, fingerprint, month, panel, families, champions, refit_months):
     """The champion model of ``month``: the one saved for these inputs, else one saved less
     than ``refit_months`` months before (the refit schedule), else a new fit."""
     from ..models import load_model, save_model
     from ..models._champion import ChampionModel
-    from ._steps import panel_with_context
 
     models = work / "models"
     folder = models / f"champion-{month}-{fingerprint[:16]}"
@@ -265,7 +296,6 @@ def _champion_model(work, fingerprint, month, tables, config, families, champion
                 continue
             log.info("model: reusing %s (refit every %d months)", candidate, refit_months)
             return model
-    panel = panel_with_context(tables, month, config)
     model = ChampionModel(families=families, champions=champions).fit(panel)
     window = (str(panel["month"].min()), str(panel["month"].max()))
     save_model(model, folder, training_window=window, family="champion")
@@ -285,3 +315,61 @@ def _publish(staging: Path, folder: Path, *, force: bool) -> None:
         shutil.rmtree(aside, ignore_errors=True)
     else:
         os.replace(staging, folder)
+
+
+def _config_hash(config: Config) -> str:
+    text = config.source.read_bytes() if config.source and config.source.is_file() else b""
+    return hashlib.sha256(text).hexdigest()
+
+
+def _key_metrics(summary: dict, plan) -> dict[str, float]:
+    p = plan.summary()
+    return {
+        "customers_scored": float(summary["customers_scored"]),
+        "plan_contacts": float(p["contacts"]),
+        "plan_expected_value": float(p["objective"]),
+        "plan_cost": float(p["budget_used"]),
+        "plan_relative_gap": float(p["relative_gap"]),
+    }
+
+
+def _report_inputs(
+    tables, config, month, panel, scored, model, result, plan, forecast, history, previous
+):
+    """Everything the month's report shows, including how last month's predictions did."""
+    from ..evaluation import observed_outcomes
+    from ..history import compare_with_outcomes
+    from ..report import build_report_inputs
+    from ..spatial import premise_areas
+    from ._steps import snapshot_with_context
+
+    decile_check = decile_summary = previous_snapshot = previous_scores = None
+    notes = []
+    if previous is not None:
+        outcomes = observed_outcomes(tables, parse_month(previous))
+        comparison = compare_with_outcomes(history, previous, outcomes, cause="churn", horizon=1)
+        decile_check, decile_summary = comparison.deciles, comparison.summary
+        previous_scores = history.scores(previous)
+        previous_snapshot = snapshot_with_context(tables, previous, config)
+        notes.append(f"Compared with the run of {previous} (score history).")
+    fitted = getattr(model, "fitted_", {})
+    importances = getattr(fitted.get("forest"), "feature_importances_", None)
+    return build_report_inputs(
+        month=month,
+        panel=panel,
+        scores=scored.scores,
+        customer_areas=premise_areas(tables, config),
+        areas=tables.areas,
+        backtest_metrics=result["metrics"],
+        champions=result["champions"],
+        hazard_ratios=getattr(model, "coefficients_", None),
+        importances=importances,
+        forecast=forecast,
+        plan=plan,
+        snapshot=scored.snapshot if previous_snapshot is not None else None,
+        previous_snapshot=previous_snapshot,
+        previous_scores=previous_scores,
+        decile_check=decile_check,
+        decile_summary=decile_summary,
+        notes=notes,
+    )
