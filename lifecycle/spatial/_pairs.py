@@ -11,6 +11,9 @@ def neighbour_pairs(x: np.ndarray, y: np.ndarray, radius: float) -> np.ndarray:
 
     The boundary is inclusive: two points exactly ``radius`` apart are neighbours (this is what
     `scipy.spatial.cKDTree.query_pairs` does). Coordinates must be in a projected CRS in metres.
+    For counts per premise and month (the nearby-adoption features) use `nearby_counts`, which
+    counts the same pairs without listing them: at town densities there are about 500 pairs
+    per premise, too many to list for a million premises.
 
     Returns
     -------

@@ -52,5 +52,6 @@ def gamma_poisson_rates(events: np.ndarray, exposure: np.ndarray) -> np.ndarray:
     a = max(0.0, s2 - m / n_bar)
     if a == 0.0 or m == 0.0:
         return np.full(y.shape, m)
-    weight = np.divide(a, a + m / n, out=np.zeros(y.shape), where=seen)
+    weight = np.zeros(y.shape)  # areas without exposure keep the overall rate
+    weight[seen] = a / (a + m / n[seen])
     return m + weight * (raw - m)
