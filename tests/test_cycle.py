@@ -26,7 +26,7 @@ def demo(tmp_path_factory):
     text = (
         paths["config"]
         .read_text()
-        .replace('families = ["cox", "boosted"]', 'families = ["boosted"]\ncutoffs = 1')
+        .replace('families = ["cox", "boosted"]', 'families = ["boosted"]')
     )
     paths["config"].write_text(text)
     return folder, load_config(paths["config"])
@@ -110,3 +110,16 @@ def test_replaying_a_past_month_sees_only_what_it_knew(demo, back):
         )
     assert (cut.customers["end"].fillna(-np.inf) <= month).all()
     assert format_month(month) >= "2025-02"
+
+
+def test_second_month_reuses_the_model_and_backtest_on_schedule(demo, two_months):
+    """The demo config redoes the backtest and the fit every third month: the 2026-10 run
+    reuses what 2026-09 saved, and says so in its summary's champions."""
+    folder, _ = demo
+    work = folder.parent / ".lifecycle-work"
+    assert [p.name.split("-")[1:3] for p in (work / "models").iterdir()] == [["2026", "09"]]
+    assert len(list((work / "cache").glob("backtest-*"))) == 1
+    _, first, second = two_months
+    one = json.loads(first.files["summary"].read_text())
+    two = json.loads(second.files["summary"].read_text())
+    assert one["champions"] == two["champions"]

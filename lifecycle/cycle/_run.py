@@ -6,6 +6,7 @@ Settings come from the ``[run]`` section of ``lifecycle.toml``::
     families = ["cox", "boosted"]   # compared in the backtest (the tenure life table always is)
     cutoffs = 2                     # past cutoffs in the backtest, 3 months apart
     refit_months = 1                # refit when the newest saved model is this many months old
+    backtest_months = 1             # redo the backtest (and the champion choice) this often
     reports = "reports"             # month folders go to <reports>/<YYYY-MM>/ (relative to
                                     # the config file's folder)
     history = ""                    # score history; default <reports>/history.duckdb
@@ -37,7 +38,9 @@ from ..errors import ModelFileError, UsageError
 
 log = logging.getLogger(__name__)
 
-_RUN_KEYS = {"families", "cutoffs", "refit_months", "reports", "history", "work"}
+_RUN_KEYS = {
+    "families", "cutoffs", "refit_months", "backtest_months", "reports", "history", "work",
+}  # fmt: skip
 
 
 @dataclass(frozen=True)
@@ -47,6 +50,7 @@ class RunSettings:
     families: tuple[str, ...] = ("cox", "boosted")
     cutoffs: int = 2
     refit_months: int = 1
+    backtest_months: int = 1
     reports: Path = Path("reports")
     history: Path | None = None
     work: Path = Path(".lifecycle-work")
@@ -74,7 +78,7 @@ def run_settings(config: Config, *, reports: str | Path | None = None) -> RunSet
     bad = [f for f in families if f not in FAMILY_NAMES]
     if bad or not families:
         raise UsageError(f"[run] families was {list(families)}; choose from {list(FAMILY_NAMES)}")
-    for key in ("cutoffs", "refit_months"):
+    for key in ("cutoffs", "refit_months", "backtest_months"):
         value = raw.get(key, 1)
         if isinstance(value, bool) or not isinstance(value, int) or value < 1:
             raise UsageError(f"[run] {key} was {value!r} but must be a whole number >= 1")
@@ -85,6 +89,7 @@ def run_settings(config: Config, *, reports: str | Path | None = None) -> RunSet
         families=families,
         cutoffs=int(raw.get("cutoffs", 2)),
         refit_months=int(raw.get("refit_months", 1)),
+        backtest_months=int(raw.get("backtest_months", 1)),
         reports=reports_path,
         history=path(raw["history"], "") if raw.get("history") else None,
         work=path(raw.get("work"), ".lifecycle-work"),
@@ -181,7 +186,7 @@ def run_cycle(
         for name in settings.families:
             families[name] = make_model(name, config)
         result = _cached_backtest(
-            work, fingerprint, month, lambda: backtest(
+            work, fingerprint, month, settings.backtest_months, lambda: backtest(
                 tables,
                 families=families,
                 cutoffs=default_cutoffs(month, 12, count=settings.cutoffs),
@@ -253,17 +258,41 @@ def run_cycle(
     )
 
 
-def _cached_backtest(work: Path, fingerprint: str, month: str, compute) -> dict[str, pd.DataFrame]:
-    """The backtest's tables, from the work folder when the data and config are unchanged."""
-    cache = work / "cache" / f"backtest-{month}-{fingerprint[:16]}"
-    names = ("metrics", "champions")
-    if all((cache / f"{n}.parquet").is_file() for n in names):
-        log.info("backtest: inputs unchanged, reusing %s", cache)
-        return {n: pd.read_parquet(cache / f"{n}.parquet") for n in names}
-    result = compute()
-    out = {"metrics": result.metrics, "champions": result.champions}
+def _scheduled(folder: Path, prefix: str, month: str, fingerprint: str, every: int) -> list[Path]:
+    """Where a saved step may be taken from: first the one saved for exactly these inputs, then
+    (when the step is redone only every ``every`` months) those saved in the months before,
+    newest first."""
+    candidates = [folder / f"{prefix}-{month}-{fingerprint[:16]}"]
+    if every > 1 and folder.is_dir():
+        now = parse_month(month)
+        older = []
+        for path in folder.glob(f"{prefix}-*"):
+            parts = path.name.removeprefix(f"{prefix}-").split("-")
+            try:
+                saved = parse_month("-".join(parts[:2]))
+            except UsageError:
+                continue
+            if now - every < saved < now:
+                older.append((saved, path))
+        candidates += [path for _, path in sorted(older, reverse=True)]
+    return candidates
+
+
+def _cached_backtest(
+    work: Path, fingerprint: str, month: str, every: int, compute
+) -> dict[str, pd.DataFrame]:
+    """The backtest's tables: the saved ones for these inputs, or (``[run] backtest_months``)
+    one saved in the last months, else computed now and saved."""
     from .._files import write_parquet_atomic
 
+    names = ("metrics", "champions")
+    for cache in _scheduled(work / "cache", "backtest", month, fingerprint, every):
+        if all((cache / f"{n}.parquet").is_file() for n in names):
+            log.info("backtest: reusing %s (backtest every %d months)", cache, every)
+            return {n: pd.read_parquet(cache / f"{n}.parquet") for n in names}
+    result = compute()
+    out = {"metrics": result.metrics, "champions": result.champions}
+    cache = work / "cache" / f"backtest-{month}-{fingerprint[:16]}"
     for name, frame in out.items():
         write_parquet_atomic(cache / f"{name}.parquet", frame)
     return out
@@ -275,18 +304,8 @@ def _champion_model(work, fingerprint, month, panel, families, champions, refit_
     from ..models import load_model, save_model
     from ..models._champion import ChampionModel
 
-    models = work / "models"
-    folder = models / f"champion-{month}-{fingerprint[:16]}"
-    candidates = [folder]
-    if refit_months > 1 and models.is_dir():
-        now = parse_month(month)
-        older = []
-        for path in models.glob("champion-*"):
-            trained = path.name.split("-")[1:3]
-            trained_month = parse_month("-".join(trained)) if len(trained) == 2 else None
-            if trained_month is not None and now - refit_months < trained_month < now:
-                older.append((trained_month, path))
-        candidates += [path for _, path in sorted(older, reverse=True)]
+    folder = work / "models" / f"champion-{month}-{fingerprint[:16]}"
+    candidates = _scheduled(work / "models", "champion", month, fingerprint, refit_months)
     for candidate in candidates:
         if (candidate / "manifest.json").is_file():
             try:

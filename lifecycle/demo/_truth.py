@@ -178,11 +178,11 @@ radii_m = [{P.RADIUS_M}]
 move_rate_months = {move_rate_months}
 
 [models.boosted]
-max_iter = 150
+max_iter = 100
 n_threads = 1
 
 [models.cox]
-sample_fraction = 0.25
+sample_fraction = 0.1
 
 [value]
 annual_discount = 0.08
@@ -231,8 +231,12 @@ not_holding = "{P.PRODUCT}"
 budget = 15000.0
 weeks = 4
 
+# The backtest and the models are redone every third month; between, the last ones are reused.
 [run]
 families = ["cox", "boosted"]
+cutoffs = 1
+refit_months = 3
+backtest_months = 3
 reports = "../reports"
 work = "../.lifecycle-work"
 """
