@@ -712,3 +712,29 @@ def test_a_plan_that_contacts_nobody_says_so(report_case):
     assert any("no schedule" in n for n in notes)
     assert any("no offer rates" in n for n in notes)
     assert key["plan"]["contacts"] == 0 and key["offer_rates"] == {"overall_rate": 0.0}
+
+
+def test_hazard_ratios_of_measured_features_are_shown_per_standard_deviation():
+    """HR per SD = exp(β·sd) = HR_unit ** sd (common practice for reporting continuous
+    covariates); flags stay per unit."""
+    import numpy as np
+    import pandas as pd
+
+    from lifecycle.report._inputs import per_standard_deviation
+
+    panel = pd.DataFrame({"rate": [0.01, 0.02, 0.03, 0.04], "flag": [0, 1, 0, 1]})
+    hr = pd.DataFrame(
+        {
+            "cause": ["churn", "churn"],
+            "feature": ["rate", "flag"],
+            "hazard_ratio": [np.exp(25.0), 2.0],
+            "lower_95": [np.exp(20.0), 1.5],
+            "upper_95": [np.exp(30.0), 2.5],
+        }
+    )
+    out = per_standard_deviation(hr, panel)
+    sd = np.std([0.01, 0.02, 0.03, 0.04])
+    assert out.loc[0, "hazard_ratio"] == pytest.approx(np.exp(25.0 * sd))
+    assert out.loc[0, "lower_95"] == pytest.approx(np.exp(20.0 * sd))
+    assert out.loc[0, "feature"].startswith("rate (per SD")
+    assert out.loc[1].tolist() == hr.loc[1].tolist()

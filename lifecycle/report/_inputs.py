@@ -289,7 +289,7 @@ def build_report_inputs(
         champions=champions,
         decile_check=decile_check,
         decile_summary=decile_summary,
-        hazard_ratios=hazard_ratios,
+        hazard_ratios=per_standard_deviation(hazard_ratios, panel),
         importances=importances,
         drift=drift,
         forecast=forecast,
@@ -323,3 +323,30 @@ def plain(value: Any) -> Any:
     if isinstance(value, np.generic):
         return value.item()
     return value
+
+
+def per_standard_deviation(hazard_ratios: pd.DataFrame | None, panel: pd.DataFrame):
+    """Hazard ratios of continuous features restated per standard deviation of the feature.
+
+    A coefficient per unit is unreadable for a feature whose values are small (a monthly move
+    rate of 0.01 gives a "hazard ratio per unit" of millions): for a feature that takes more
+    than two values, ``HR_sd = exp(β · sd) = HR^sd`` (the same for both bounds), and the feature
+    is labelled ``name (per SD 0.0042)``. 0/1 flags and one-hot levels stay per unit.
+    """
+    if hazard_ratios is None or hazard_ratios.empty:
+        return hazard_ratios
+    out = hazard_ratios.copy()
+    for i, feature in enumerate(out["feature"].astype(str)):
+        if feature not in panel.columns or not pd.api.types.is_numeric_dtype(panel[feature]):
+            continue
+        values = panel[feature].to_numpy(dtype=np.float64, na_value=np.nan)
+        values = values[np.isfinite(values)]
+        if values.size == 0 or np.unique(values[:100_000]).size <= 2:
+            continue
+        sd = float(values.std())
+        if not sd > 0:
+            continue
+        for column in ("hazard_ratio", "lower_95", "upper_95"):
+            out.iloc[i, out.columns.get_loc(column)] = float(out.iloc[i][column]) ** sd
+        out.iloc[i, out.columns.get_loc("feature")] = f"{feature} (per SD {sd:.3g})"
+    return out

@@ -351,13 +351,31 @@ def _decile_blocks(
         )
         out[name] = {"customers": int(n.sum()), "predicted": predicted, "realised": realised}
     if summary:
+        figures = {k: v for k, v in summary.items() if k != "notes"}
         section.table(
             ["figure", "value"],
-            [[Cell(str(k)), Cell(_shown(v), number=True)] for k, v in summary.items()],
+            [
+                [Cell(_SUMMARY_LABELS.get(k, k.replace("_", " "))), Cell(_shown(v), number=True)]
+                for k, v in figures.items()
+            ],
             caption="Summary of the comparison",
         )
+        for note in summary.get("notes") or []:
+            section.text(f"Note: {note}")
         out["summary"] = dict(summary)
     return out
+
+
+_SUMMARY_LABELS = {
+    "month": "month predicted from",
+    "horizon_used": "months of follow-up compared",
+    "months_elapsed": "months elapsed since",
+    "predicted_column": "prediction compared",
+    "n": "customers",
+    "observed_expected": "observed / expected events",
+    "brier": "Brier score",
+    "uno_c": "Uno's C",
+}
 
 
 def _shown(value: Any) -> str:

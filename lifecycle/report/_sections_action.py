@@ -39,8 +39,10 @@ def drivers_section(inputs: ReportInputs) -> tuple[Section, dict[str, Any]]:
     else:
         section.text(
             "Hazard ratios from the cause-specific Cox model: how much a one-unit higher value "
-            "(or the named level, against the reference level) multiplies the monthly hazard of "
-            "that cause, other things equal. Whiskers are 95 % intervals; an interval that "
+            "of a flag (or the named level, against the reference level), or a one standard "
+            "deviation higher value of a measured feature (marked 'per SD'), multiplies the "
+            "monthly hazard of that cause, other things equal. coefficients.csv beside the model "
+            "keeps them per unit. Whiskers are 95 % intervals; an interval that "
             "crosses 1 is compatible with no effect. They describe associations in past data, "
             "not what would happen if a value were changed."
         )
