@@ -18,7 +18,6 @@ the same functions see the same numbers.
 
 from __future__ import annotations
 
-import math
 from dataclasses import dataclass
 from typing import TYPE_CHECKING
 
@@ -31,7 +30,7 @@ from ..data import Tables
 from ..errors import InputError, UsageError
 from ..spatial import local_move_rates, nearby_counts
 from ..spatial._areas import area_attributes
-from ..spatial._context import radius_label
+from ..spatial._context import checked_radii, radius_label
 from ._remote import item, portable
 from ._tables import NEVER, PartitionedTables, Summary
 
@@ -63,16 +62,7 @@ class ContextPlan:
 
 def radii_of(config: Config) -> tuple[float, ...]:
     """The ``[spatial] radii_m``, checked as `add_spatial_context` checks them."""
-    radii = tuple(float(r) for r in config.spatial.radii_m)
-    bad = [r for r in radii if not (math.isfinite(r) and r > 0)]
-    if bad or not radii:
-        raise UsageError(
-            f"[spatial] radii_m was {list(config.spatial.radii_m)} but each radius is expected "
-            "to be a positive number of metres, e.g. [400]"
-        )
-    labels = [radius_label(r) for r in radii]
-    if len(set(labels)) != len(labels):
-        raise UsageError(f"[spatial] radii_m was {list(config.spatial.radii_m)}: a radius repeats")
+    radii = tuple(checked_radii(config))
     if config.spatial.move_rate_months < 1:
         raise UsageError(
             f"[spatial] move_rate_months was {config.spatial.move_rate_months} but is expected "

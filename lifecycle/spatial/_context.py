@@ -85,7 +85,7 @@ def add_spatial_context(
         positive.
     """
     config = config or Config()
-    radii = _radii(config)
+    radii = checked_radii(config)
     if config.spatial.move_rate_months < 1:
         raise UsageError(
             f"[spatial] move_rate_months was {config.spatial.move_rate_months} but is expected "
@@ -146,7 +146,8 @@ def add_spatial_context(
     return pd.concat([panel, context], axis=1)
 
 
-def _radii(config: Config) -> list[float]:
+def checked_radii(config: Config) -> list[float]:
+    """The checked `[spatial] radii_m` (also used by the distributed context)."""
     radii = [float(r) for r in config.spatial.radii_m]
     bad = [r for r in radii if not (math.isfinite(r) and r > 0)]
     if bad or not radii:
