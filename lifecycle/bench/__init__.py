@@ -31,13 +31,23 @@ def _spatial_suite(customers: int | None, months: int) -> list[Measurement]:
 
 def _decisions_suite(customers: int | None, months: int) -> list[Measurement]:
     from ._decisions import run_decisions_bench
+    from ._scoring import run_scoring_bench
 
-    return run_decisions_bench(customers=customers or 1_000_000)
+    return run_decisions_bench(customers=customers or 1_000_000) + run_scoring_bench(
+        customers=customers or 1_000_000
+    )
+
+
+def _models_suite(customers: int | None, months: int) -> list[Measurement]:
+    from ._models import run_models_bench
+
+    return run_models_bench(customers=customers or 100_000)
 
 
 SUITES: dict[str, Callable[[int | None, int], list[Measurement]]] = {
     "panel": _panel_suite,
     "spatial": _spatial_suite,
+    "models": _models_suite,
     "decisions": _decisions_suite,
 }
 
