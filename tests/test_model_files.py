@@ -88,3 +88,14 @@ def test_unfitted_model_and_bad_horizon_are_usage_errors(tables):
     with pytest.raises(UsageError, match="horizons"):
         score_customers(model, snapshot, horizons=(0,))
     assert isinstance(model.predict_hazard(snapshot, 2), pd.DataFrame)
+
+
+def test_hazards_predicted_in_blocks_equal_one_block(tables, monkeypatch):
+    """Predicting customers block by block (memory) gives exactly the one-block hazards."""
+    from lifecycle.models import _base
+
+    model = ConstantHazards().fit(build_panel(tables, "2026-10"))
+    snapshot = build_snapshot(tables, "2026-10")
+    whole = model.hazard_array(snapshot, 6)
+    monkeypatch.setattr(_base, "_BLOCK_CUSTOMERS", 7)
+    np.testing.assert_array_equal(model.hazard_array(snapshot, 6), whole)

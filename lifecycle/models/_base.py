@@ -12,6 +12,7 @@ from ..panel import PanelLayout, panel_layout
 from ._competing import survival_and_incidence
 
 _SEASON_ANGLE = 2.0 * np.pi * np.arange(12) / 12.0
+_BLOCK_CUSTOMERS = 50_000
 
 
 class HazardModel(BaseEstimator):
@@ -126,8 +127,14 @@ class HazardModel(BaseEstimator):
             raise UsageError(
                 f"the snapshot lacks feature columns the model was fitted on: {missing}"
             )
-        future = future_rows(snapshot, horizon)
-        array = np.clip(self._hazard_array(future, len(snapshot), horizon), 0.0, 1.0)
+        # Customers in blocks, so that the repeated future rows (customers × horizon) of a
+        # large portfolio never sit in memory at once; each customer's hazards are its own.
+        blocks = []
+        for lo in range(0, max(len(snapshot), 1), _BLOCK_CUSTOMERS):
+            part = snapshot.iloc[lo : lo + _BLOCK_CUSTOMERS]
+            future = future_rows(part, horizon)
+            blocks.append(np.clip(self._hazard_array(future, len(part), horizon), 0.0, 1.0))
+        array = np.concatenate(blocks, axis=0)
         for j, cause in enumerate(self.causes_):
             holds = PanelLayout.at_risk_column(cause)
             if holds is not None and holds in snapshot:
