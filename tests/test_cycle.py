@@ -132,8 +132,10 @@ def test_same_seed_fresh_runs_give_byte_identical_outputs(tmp_path):
     for name in ("one", "two"):
         base = tmp_path / name
         paths = write_demo(base / "data", customers=600, seed=21)
-        text = paths["config"].read_text().replace(
-            'families = ["cox", "boosted"]', 'families = ["boosted"]'
+        text = (
+            paths["config"]
+            .read_text()
+            .replace('families = ["cox", "boosted"]', 'families = ["boosted"]')
         )
         paths["config"].write_text(text)
         result = run_cycle(base / "data", load_config(paths["config"]), as_of="2026-10")
