@@ -30,7 +30,7 @@ from ..data import Tables
 from ..errors import InputError, UsageError
 from ..spatial import local_move_rates, nearby_counts
 from ..spatial._areas import area_attributes
-from ..spatial._context import checked_radii, radius_label
+from ..spatial._context import adoption_columns, checked_radii, radius_label
 from ._remote import item, portable
 from ._tables import NEVER, PartitionedTables, Summary
 
@@ -217,16 +217,10 @@ def with_context(
         for r, radius in enumerate(radii):
             counts, slot = _counts_for(pieces, r, len(tables.customers))
             n_months = counts.shape[2]
-            flat = counts.reshape(-1)
             flat_row = slot[rows] * (n_q * n_months) + month_col
-            near = flat[flat_row]
-            label = radius_label(radius)
-            for k, product in enumerate(products):
-                adopters = flat[flat_row + (k + 1) * n_months]
-                share = np.zeros(len(rows), dtype=np.float32)
-                np.divide(adopters, near, out=share, where=near > 0, casting="unsafe")
-                new[f"nearby_adopters_{product}_{label}m"] = adopters
-                new[f"nearby_adoption_{product}_{label}m"] = share
+            new.update(
+                adoption_columns(counts.reshape(-1), flat_row, n_months, list(products), radius)
+            )
         new = {k: new[k] for k in [*map(str, attributes.columns), "local_move_rate", *nearby]}
     return pd.concat([frame, pd.DataFrame(new, index=frame.index)], axis=1)
 

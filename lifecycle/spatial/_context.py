@@ -161,6 +161,25 @@ def checked_radii(config: Config) -> list[float]:
     return radii
 
 
+def adoption_columns(
+    counts: np.ndarray, flat_row: np.ndarray, n_months: int, products: list[str], radius: float
+) -> dict[str, np.ndarray]:
+    """``nearby_adopters_<p>_<r>m`` and ``nearby_adoption_<p>_<r>m`` for the rows at
+    ``flat_row`` of flattened counts laid out (premise, quantity, month), quantity 0 being all
+    customers near and quantity k the holders of the k-th product; the share is 0 when nobody
+    is near."""
+    near = counts[flat_row]
+    label = radius_label(radius)
+    out: dict[str, np.ndarray] = {}
+    for k, product in enumerate(products):
+        adopters = counts[flat_row + (k + 1) * n_months]
+        share = np.zeros(len(flat_row), dtype=np.float32)
+        np.divide(adopters, near, out=share, where=near > 0, casting="unsafe")
+        out[f"nearby_adopters_{product}_{label}m"] = adopters
+        out[f"nearby_adoption_{product}_{label}m"] = share
+    return out
+
+
 def _nearby_names(products: list[str], radii: list[float]) -> list[str]:
     names = []
     for product in products:
@@ -264,15 +283,8 @@ def _nearby_columns(
     flat_row = slot[rows] * (n_q * n_months) + month_col
     for radius in radii:
         counts = nearby_counts(x[keep], y[keep], radius, intervals, n_months).reshape(-1)
-        near = counts[flat_row]
-        label = radius_label(radius)
-        for k, product in enumerate(products):
-            adopters = counts[flat_row + (k + 1) * n_months]
-            share = np.zeros(len(rows), dtype=np.float32)
-            np.divide(adopters, near, out=share, where=near > 0, casting="unsafe")
-            columns[f"nearby_adopters_{product}_{label}m"] = adopters
-            columns[f"nearby_adoption_{product}_{label}m"] = share
-        del counts, near
+        columns.update(adoption_columns(counts, flat_row, n_months, products, radius))
+        del counts
     return {name: columns[name] for name in _nearby_names(products, radii)}
 
 
