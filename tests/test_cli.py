@@ -66,3 +66,12 @@ def test_console_entry_point_runs():
         [sys.executable, "-m", "lifecycle", "no-such-step"], capture_output=True, text=True
     )
     assert done.returncode == 2
+
+
+def test_check_reports_premises_outside_every_area(data, capsys):
+    customers = pd.read_csv(data / "customers.csv", dtype=str)
+    customers.loc[2, "x"] = str(float(customers.loc[2, "x"]) + 1_000_000.0)
+    customers.to_csv(data / "customers.csv", index=False)
+    assert main(["check", str(data)]) == 2
+    err = capsys.readouterr().err
+    assert "customers" in err and customers.loc[2, "customer_id"] in err

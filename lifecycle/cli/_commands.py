@@ -47,8 +47,10 @@ def _load(args: argparse.Namespace):
 # check ---------------------------------------------------------------------------------------
 def _check_run(args: argparse.Namespace) -> None:
     from ..data import describe_tables
+    from ..spatial import premise_areas
 
-    tables, _ = _load(args)
+    tables, config = _load(args)
+    premise_areas(tables, config)  # every premise must lie in an area (or near one, if allowed)
     print(describe_tables(tables))
 
 
