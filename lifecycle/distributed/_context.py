@@ -27,10 +27,15 @@ import pandas as pd
 from .._months import categorical_to_index
 from ..config import Config
 from ..data import Tables
-from ..errors import InputError, UsageError
+from ..errors import UsageError
 from ..spatial import local_move_rates, nearby_counts
 from ..spatial._areas import area_attributes
-from ..spatial._context import adoption_columns, checked_radii, radius_label
+from ..spatial._context import (
+    adoption_columns,
+    check_context_names,
+    checked_radii,
+    radius_label,
+)
 from ._remote import item, portable
 from ._tables import NEVER, PartitionedTables, Summary
 
@@ -206,7 +211,7 @@ def with_context(
     attributes = area_attributes(tables)
     products = tuple(tables.products)
     nearby = nearby_names(products, radii)
-    _check_names(frame, [str(c) for c in attributes.columns], nearby)
+    check_context_names(frame, [str(c) for c in attributes.columns], nearby)
     area = summary.area[rows]
     new: dict[str, np.ndarray] = {}
     for name in attributes.columns:
@@ -248,15 +253,3 @@ def _local_positions(frame_ids: pd.Series, customer_ids: pd.Series) -> np.ndarra
     if (pos < 0).any():  # the rows were built from these tables: never happens
         raise RuntimeError("rows of customers not in their partition")
     return pos.astype(np.int64)
-
-
-def _check_names(frame: pd.DataFrame, attributes: list[str], nearby: list[str]) -> None:
-    for name in attributes:
-        if name in frame.columns or name == "local_move_rate" or name in nearby:
-            raise InputError(
-                table="areas",
-                column=name,
-                problem="has the name of a panel or spatial context column, so it cannot "
-                "become a feature",
-                fix="rename the area attribute in the areas file",
-            )

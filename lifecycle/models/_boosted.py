@@ -12,6 +12,7 @@ from threadpoolctl import threadpool_limits
 
 from ..errors import InputError, UsageError
 from ._base import HazardModel
+from ._design import finite_numbers
 from ._landmarks import block_first, in_customer_order
 
 log = logging.getLogger(__name__)
@@ -329,17 +330,7 @@ def _check_inputs(panel: pd.DataFrame, inputs: tuple[str, ...]) -> None:
                     fix="group rare levels together, or list the column in [panel] not_features",
                 )
         elif pd.api.types.is_bool_dtype(values) or pd.api.types.is_numeric_dtype(values):
-            numbers = values.to_numpy(dtype=np.float64, na_value=np.nan)
-            infinite = np.isinf(numbers)
-            if infinite.any():
-                raise InputError(
-                    table="panel",
-                    column=name,
-                    problem="the feature has infinite values",
-                    count=int(infinite.sum()),
-                    examples=panel["customer_id"].to_numpy()[infinite],
-                    fix="replace them with finite values or blanks",
-                )
+            finite_numbers(values, name, panel["customer_id"].to_numpy())
         else:
             raise InputError(
                 table="panel",

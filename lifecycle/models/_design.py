@@ -183,6 +183,12 @@ def _as_float(values: pd.Series, column: str) -> np.ndarray:
             count=len(values),
             fix="convert the column, or leave it out of the panel's features",
         )
+    return finite_numbers(values, column, np.arange(len(values)))
+
+
+def finite_numbers(values: pd.Series, column: str, ids: np.ndarray) -> np.ndarray:
+    """``values`` as float64 (NaN where missing), or `InputError` naming the rows (by ``ids``)
+    that hold an infinite value."""
     numbers = values.to_numpy(dtype=np.float64, na_value=np.nan)
     infinite = np.isinf(numbers)
     if infinite.any():
@@ -191,7 +197,7 @@ def _as_float(values: pd.Series, column: str) -> np.ndarray:
             column=column,
             problem="holds infinite values",
             count=int(infinite.sum()),
-            examples=np.flatnonzero(infinite),
+            examples=np.asarray(ids)[infinite],
             fix="replace them by a finite value or by a missing value",
         )
     return numbers

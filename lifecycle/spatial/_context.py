@@ -104,7 +104,7 @@ def add_spatial_context(
 
     attributes = area_attributes(tables)
     products = list(tables.products)
-    _check_names(panel, list(map(str, attributes.columns)), _nearby_names(products, radii))
+    check_context_names(panel, list(map(str, attributes.columns)), _nearby_names(products, radii))
 
     new: dict[str, np.ndarray] = {}
     area = area_positions(tables, config)
@@ -288,7 +288,7 @@ def _nearby_columns(
     return {name: columns[name] for name in _nearby_names(products, radii)}
 
 
-def _check_names(panel: pd.DataFrame, attributes: list[str], nearby: list[str]) -> None:
+def check_context_names(panel: pd.DataFrame, attributes: list[str], nearby: list[str]) -> None:
     """Refuse a second run, and area attributes that would shadow a panel or context column."""
     clash = [c for c in ["local_move_rate", *nearby] if c in panel.columns]
     if clash:
