@@ -75,3 +75,45 @@ def test_check_reports_premises_outside_every_area(data, capsys):
     assert main(["check", str(data)]) == 2
     err = capsys.readouterr().err
     assert "customers" in err and customers.loc[2, "customer_id"] in err
+
+
+def test_model_commands_on_a_small_demo(tmp_path, capsys):
+    """fit → score → plan → forecast → backtest from the command line, and a model file changed
+    after saving is refused (exit 2) with nothing written."""
+    from lifecycle.demo import write_demo
+
+    data = tmp_path / "demo"
+    write_demo(data, customers=600, seed=4)
+    model = tmp_path / "model"
+    common = [str(data), "--as-of", "2026-10"]
+    assert main(["fit", *common, "--family", "boosted", "--out", str(model)]) == 0
+    assert (model / "manifest.json").is_file()
+    assert main(["score", *common, "--model", str(model), "--out", str(tmp_path / "s.csv")]) == 0
+    scores = pd.read_csv(tmp_path / "s.csv")
+    assert {"survival_12m", "cif_churn_3m", "lifetime_value"} <= set(scores.columns)
+    assert main(["plan", *common, "--model", str(model), "--out", str(tmp_path / "p.csv")]) == 0
+    plan = pd.read_csv(tmp_path / "p.csv")
+    assert list(plan.columns) == [
+        "customer_id",
+        "offer",
+        "week",
+        "expected_value",
+        "cost",
+        "reasons",
+    ]
+    out = tmp_path / "f.csv"
+    assert main(["forecast", *common, "--model", str(model), "--out", str(out)]) == 0
+    forecast = pd.read_csv(out)
+    assert {"month", "area_id", "product", "expected", "lower_90", "upper_90"} <= set(forecast)
+    backtest = tmp_path / "b.csv"
+    args = ["backtest", *common, "--families", "boosted", "--horizons", "3", "--out", str(backtest)]
+    assert main(args) == 0
+    assert set(pd.read_csv(backtest)["family"]) == {"boosted", "life_table"}
+    capsys.readouterr()
+
+    with open(model / "model.joblib", "ab") as handle:
+        handle.write(b"\0")
+    refused = tmp_path / "refused.csv"
+    assert main(["score", *common, "--model", str(model), "--out", str(refused)]) == 2
+    assert "will not be loaded" in capsys.readouterr().err
+    assert not refused.exists()

@@ -167,16 +167,21 @@ def _score_arguments(p: argparse.ArgumentParser) -> None:
     p.add_argument("--horizons", default="3,6,12", help="months, comma-separated (3,6,12)")
 
 
-def _score_run(args: argparse.Namespace) -> None:
+def _scored(args: argparse.Namespace, **kwargs):
+    """Tables, config, model and the scored portfolio at ``--as-of`` (score, plan, forecast)."""
     from ..cycle import score_portfolio
     from ..models import load_model
 
     parse_month(args.as_of, what="--as-of")
-    horizons = _whole_numbers(args.horizons, "--horizons")
-    _check_table_path(args.out)
     model = load_model(args.model)
     tables, config = _load(args)
-    scored = score_portfolio(tables, model, args.as_of, config, horizons=horizons)
+    return tables, config, model, score_portfolio(tables, model, args.as_of, config, **kwargs)
+
+
+def _score_run(args: argparse.Namespace) -> None:
+    horizons = _whole_numbers(args.horizons, "--horizons")
+    _check_table_path(args.out)
+    _, _, _, scored = _scored(args, horizons=horizons)
     _write_table(args.out, scored.scores)
     print(f"wrote {args.out}: {len(scored.scores):,} customers")
 
@@ -237,14 +242,10 @@ def _decision_arguments(p: argparse.ArgumentParser) -> None:
 
 
 def _plan_run(args: argparse.Namespace) -> None:
-    from ..cycle import plan_contacts, score_portfolio
-    from ..models import load_model
+    from ..cycle import plan_contacts
 
-    parse_month(args.as_of, what="--as-of")
     _check_table_path(args.out, csv_only=True)
-    model = load_model(args.model)
-    tables, config = _load(args)
-    scored = score_portfolio(tables, model, args.as_of, config)
+    tables, config, model, scored = _scored(args)
     plan = plan_contacts(tables, model, scored, config)
     _write_table(args.out, plan.table)
     summary = plan.summary()
@@ -262,14 +263,10 @@ PLAN = Command(
 
 
 def _forecast_run(args: argparse.Namespace) -> None:
-    from ..cycle import forecast_portfolio, score_portfolio
-    from ..models import load_model
+    from ..cycle import forecast_portfolio
 
-    parse_month(args.as_of, what="--as-of")
     _check_table_path(args.out, csv_only=True)
-    model = load_model(args.model)
-    tables, config = _load(args)
-    scored = score_portfolio(tables, model, args.as_of, config)
+    tables, config, _, scored = _scored(args)
     forecast = forecast_portfolio(tables, scored, config)
     _write_table(args.out, forecast)
     print(f"wrote {args.out}: {len(forecast):,} rows")

@@ -1,6 +1,7 @@
 """The ``lifecycle`` command: a thin layer over the package's functions.
 
-Exit codes: 0 done; 2 bad input or usage (one message, nothing written); 1 an internal fault.
+Exit codes: 0 done; 2 bad input, usage or a refused model file (one message, nothing written);
+1 an internal fault.
 """
 
 from __future__ import annotations
@@ -11,7 +12,7 @@ import sys
 import traceback
 from collections.abc import Sequence
 
-from ..errors import InputError, LifecycleError, UsageError
+from ..errors import InputError, LifecycleError, ModelFileError, UsageError
 from . import _commands
 
 log = logging.getLogger("lifecycle")
@@ -40,7 +41,7 @@ def main(argv: Sequence[str] | None = None) -> int:
     logging.basicConfig(level=level, format="%(levelname)s %(name)s: %(message)s", force=True)
     try:
         args.run(args)
-    except (InputError, UsageError) as exc:
+    except (InputError, UsageError, ModelFileError) as exc:
         print(f"lifecycle {args.command}: {exc}", file=sys.stderr)
         return 2
     except LifecycleError as exc:
