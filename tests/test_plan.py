@@ -473,3 +473,15 @@ def test_plan_rows_carry_reasons_from_the_model():
             assert table.at[cid, "reasons"].endswith("in the last quarter")
         else:
             assert table.at[cid, "reasons"] == ""
+
+
+def test_reasons_leave_out_features_that_barely_move_the_hazard():
+    """Known hazard h = 0.01·exp(0.5·c) with reference c = 0: the effect's share of h is
+    1 − exp(−0.5·c), at least 0.5 exactly when c ≥ 2 ln 2 ≈ 1.39 (worked by hand)."""
+    model = known_truth_model()
+    snap = snapshot_frame(n=40)
+    reasons = top_reasons(
+        model, snap, "churn", reference={"complaints_3m": 0.0}, min_relative_effect=0.5
+    )
+    assert set(reasons.customer_id) == set(snap.customer_id[snap.complaints_3m >= 2])
+    assert set(snap.customer_id[snap.complaints_3m == 1])  # the case left out does occur

@@ -173,8 +173,13 @@ def top_reasons(
     *,
     reference: Mapping[str, Any] | None = None,
     phrases: Sequence[Phrase] = DEFAULT_PHRASES,
+    min_relative_effect: float = 0.05,
 ) -> pd.DataFrame:
     """Each customer's top ``k`` reasons: the features that raise its 1-month hazard most.
+
+    A feature's effect is ``h(x) − h(x with the feature at its reference)``; it is a reason
+    only when that is at least ``min_relative_effect`` of the customer's hazard ``h(x)``
+    (default 5 %), so that a row does not cite features that barely move its risk.
 
     Parameters
     ----------
@@ -231,7 +236,8 @@ def top_reasons(
             effects[np.array(causes) == "uptake_" + feature.removeprefix("holds_"), j] = 0.0
     order = np.argsort(-effects, axis=1, kind="stable")[:, :k]
     top = np.take_along_axis(effects, order, axis=1)
-    keep = top > 1e-12  # sorted, so the kept reasons of a row come first
+    floor = np.maximum(1e-12, min_relative_effect * base)[:, None]
+    keep = top >= floor  # sorted, so the kept reasons of a row come first
     i, r = np.nonzero(keep)
     if len(i) == 0:
         return _empty()
