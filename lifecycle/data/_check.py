@@ -23,9 +23,10 @@ import numpy as np
 import pandas as pd
 import pyproj
 
-from .._months import format_month, months_to_index
+from .._months import format_month
 from ..config import REASONS, Config
 from ..errors import InputError, UsageError
+from ._parse import blank, is_text, months, numbers, plain_index, static, text_ids
 from ._read import read_raw_tables
 from ._tables import RawTables, Tables
 
@@ -251,89 +252,6 @@ def _coordinate_columns(customers: pd.DataFrame, config: Config) -> tuple[str, s
     )
 
 
-# --- parsing helpers ---------------------------------------------------------------------------
-
-
-def _plain_index(frame: pd.DataFrame) -> pd.DataFrame:
-    """The frame indexed 0..n−1 (as read), without copying its columns."""
-    if isinstance(frame.index, pd.RangeIndex) and frame.index.start == 0 and frame.index.step == 1:
-        return frame
-    frame = frame.copy(deep=False)
-    frame.index = pd.RangeIndex(len(frame))
-    return frame
-
-
-def _is_text(values: pd.Series) -> bool:
-    return values.dtype == object or isinstance(values.dtype, pd.StringDtype | pd.CategoricalDtype)
-
-
-def _blank(values: pd.Series) -> np.ndarray:
-    """Missing values, and text that is empty or only spaces."""
-    blank = values.isna().to_numpy(dtype=bool)
-    if _is_text(values) and not blank.all():
-        codes, uniques = pd.factorize(values)
-        empty = np.array([isinstance(u, str) and not u.strip() for u in uniques], dtype=bool)
-        if empty.any():
-            blank |= np.append(empty, False)[codes]
-    return blank
-
-
-def _months(values: pd.Series) -> tuple[np.ndarray, np.ndarray]:
-    """`months_to_index`, parsing each distinct text once (a month column has few)."""
-    if not _is_text(values):
-        return months_to_index(values)
-    codes, uniques = pd.factorize(values)
-    parsed, bad = months_to_index(pd.Series(np.asarray(uniques, dtype=object), dtype=object))
-    return np.append(parsed, np.nan)[codes], np.append(bad, False)[codes]
-
-
-def _numbers(values: pd.Series) -> tuple[np.ndarray, np.ndarray]:
-    """``(float64 values, bad)``: ``bad`` marks values present but not a finite number."""
-    if pd.api.types.is_bool_dtype(values.dtype):
-        return values.to_numpy(dtype=np.float64, na_value=np.nan), np.zeros(len(values), bool)
-    if pd.api.types.is_numeric_dtype(values.dtype):
-        out = values.to_numpy(dtype=np.float64, na_value=np.nan)
-        return out, np.isinf(out)
-    codes, uniques = pd.factorize(values)
-    if len(uniques) <= len(values) // 2:  # few distinct texts: parse each once
-        parsed = _to_float(pd.Series(np.asarray(uniques, dtype=object), dtype=object))
-        out = np.append(parsed, np.nan)[codes]
-    else:
-        out = _to_float(values if values.dtype == object else values.astype(object))
-    bad = ~np.isfinite(out) & (codes >= 0)
-    if bad.any():
-        bad &= ~_blank(values)
-        out[~np.isfinite(out)] = np.nan
-    return out, bad
-
-
-def _to_float(values: pd.Series) -> np.ndarray:
-    return pd.to_numeric(values, errors="coerce").to_numpy(dtype=np.float64, na_value=np.nan)
-
-
-def _static(values: pd.Series) -> pd.Series:
-    """A static attribute: 0/1 flags as int8, numbers as float64, other text as string."""
-    if isinstance(values.dtype, pd.CategoricalDtype) or pd.api.types.is_datetime64_any_dtype(
-        values.dtype
-    ):
-        return values
-    numeric, bad = _numbers(values)
-    if bad.any() or (_is_text(values) and np.isnan(numeric).all() and values.notna().any()):
-        return values.astype("string")
-    if not np.isnan(numeric).any() and np.isin(numeric, (0.0, 1.0)).all() and len(numeric):
-        return pd.Series(numeric.astype(np.int8), index=values.index, name=values.name)
-    return pd.Series(numeric, index=values.index, name=values.name)
-
-
-def _text_ids(values: pd.Series) -> pd.Series:
-    """Ids as text, integral floats without ``.0``, for matching ids read with other types."""
-    if pd.api.types.is_float_dtype(values.dtype):
-        whole = values.notna() & (values % 1 == 0)
-        text = values.astype(object).where(~whole, values[whole].astype("int64"))
-        return text.astype(str).where(values.notna())
-    return values.astype(str).where(values.notna())
-
-
 @dataclass(frozen=True)
 class _Customers:
     """The checked customers, for looking up the rows of the other tables."""
@@ -365,9 +283,9 @@ class _Customers:
         else:
             pos = self.index.get_indexer(ids)
         if (pos < 0).any() and ids.dtype != self.ids.dtype:
-            text = pd.Index(_text_ids(self.ids))
+            text = pd.Index(text_ids(self.ids))
             if text.is_unique:
-                alt = text.get_indexer(_text_ids(ids))
+                alt = text.get_indexer(text_ids(ids))
                 if (alt >= 0).sum() > (pos >= 0).sum():
                     pos = alt
         if ids.dtype != self.ids.dtype and (pos >= 0).all():
@@ -381,18 +299,18 @@ class _Customers:
 def _check_customers(
     raw: pd.DataFrame, config: Config, extract: int, x_name: str, y_name: str
 ) -> tuple[pd.DataFrame, list[str]]:
-    raw = _plain_index(raw)
+    raw = plain_index(raw)
     if raw.empty:
         raise InputError(
             table="customers", column=None, problem="has no rows", fix="Export the customers"
         )
     report = _Report("customers", raw["customer_id"])
     ids = raw["customer_id"]
-    report.fail("customer_id", "is blank", _blank(ids))
+    report.fail("customer_id", "is blank", blank(ids))
     report.fail("customer_id", "is not unique", ids.duplicated(keep=False).to_numpy())
 
-    start, bad_start = _months(raw["start_month"])
-    end, bad_end = _months(raw["end_month"])
+    start, bad_start = months(raw["start_month"])
+    end, bad_end = months(raw["end_month"])
     report.fail("start_month", _not_month(raw["start_month"], bad_start), bad_start)
     report.fail("start_month", "is blank; every customer needs a start month", np.isnan(start))
     report.fail("end_month", _not_month(raw["end_month"], bad_end), bad_end)
@@ -415,7 +333,7 @@ def _check_customers(
         f"Give the reason ({', '.join(REASONS)}, or your code mapped in [reasons])",
     )
 
-    margin, bad = _numbers(raw["monthly_margin"])
+    margin, bad = numbers(raw["monthly_margin"])
     report.fail("monthly_margin", "is not a number", bad)
     report.fail("monthly_margin", "is blank", np.isnan(margin))
     report.fail("monthly_margin", "is negative", margin < 0)
@@ -435,9 +353,9 @@ def _check_customers(
     skip = set(REQUIRED_COLUMNS["customers"]) | set(_COORDINATES)
     static_columns = [c for c in raw.columns if c not in skip]
     for name in static_columns:
-        out[name] = _static(raw[name])
+        out[name] = static(raw[name])
         if name in FLAG_COLUMNS:
-            flag, _ = _numbers(raw[name])
+            flag, _ = numbers(raw[name])
             report.fail(
                 name,
                 "is a decision flag and must be 0 or 1 (blank is not allowed)",
@@ -461,7 +379,7 @@ def _end_reasons(values: pd.Series, config: Config, report: _Report) -> pd.Categ
         raise UsageError(f"[reasons] maps onto {wrong}; each must be one of {list(REASONS)}")
     mapping = {r: r for r in REASONS} | {str(k): v for k, v in config.reasons.items()}
     codes, uniques = pd.factorize(values)
-    texts = _text_ids(pd.Series(np.asarray(uniques, dtype=object), dtype=object))
+    texts = text_ids(pd.Series(np.asarray(uniques, dtype=object), dtype=object))
     texts = [str(t).strip() for t in texts]
     mapped = np.array([mapping.get(t, "" if t else None) for t in texts] + [None], dtype=object)
     unknown = np.array([m == "" for m in mapped], dtype=bool)
@@ -481,7 +399,7 @@ def _coordinates(
 ) -> tuple[np.ndarray, np.ndarray]:
     out = []
     for name, limit in ((x_name, 180.0), (y_name, 90.0)):
-        values, bad = _numbers(raw[name])
+        values, bad = numbers(raw[name])
         report.fail(name, "is not a number", bad)
         report.fail(name, "is blank; every customer needs premise coordinates", np.isnan(values))
         if name in ("lon", "lat"):
@@ -514,7 +432,7 @@ def _rows_of_customers(
         "Remove these rows, or add the customers",
     )
     report = _Report(table, ids)
-    month, bad = _months(raw["month"])
+    month, bad = months(raw["month"])
     report.fail("month", _not_month(raw["month"], bad), bad)
     report.fail("month", "is blank", np.isnan(month))
     report.fail(
@@ -542,9 +460,9 @@ def _empty(known: _Customers, text_columns: tuple[str, ...]) -> pd.DataFrame:
 
 
 def _check_uptakes(raw: pd.DataFrame, known: _Customers, extract: int) -> pd.DataFrame:
-    raw = _plain_index(raw)
+    raw = plain_index(raw)
     pos, ids, month, report = _rows_of_customers("uptakes", raw, known, extract)
-    report.fail("product", "is blank", _blank(raw["product"]))
+    report.fail("product", "is blank", blank(raw["product"]))
     product = raw["product"].astype(str)
     codes, _ = pd.factorize(product)
     report.fail(
@@ -562,7 +480,7 @@ def _check_activity(
 ) -> tuple[pd.DataFrame, list[str]]:
     if raw is None:
         return _empty(known, ()), []
-    raw = _plain_index(raw)
+    raw = plain_index(raw)
     pos, ids, month, report = _rows_of_customers("activity", raw, known, extract)
     report.fail(
         "month",
@@ -579,7 +497,7 @@ def _check_activity(
     columns = [c for c in raw.columns if c not in ("customer_id", "month")]
     data: dict[str, object] = {"customer_id": ids, "month": month}
     for name in columns:
-        values, bad = _numbers(raw[name])
+        values, bad = numbers(raw[name])
         if bad.any():
             report.fail(
                 name, f"is not a number, e.g. {_values_of(raw[name], bad, 3)}", bad,
@@ -592,9 +510,9 @@ def _check_activity(
 def _check_campaigns(raw: pd.DataFrame | None, known: _Customers, extract: int) -> pd.DataFrame:
     if raw is None:
         return _empty(known, ("offer", "arm"))
-    raw = _plain_index(raw)
+    raw = plain_index(raw)
     _, ids, month, report = _rows_of_customers("campaigns", raw, known, extract)
-    report.fail("offer", "is blank", _blank(raw["offer"]))
+    report.fail("offer", "is blank", blank(raw["offer"]))
     arm = raw["arm"].astype("string").str.strip()
     wrong = ~arm.isin(ARMS).to_numpy(dtype=bool)
     report.fail(
@@ -622,7 +540,7 @@ def _check_areas(raw: gpd.GeoDataFrame, config: Config) -> gpd.GeoDataFrame:
             table="areas", column="geometry", problem="is not a geometry column",
             fix="Give the areas as GeoPackage, GeoJSON or GeoParquet",
         )  # fmt: skip
-    areas = _plain_index(raw)
+    areas = plain_index(raw)
     if areas.geometry.name != "geometry":
         areas = areas.rename_geometry("geometry")
     if areas.empty:
@@ -642,7 +560,7 @@ def _check_areas(raw: gpd.GeoDataFrame, config: Config) -> gpd.GeoDataFrame:
                 f"[data] areas_crs was {config.areas_crs!r} but pyproj does not know it ({exc})"
             ) from None
     report = _Report("areas", areas["area_id"])
-    report.fail("area_id", "is blank", _blank(areas["area_id"]))
+    report.fail("area_id", "is blank", blank(areas["area_id"]))
     report.fail("area_id", "is not unique", areas["area_id"].duplicated(keep=False).to_numpy())
     geometry = areas.geometry
     report.fail("geometry", "is missing or empty", (geometry.isna() | geometry.is_empty).to_numpy())
@@ -661,8 +579,8 @@ def _check_areas(raw: gpd.GeoDataFrame, config: Config) -> gpd.GeoDataFrame:
             int(invalid.sum()), report.examples(invalid),
         )  # fmt: skip
     for name in areas.columns:
-        if name not in ("area_id", "geometry") and _is_text(areas[name]):
-            values, bad = _numbers(areas[name])
+        if name not in ("area_id", "geometry") and is_text(areas[name]):
+            values, bad = numbers(areas[name])
             if not bad.any() and not np.isnan(values).all():
                 areas[name] = values
     return areas
