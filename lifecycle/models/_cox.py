@@ -207,6 +207,14 @@ class CauseSpecificCox(HazardModel):
                             int(at_risk.sum()), 0)  # fmt: skip
             return fit, *empty
 
+        weights = np.ones(event.size)
+        if self.sample_fraction is not None and self.sample_fraction < 1:
+            # Sample first: every event row, and each other row with probability f, weighted
+            # 1/f; the covariates are then prepared on the sample only.
+            keep = event | (np.random.default_rng(seed).random(event.size) < self.sample_fraction)
+            rows = rows.iloc[np.flatnonzero(keep)]
+            start, stop, event = start[keep], stop[keep], event[keep]
+            weights = np.where(event, 1.0, 1.0 / self.sample_fraction)
         design = CovariateDesign()
         x = design.fit_transform(rows, self.features_)
         risk = RiskSets(start, stop, np.unique(stop[event]))
@@ -222,12 +230,6 @@ class CauseSpecificCox(HazardModel):
             )
             design.drop(names)
             x = x[:, ~flat]
-        weights = np.ones(event.size)
-        if self.sample_fraction is not None and self.sample_fraction < 1:
-            keep = event | (np.random.default_rng(seed).random(event.size) < self.sample_fraction)
-            x, start, stop, event = x[keep], start[keep], stop[keep], event[keep]
-            weights = np.where(event, 1.0, 1.0 / self.sample_fraction)
-            risk = RiskSets(start, stop, risk.times)
 
         if x.shape[1]:
             beta, cov = self._partial_likelihood(
