@@ -46,7 +46,7 @@ C_NUMBER = r"([a-z_]+) ([01]\.\d{4})"
 
 
 def test_suites_are_registered():
-    assert {"models", "decisions"} <= set(SUITES)
+    assert {"panel", "spatial", "models", "decisions", "cycle"} == set(SUITES)
 
 
 # -- models ----------------------------------------------------------------------------------
@@ -218,3 +218,27 @@ def test_scoring_bench_runs():
     assert m.suite == "decisions" and m.role == "ours"
     assert "checks hold" in m.note
     assert m.seconds > 0 and m.peak_mb > 0
+
+
+# -- the whole cycle ---------------------------------------------------------------------------
+def test_cycle_bench_routes_agree():
+    """The cycle suite at a tiny size: both routes run the whole cycle, and the checksums of
+    the scores, plan and forecast they wrote agree (rounded as printed); the goal lines are
+    computed from the two measured times."""
+    from lifecycle.bench import _cycle_goals, format_table
+    from lifecycle.bench._cycle import run_cycle_bench
+
+    prepared, single, dask = run_cycle_bench(customers=1500, workers=2)
+    assert (prepared.role, single.role, dask.role) == ("setup", "plain", "ours")
+    listed = int(re.search(r"([\d,]+) customers listed", prepared.note).group(1).replace(",", ""))
+    assert 1200 < listed < 1800  # about the customers asked for
+
+    def sums(note: str) -> list[str]:
+        return note.split("; ")[:5]
+
+    assert sums(single.note) == sums(dask.note)
+    assert "largest worker" in dask.note
+    goals = _cycle_goals([single, dask])
+    ratio = float(re.search(r"([\d.]+)× the time", goals[1]).group(1))
+    assert ratio == pytest.approx(dask.seconds / single.seconds, abs=0.006)
+    assert "whole-cycle goals" in format_table([single, dask])

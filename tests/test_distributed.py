@@ -9,6 +9,7 @@ scipy's KD-tree (`scipy.spatial.cKDTree.query_ball_point`).
 from __future__ import annotations
 
 import itertools
+import json
 import shutil
 
 import numpy as np
@@ -329,3 +330,32 @@ def test_a_running_scheduler_named_in_the_config(client, tmp_path):
         assert other.submit(sum, [1, 2]).result() == 3
         assert set(other.scheduler_info()["workers"]) == set(client.scheduler_info()["workers"])
     assert client.submit(sum, [3, 4]).result() == 7  # the cluster outlives the second client
+
+
+def test_the_monthly_cycle_on_the_cluster_writes_the_same_files(client, tmp_path):
+    """`run_cycle` with a client (scoring, offer values and forecast on the workers) writes
+    the scores, plan, forecast and key figures of the single-process run: the same rows,
+    numbers equal up to floating-point rounding. The second run reuses the first one's
+    backtest and model (same work folder), so both score with the same model."""
+    from lifecycle.cycle import run_cycle
+
+    folder = tmp_path / "data"
+    paths = write_demo(folder, customers=1500, seed=5)
+    text = (
+        paths["config"].read_text().replace('families = ["cox", "boosted"]', 'families = ["cox"]')
+    )
+    paths["config"].write_text(text)
+    config = load_config(paths["config"])
+    one = run_cycle(folder, config, reports=tmp_path / "one")
+    two = run_cycle(folder, config, reports=tmp_path / "two", client=client)
+    for name in ("scores", "plan", "forecast"):
+        a, b = pd.read_csv(one.files[name]), pd.read_csv(two.files[name])
+        pd.testing.assert_frame_equal(a, b, rtol=1e-9, atol=1e-9)
+    assert len(pd.read_csv(one.files["plan"])) > 0
+    figures = [json.loads(r.files["key_figures"].read_text()) for r in (one, two)]
+    assert figures[0].keys() == figures[1].keys()
+    for key, value in figures[0].items():
+        if isinstance(value, float):
+            assert figures[1][key] == pytest.approx(value, rel=1e-9, abs=1e-12), key
+        elif not isinstance(value, dict | list):
+            assert figures[1][key] == value, key

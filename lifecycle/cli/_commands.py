@@ -93,6 +93,31 @@ def _demo_arguments(p: argparse.ArgumentParser) -> None:
     p.add_argument("--customers", type=int, default=20_000, help="customers (default 20,000)")
     p.add_argument("--seed", type=int, default=7, help="random seed (default 7)")
     p.add_argument("--out", type=Path, default=Path("demo_panels"), help="where the data goes")
+    _workers_argument(p)
+
+
+def _workers_argument(p: argparse.ArgumentParser) -> None:
+    p.add_argument(
+        "--workers",
+        type=int,
+        help="score and forecast on a local Dask cluster of this many worker processes "
+        "(default: [compute] in the config, else one process)",
+    )
+
+
+def _cluster(config: Config, workers: int | None):
+    """A Dask client when ``--workers`` or the config's ``[compute]`` asks for one, else a
+    context giving ``None`` (everything in this process)."""
+    import contextlib
+
+    from ..distributed import compute_client, compute_settings
+
+    settings = compute_settings(config)
+    if workers is None and settings.scheduler is None and settings.workers is None:
+        return contextlib.nullcontext(None)
+    if workers is not None and workers < 1:
+        raise UsageError(f"--workers was {workers} but must be a whole number >= 1")
+    return compute_client(workers=workers, config=config)
 
 
 def _demo_run(args: argparse.Namespace) -> None:
@@ -105,16 +130,19 @@ def _demo_run(args: argparse.Namespace) -> None:
     print(f"demo data in {args.out}/ (true parameters in {paths['truth']})")
     last = parse_month(config.extract_month)
     # Two monthly runs, so that the second month's report judges the first month's predictions.
-    for month in (format_month(last - 1), format_month(last)):
-        _run_and_report(args.out, config, month, force=True)
+    with _cluster(config, args.workers) as client:
+        for month in (format_month(last - 1), format_month(last)):
+            _run_and_report(args.out, config, month, force=True, client=client)
 
 
-def _run_and_report(data: Path, config: Config, month: str | None, *, force: bool) -> None:
+def _run_and_report(
+    data: Path, config: Config, month: str | None, *, force: bool, client=None
+) -> None:
     from ..cycle import run_cycle
     from ._progress import steps_progress
 
     with steps_progress(f"month {month or 'latest'}") as step:
-        result = run_cycle(data, config, as_of=month, force=force, step=step)
+        result = run_cycle(data, config, as_of=month, force=force, step=step, client=client)
     print(f"month {result.month}: wrote {_shown(result.folder)}/")
     for name, path in result.files.items():
         print(f"  {name:<10} {_shown(path)}")
@@ -309,6 +337,7 @@ def _run_arguments(p: argparse.ArgumentParser) -> None:
     p.add_argument("--data", type=Path, help="the data (default: the config's folder)")
     p.add_argument("--as-of", help="the month to run (default: the extract month)")
     p.add_argument("--force", action="store_true", help="rewrite a month that was run already")
+    _workers_argument(p)
 
 
 def _run_run(args: argparse.Namespace) -> None:
@@ -316,7 +345,8 @@ def _run_run(args: argparse.Namespace) -> None:
         parse_month(args.as_of, what="--as-of")
     config = load_config(args.config)
     data = args.data or args.config.parent
-    _run_and_report(data, config, args.as_of, force=args.force)
+    with _cluster(config, args.workers) as client:
+        _run_and_report(data, config, args.as_of, force=args.force, client=client)
 
 
 RUN = Command("run", "the whole monthly cycle into reports/<YYYY-MM>/", _run_arguments, _run_run)

@@ -136,6 +136,7 @@ def run_cycle(
     reports: str | Path | None = None,
     force: bool = False,
     step: Step | None = None,
+    client=None,
 ) -> RunResult:
     """Run the monthly cycle for ``as_of`` (default: the extract month).
 
@@ -144,6 +145,11 @@ def run_cycle(
     value the offers, plan the contacts, forecast uptake, write the report, and append the
     month to the score history. ``step`` is called with the name of each step as it starts
     (for a progress display).
+
+    With a `distributed.Client` (`lifecycle.distributed.compute_client`), scoring, offer
+    values and the forecast run on its workers (`score_on_cluster`); the backtest, the fit,
+    the plan's optimisation and the report stay in this process. The files written are the
+    same up to floating-point rounding.
     """
     from ..data import load_tables, tables_as_of
     from ..evaluation import TenureLifeTable, backtest
@@ -155,6 +161,8 @@ def run_cycle(
         forecast_portfolio,
         panel_with_context,
         plan_contacts,
+        plan_offers,
+        score_on_cluster,
         score_portfolio,
     )
 
@@ -202,11 +210,19 @@ def run_cycle(
             work, fingerprint, month, panel, families, champions, settings.refit_months
         )
         tick("score")
-        scored = score_portfolio(tables, model, month, config)
+        offers = plan_offers(tables, config)
+        if client is None:
+            scored = score_portfolio(tables, model, month, config)
+            values = None
+        else:
+            scored, values, forecast = score_on_cluster(
+                client, tables, model, month, config, offers
+            )
         tick("plan")
-        plan = plan_contacts(tables, model, scored, config)
+        plan = plan_contacts(tables, model, scored, config, offers=offers, expected_values=values)
         tick("forecast")
-        forecast = forecast_portfolio(tables, scored, config)
+        if client is None:
+            forecast = forecast_portfolio(tables, scored, config)
         files = {
             "scores": write_csv_atomic(staging / "scores.csv", scored.scores),
             "plan": write_csv_atomic(staging / "contact_plan.csv", plan.table),
@@ -216,6 +232,7 @@ def run_cycle(
         summary = {
             "month": month,
             "customers_scored": len(scored.scores),
+            "panel_rows": len(panel),
             "champions": champions,
             "plan": plan.summary(),
             "data_sha256": fingerprint,

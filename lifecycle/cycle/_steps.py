@@ -16,6 +16,7 @@ import pandas as pd
 from .._months import categorical_to_index, format_month, parse_month
 from ..config import Config
 from ..data import Tables
+from ..errors import UsageError
 from ..models import HazardModel, score_customers
 from ..models._families import make_model
 from ..panel import build_panel, build_snapshot
@@ -66,7 +67,8 @@ class Scored:
     snapshot
         One row per customer present at the end of ``as_of`` (features for the next month).
     hazards
-        ``(n, T, K)`` monthly hazards for the next T months, causes in ``causes`` order.
+        ``(n, T, K)`` monthly hazards for the next T months, causes in ``causes`` order;
+        ``None`` when they stayed on a Dask cluster (`score_on_cluster`).
     causes
         Cause names (terminal, then uptake).
     scores
@@ -74,7 +76,7 @@ class Scored:
     """
 
     snapshot: pd.DataFrame
-    hazards: np.ndarray
+    hazards: np.ndarray | None
     causes: tuple[str, ...]
     n_terminal: int
     scores: pd.DataFrame
@@ -118,35 +120,58 @@ def _survival(hazards: np.ndarray, n_terminal: int) -> np.ndarray:
     return survival_from_hazards(hazards, n_terminal)
 
 
-def plan_contacts(tables: Tables, model: HazardModel, scored: Scored, config: Config):
+def plan_offers(tables: Tables, config: Config) -> tuple:
+    """The configured offers, with the hazard ratio of each offer that was tried in a past
+    campaign with a random hold-out replaced by the one estimated from it (logged)."""
+    from ..decisions import offers_from_config
+    from ..value import estimate_offer_effects
+
+    offers = offers_from_config(config)
+    return _with_estimated_effects(offers, estimate_offer_effects(tables, offers=offers))
+
+
+def plan_contacts(
+    tables: Tables,
+    model: HazardModel,
+    scored: Scored,
+    config: Config,
+    *,
+    offers: tuple | None = None,
+    expected_values: pd.DataFrame | None = None,
+):
     """The contact plan of the month after ``as_of`` (`lifecycle.decisions.Plan`).
 
-    Offer effects estimated from past campaigns with random hold-outs replace the configured
-    hazard ratios (logged); the expected values come from `lifecycle.value.offer_values`.
+    ``offers`` default to `plan_offers`; the expected values to `lifecycle.value.offer_values`
+    of the scored hazards (``expected_values``, computed elsewhere from the same hazards and
+    offers, e.g. on a cluster, may be given instead: ``customer_id``, ``offer``,
+    ``expected_value``).
     """
     from ..decisions import (
         last_contact_months,
         make_plan,
-        offers_from_config,
         phrases_from_config,
         plan_settings_from_config,
     )
-    from ..value import estimate_offer_effects, offer_values, value_settings
+    from ..value import offer_values, value_settings
 
-    offers = offers_from_config(config)
+    offers = plan_offers(tables, config) if offers is None else offers
     settings = plan_settings_from_config(config)
-    offers = _with_estimated_effects(offers, estimate_offer_effects(tables, offers=offers))
     values = value_settings(config)
     snapshot = scored.snapshot
-    ev = offer_values(
-        scored.hazards,
-        scored.causes,
-        snapshot["monthly_margin"].to_numpy(dtype=np.float64),
-        offers,
-        annual_discount=values.annual_discount,
-        horizon=values.horizon_months,
-        customer_ids=snapshot["customer_id"].to_numpy(),
-    )
+    if expected_values is not None:
+        ev = expected_values
+    elif scored.hazards is None:
+        raise UsageError("the hazards stayed on the cluster; give expected_values")
+    else:
+        ev = offer_values(
+            scored.hazards,
+            scored.causes,
+            snapshot["monthly_margin"].to_numpy(dtype=np.float64),
+            offers,
+            annual_discount=values.annual_discount,
+            horizon=values.horizon_months,
+            customer_ids=snapshot["customer_id"].to_numpy(),
+        )
     frame = snapshot.merge(scored.scores, on="customer_id", how="left")
     flags = [c for c in settings.exclude if c in tables.customers.columns]
     if flags:
@@ -203,6 +228,37 @@ def forecast_portfolio(tables: Tables, scored: Scored, config: Config) -> pd.Dat
         exact_max=settings.exact_max,
         customer_ids=ids.to_numpy(),
     )
+
+
+def score_on_cluster(
+    client, tables: Tables, model: HazardModel, as_of: str | int, config: Config, offers: tuple
+) -> tuple[Scored, pd.DataFrame, pd.DataFrame]:
+    """Scores, offer values and the uptake forecast computed on a Dask cluster.
+
+    The checked ``tables`` are split by customer and sent to the workers
+    (`lifecycle.distributed.distribute_tables`); each partition's snapshot, spatial context,
+    hazards, scores, lifetime values and offer values are computed there
+    (`lifecycle.distributed.score_portfolio`, `lifecycle.distributed.offer_values`), and the
+    forecast is reduced by area there (`lifecycle.distributed.forecast_portfolio`). Only the
+    snapshot, the scores, the offer values and the forecast come back; the hazards stay on
+    the workers (the result's ``hazards`` is ``None``). Each equals what `score_portfolio`,
+    `plan_contacts` and `forecast_portfolio` compute in this process (tested).
+    """
+    from .. import distributed as dist
+
+    data = dist.distribute_tables(client, tables, config=config)
+    remote = dist.score_portfolio(data, model, as_of)
+    values = dist.offer_values(remote, offers)
+    forecast = dist.forecast_portfolio(data, remote)
+    scored = Scored(
+        snapshot=remote.snapshot.gather(),
+        hazards=None,
+        causes=tuple(remote.causes),
+        n_terminal=remote.n_terminal,
+        scores=remote.scores.gather(),
+    )
+    expected = values.gather()[["customer_id", "offer", "expected_value"]]
+    return scored, expected, forecast
 
 
 def default_cutoffs(as_of: str | int, horizon: int, count: int = 2, step: int = 3) -> list[str]:

@@ -78,7 +78,9 @@ class DemoScenario:
     features: pd.DataFrame
 
 
-def simulate_demo(*, customers: int = 20_000, seed: int = 7, months: int = 48) -> DemoScenario:
+def simulate_demo(
+    *, customers: int = 20_000, seed: int = 7, months: int = 48, keep_features: bool = True
+) -> DemoScenario:
     """Simulate the demo scenario.
 
     Parameters
@@ -92,6 +94,10 @@ def simulate_demo(*, customers: int = 20_000, seed: int = 7, months: int = 48) -
     months
         Length of the panel window, ending at 2026-10. The simulation starts 12 months
         earlier so that every lagged feature is defined in the window.
+    keep_features
+        Keep the ``features`` table (customer-months with the true hazards). Without it,
+        ``features`` is empty and a large portfolio needs far less memory; the other tables
+        and the truth are the same.
 
     Returns
     -------
@@ -102,7 +108,7 @@ def simulate_demo(*, customers: int = 20_000, seed: int = 7, months: int = 48) -
     if not isinstance(seed, numbers.Integral) or isinstance(seed, bool) or seed < 0:
         raise UsageError(f"seed was {seed!r} but is expected to be a whole number >= 0")
     log.info("simulating the demo: %d customers, %d months, seed %d", customers, months, seed)
-    sim = simulate(customers, seed, months)
+    sim = simulate(customers, seed, months, keep_features=keep_features)
     tables = build_tables(sim)
     truth = build_truth(sim, customers=customers, seed=seed, months=months)
     return DemoScenario(
@@ -133,7 +139,7 @@ def write_demo(out_dir: str | Path, *, customers: int = 20_000, seed: int = 7) -
     """
     out = Path(out_dir)
     check_target(out)
-    scenario = simulate_demo(customers=customers, seed=seed)
+    scenario = simulate_demo(customers=customers, seed=seed, keep_features=False)
     check_target(out)  # the folder may have changed while simulating
     tables = {
         "customers": scenario.customers,

@@ -108,8 +108,16 @@ def linear_predictor(cause: str, x: dict[str, np.ndarray]) -> np.ndarray:
     return np.broadcast_to(np.asarray(total, dtype=np.float64), np.shape(x["season_sin"])).copy()
 
 
-def simulate(customers: int, seed: int, months: int) -> SimulationResult:
-    """Run the demo process for a portfolio of about ``customers`` customers."""
+def simulate(
+    customers: int, seed: int, months: int, *, keep_features: bool = True
+) -> SimulationResult:
+    """Run the demo process for a portfolio of about ``customers`` customers.
+
+    Without ``keep_features`` the per-customer-month features and hazards are not kept (the
+    result's ``features`` is empty): the input tables and the truth do not need them, and at
+    a million customers they are the largest part of the memory. The random draws, and so the
+    tables, are the same either way.
+    """
     streams = dict(zip(STREAMS, np.random.SeedSequence(seed).spawn(len(STREAMS)), strict=True))
     rng = {name: np.random.default_rng(s) for name, s in streams.items()}
     cal = calendar_for(months)
@@ -208,7 +216,7 @@ def simulate(customers: int, seed: int, months: int) -> SimulationResult:
         hist[active, 1:] = hist[active, :2]
         hist[active, 0] = values["complaints"]
 
-        if m >= cal.window_start:
+        if keep_features and m >= cal.window_start:
             feature_parts.append(_feature_row(active, m, x, cause, takes_up, effect, lam, lam_u))
 
         # --- the end of month m -------------------------------------------------------------
@@ -225,7 +233,7 @@ def simulate(customers: int, seed: int, months: int) -> SimulationResult:
         district=district,
         calendar=cal,
         activity=_stack(activity_parts),
-        features=_stack(feature_parts),
+        features=_stack(feature_parts) if feature_parts else {},
         campaigns=campaign,
         n_pairs=n_pairs,
     )

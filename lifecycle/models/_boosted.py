@@ -14,6 +14,7 @@ from ..errors import InputError, UsageError
 from ._base import HazardModel
 from ._design import finite_numbers
 from ._landmarks import block_first, in_customer_order
+from ._sampling import check_max_rows, non_event_share
 
 log = logging.getLogger(__name__)
 
@@ -57,6 +58,8 @@ class BoostedHazard(HazardModel):
     Large panels: with ``sample_fraction = f`` each classifier is fitted on all its event rows
     and a random fraction f of its non-event rows, the latter weighted ``1 / f``; the weighted
     log loss is then an unbiased estimate of the full panel's, so the hazards stay calibrated.
+    Without ``sample_fraction``, a classifier with more than ``max_rows`` rows at risk samples
+    its non-event rows the same way, with f chosen so that about ``max_rows`` rows are fitted.
 
     Early stopping holds out a random ``validation_fraction`` of the customers (all their
     months, so that a customer's correlated months never sit on both sides) and stops when the
@@ -70,7 +73,11 @@ class BoostedHazard(HazardModel):
     max_iter, learning_rate, max_leaf_nodes, min_samples_leaf, l2_regularization, max_depth
         Boosting settings, passed to every classifier.
     sample_fraction
-        ``None`` (every row) or the fraction in (0, 1] of non-event rows kept.
+        ``None`` (every row, up to ``max_rows``) or the fraction in (0, 1] of non-event rows
+        kept.
+    max_rows
+        Without ``sample_fraction``: the rows a classifier is fitted on at most, about (see
+        above); ``None`` never samples. Default 2,000,000.
     early_stopping
         ``"auto"`` (on when more than 10,000 rows are fitted), ``True`` or ``False``.
     validation_fraction, n_iter_no_change, tol
@@ -109,6 +116,7 @@ class BoostedHazard(HazardModel):
         l2_regularization: float = 1.0,
         max_depth: int | None = None,
         sample_fraction: float | None = None,
+        max_rows: int | None = 2_000_000,
         early_stopping: bool | str = "auto",
         validation_fraction: float = 0.15,
         n_iter_no_change: int = 15,
@@ -124,6 +132,7 @@ class BoostedHazard(HazardModel):
         self.l2_regularization = l2_regularization
         self.max_depth = max_depth
         self.sample_fraction = sample_fraction
+        self.max_rows = max_rows
         self.early_stopping = early_stopping
         self.validation_fraction = validation_fraction
         self.n_iter_no_change = n_iter_no_change
@@ -189,6 +198,7 @@ class BoostedHazard(HazardModel):
         f = self.sample_fraction
         if f is not None and not (isinstance(f, int | float) and 0 < f <= 1):
             raise UsageError(f"sample_fraction was {f!r} but is expected to be None or in (0, 1]")
+        check_max_rows(self.max_rows)
         h = self.horizon
         if h is not None and not (isinstance(h, int | np.integer) and h >= 1):
             raise UsageError(f"horizon was {h!r} but is expected to be None or a whole number >= 1")
@@ -206,21 +216,20 @@ class BoostedHazard(HazardModel):
                 f"validation_fraction was {self.validation_fraction!r} but must lie in (0, 1)"
             )
 
-    def _design(self, panel: pd.DataFrame, rng: np.random.Generator) -> pd.DataFrame:
-        """The inputs of every row: its own, or (with a horizon) a snapshot's at a random lag."""
+    def _design(self, panel: pd.DataFrame, rng: np.random.Generator) -> _Design:
+        """The inputs of every row: its own, or (with a horizon) a snapshot's at a random lag.
+
+        The rows are only gathered for the rows a classifier is fitted on (`_Design.rows`),
+        so a sampled fit never copies the whole panel's inputs.
+        """
         own = panel[["tenure_start", *self.features_]]
         if self.horizon is None:
-            return own
+            return _Design(own, None, None)
         position = np.arange(len(panel))
         first = block_first(pd.factorize(panel["customer_id"])[0])
         reach = np.minimum(position - first + 1, self.horizon)
         lag = 1 + np.floor(rng.random(len(panel)) * reach).astype(np.int64)
-        design = own.iloc[position - lag + 1].reset_index(drop=True)
-        for name in _ADVANCED:
-            if name in design:
-                design[name] = own[name].to_numpy()
-        design["month_ahead"] = lag.astype(np.int16)
-        return design
+        return _Design(own, position - lag + 1, lag.astype(np.int16))
 
     def _validation_rows(self, panel: pd.DataFrame, rng: np.random.Generator) -> np.ndarray:
         """Rows of a random ``validation_fraction`` of the customers."""
@@ -230,7 +239,7 @@ class BoostedHazard(HazardModel):
 
     def _classifier(
         self,
-        design: pd.DataFrame,
+        design: _Design,
         at_risk: np.ndarray,
         label: np.ndarray,
         validation: np.ndarray,
@@ -240,10 +249,12 @@ class BoostedHazard(HazardModel):
         """Fit one classifier on the rows at risk (sampled), or ``None`` without events."""
         keep = at_risk.copy()
         weight = np.ones(len(design))
-        if self.sample_fraction is not None and self.sample_fraction < 1:
-            drawn = rng.random(len(design)) < self.sample_fraction
+        n_events = int((label[at_risk] > 0).sum())
+        share = non_event_share(self.sample_fraction, self.max_rows, int(keep.sum()), n_events)
+        if share < 1:
+            drawn = rng.random(len(design)) < share
             keep &= (label > 0) | drawn
-            weight[label == 0] = 1.0 / self.sample_fraction
+            weight[label == 0] = 1.0 / share
         stop = self.early_stopping
         if stop == "auto":
             stop = int(keep.sum()) > 10_000
@@ -270,7 +281,7 @@ class BoostedHazard(HazardModel):
             tol=self.tol,
             random_state=None if self.random_state is None else int(rng.integers(2**31 - 1)),
         )
-        x = design.loc[fit_rows]
+        x = design.rows(fit_rows)
         if val_rows is None or not val_rows.any():
             if stop:
                 model.set_params(early_stopping=False)
@@ -280,7 +291,7 @@ class BoostedHazard(HazardModel):
                 x,
                 label[fit_rows],
                 sample_weight=weight[fit_rows],
-                X_val=design.loc[val_rows],
+                X_val=design.rows(val_rows),
                 y_val=val_label[val_rows],
                 sample_weight_val=weight[val_rows],
             )
@@ -340,3 +351,30 @@ def _check_inputs(panel: pd.DataFrame, inputs: tuple[str, ...]) -> None:
                 count=len(values),
                 fix="convert text columns to pandas categoricals (build_panel does)",
             )
+
+
+class _Design:
+    """The classifiers' inputs of each panel row, gathered on demand.
+
+    Without lags (``source is None``) a row's inputs are its own columns. With lags, row i
+    takes the columns of row ``source[i]`` (its snapshot, ``lag[i] − 1`` months earlier), except
+    tenure and season, which stay row i's own, and ``month_ahead = lag[i]``.
+    """
+
+    def __init__(self, own: pd.DataFrame, source: np.ndarray | None, lag: np.ndarray | None):
+        self.own, self.source, self.lag = own, source, lag
+
+    def __len__(self) -> int:
+        return len(self.own)
+
+    def rows(self, mask: np.ndarray) -> pd.DataFrame:
+        """The inputs of the rows where ``mask`` is true, in panel order."""
+        where = np.flatnonzero(mask)
+        if self.source is None:
+            return self.own.iloc[where].reset_index(drop=True)
+        out = self.own.iloc[self.source[where]].reset_index(drop=True)
+        for name in _ADVANCED:
+            if name in out:
+                out[name] = self.own[name].to_numpy()[where]
+        out["month_ahead"] = self.lag[where]
+        return out

@@ -19,6 +19,7 @@ from ..errors import InputError, UsageError
 from ..panel import PanelLayout
 from ._base import HazardModel
 from ._design import CovariateDesign
+from ._sampling import check_max_rows, non_event_share
 
 log = logging.getLogger(__name__)
 
@@ -101,7 +102,12 @@ class CauseSpecificCox(HazardModel):
         weighted ``1 / sample_fraction``, so that the weighted partial likelihood and the
         baseline estimate those of the full fit. Standard errors are then the model-based
         ones of the weighted fit (they approximate the full fit's and leave out the extra
-        variance of the sampling). ``None`` uses every row.
+        variance of the sampling). ``None``: every row, unless a cause has more than
+        ``max_rows`` rows at risk.
+    max_rows : int or None, default 1,500,000
+        Without ``sample_fraction``, a cause with more rows at risk than this is fitted on
+        all its event rows and a weighted random share of the others, so that about
+        ``max_rows`` rows are used (`lifecycle.models._sampling`); ``None`` never samples.
     random_state : int or None, default 0
         Seed of the row sampling; the same seed gives the same fit.
 
@@ -131,10 +137,12 @@ class CauseSpecificCox(HazardModel):
         *,
         penalizer: float = 0.0,
         sample_fraction: float | None = None,
+        max_rows: int | None = 1_500_000,
         random_state: int | None = 0,
     ) -> None:
         self.penalizer = penalizer
         self.sample_fraction = sample_fraction
+        self.max_rows = max_rows
         self.random_state = random_state
 
     # -- fitting ------------------------------------------------------------------------------
@@ -182,6 +190,7 @@ class CauseSpecificCox(HazardModel):
             isinstance(f, bool) or not isinstance(f, numbers.Real) or not 0 < f <= 1
         ):
             raise UsageError(f"sample_fraction was {f!r} but is expected to be None or in (0, 1]")
+        check_max_rows(self.max_rows)
         r = self.random_state
         if r is not None and (isinstance(r, bool) or not isinstance(r, numbers.Integral) or r < 0):
             raise UsageError(f"random_state was {r!r} but is expected to be None or an int >= 0")
@@ -208,13 +217,14 @@ class CauseSpecificCox(HazardModel):
             return fit, *empty
 
         weights = np.ones(event.size)
-        if self.sample_fraction is not None and self.sample_fraction < 1:
+        share = non_event_share(self.sample_fraction, self.max_rows, event.size, int(event.sum()))
+        if share < 1:
             # Sample first: every event row, and each other row with probability f, weighted
             # 1/f; the covariates are then prepared on the sample only.
-            keep = event | (np.random.default_rng(seed).random(event.size) < self.sample_fraction)
+            keep = event | (np.random.default_rng(seed).random(event.size) < share)
             rows = rows.iloc[np.flatnonzero(keep)]
             start, stop, event = start[keep], stop[keep], event[keep]
-            weights = np.where(event, 1.0, 1.0 / self.sample_fraction)
+            weights = np.where(event, 1.0, 1.0 / share)
         design = CovariateDesign()
         x = design.fit_transform(rows, self.features_)
         risk = RiskSets(start, stop, np.unique(stop[event]))
