@@ -117,3 +117,35 @@ def test_model_commands_on_a_small_demo(tmp_path, capsys):
     assert main(["score", *common, "--model", str(model), "--out", str(refused)]) == 2
     assert "will not be loaded" in capsys.readouterr().err
     assert not refused.exists()
+
+
+def test_run_with_workers_on_a_local_cluster(tmp_path, capsys):
+    """``lifecycle run --workers 2`` scores on a local Dask cluster and writes the month; its
+    scores equal those of a run in one process (the same seeded backtest and fit)."""
+    from lifecycle.demo import write_demo
+
+    paths = write_demo(tmp_path / "data", customers=600, seed=3)
+    config = paths["config"]
+    text = config.read_text().replace('families = ["cox", "boosted"]', 'families = ["cox"]')
+    config.write_text(text.replace('reports = "../reports"', 'reports = "../one"'))
+    assert main(["run", "--config", str(config)]) == 0
+    config.write_text(text.replace('reports = "../reports"', 'reports = "../two"'))
+    assert main(["run", "--config", str(config), "--workers", "2"]) == 0
+    one = pd.read_csv(tmp_path / "one" / "2026-10" / "scores.csv")
+    two = pd.read_csv(tmp_path / "two" / "2026-10" / "scores.csv")
+    pd.testing.assert_frame_equal(one, two, rtol=1e-9, atol=1e-12)
+    capsys.readouterr()
+    assert main(["run", "--config", str(config), "--workers", "0", "--force"]) == 2
+    assert "--workers was 0" in capsys.readouterr().err
+
+
+def test_compute_section_names_a_cluster_for_run(tmp_path, capsys):
+    """``[compute]`` with an unknown setting is refused before any work (exit 2)."""
+    from lifecycle.demo import write_demo
+
+    paths = write_demo(tmp_path / "data", customers=500, seed=3)
+    config = paths["config"]
+    config.write_text(config.read_text() + "\n[compute]\nthreads = 4\n")
+    assert main(["run", "--config", str(config)]) == 2
+    assert "[compute] has unknown setting(s) ['threads']" in capsys.readouterr().err
+    assert not (tmp_path / "reports").exists()

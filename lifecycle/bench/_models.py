@@ -78,8 +78,20 @@ def model_cases(
             {"sample_fraction": cox_sample_fraction},
             "ours",
         ),
-        Case("cox_full", "Cox, every row", "cox", {"sample_fraction": None}, "plain"),
-        Case("boosted", "boosted, every row", "boosted", {"sample_fraction": None}, "ours"),
+        Case(
+            "cox_full",
+            "Cox, every row",
+            "cox",
+            {"sample_fraction": None, "max_rows": None},
+            "plain",
+        ),
+        Case(
+            "boosted",
+            "boosted, every row",
+            "boosted",
+            {"sample_fraction": None, "max_rows": None},
+            "ours",
+        ),
         Case(
             "boosted_sampled",
             f"boosted, weighted sample f={boosted_sample_fraction:g}",
