@@ -222,7 +222,7 @@ class BoostedHazard(HazardModel):
         The rows are only gathered for the rows a classifier is fitted on (`_Design.rows`),
         so a sampled fit never copies the whole panel's inputs.
         """
-        own = panel[["tenure_start", *self.features_]]
+        own = _Columns(panel, ["tenure_start", *self.features_])  # not a copy of the panel
         if self.horizon is None:
             return _Design(own, None, None)
         position = np.arange(len(panel))
@@ -361,7 +361,7 @@ class _Design:
     tenure and season, which stay row i's own, and ``month_ahead = lag[i]``.
     """
 
-    def __init__(self, own: pd.DataFrame, source: np.ndarray | None, lag: np.ndarray | None):
+    def __init__(self, own: _Columns, source: np.ndarray | None, lag: np.ndarray | None):
         self.own, self.source, self.lag = own, source, lag
 
     def __len__(self) -> int:
@@ -371,10 +371,28 @@ class _Design:
         """The inputs of the rows where ``mask`` is true, in panel order."""
         where = np.flatnonzero(mask)
         if self.source is None:
-            return self.own.iloc[where].reset_index(drop=True)
-        out = self.own.iloc[self.source[where]].reset_index(drop=True)
+            return self.own.take(where)
+        out = self.own.take(self.source[where])
         for name in _ADVANCED:
             if name in out:
-                out[name] = self.own[name].to_numpy()[where]
+                out[name] = self.own.column(name)[where]
         out["month_ahead"] = self.lag[where]
         return out
+
+
+class _Columns:
+    """Some columns of a panel, read without copying the panel: rows are taken on demand."""
+
+    def __init__(self, panel: pd.DataFrame, names: list[str]) -> None:
+        self.panel, self.names = panel, names
+        self.positions = [panel.columns.get_loc(name) for name in names]
+
+    def __len__(self) -> int:
+        return len(self.panel)
+
+    def take(self, rows: np.ndarray) -> pd.DataFrame:
+        """The columns at row positions ``rows``, as a new frame indexed 0..len(rows) − 1."""
+        return self.panel.iloc[rows, self.positions].reset_index(drop=True)
+
+    def column(self, name: str) -> np.ndarray:
+        return self.panel[name].to_numpy()

@@ -204,9 +204,9 @@ class CauseSpecificCox(HazardModel):
         seed: np.random.SeedSequence,
     ) -> tuple[_CauseFit, pd.DataFrame, pd.DataFrame]:
         at_risk = _at_risk(panel, cause)
-        event = _event_flags(panel, cause)[at_risk]
-        rows = panel.loc[at_risk] if not at_risk.all() else panel
-        start, stop = start[at_risk], stop[at_risk]
+        positions = np.flatnonzero(at_risk)  # rows are taken from the panel once, below
+        event = _event_flags(panel, cause)[positions]
+        start, stop = start[positions], stop[positions]
         months = int(np.ceil(stop.max())) if stop.size else 0
         empty = (_stack([], _COEF_COLUMNS), _stack([], _PH_COLUMNS))
         if not event.any():
@@ -222,9 +222,10 @@ class CauseSpecificCox(HazardModel):
             # Sample first: every event row, and each other row with probability f, weighted
             # 1/f; the covariates are then prepared on the sample only.
             keep = event | (np.random.default_rng(seed).random(event.size) < share)
-            rows = rows.iloc[np.flatnonzero(keep)]
+            positions = positions[keep]
             start, stop, event = start[keep], stop[keep], event[keep]
             weights = np.where(event, 1.0, 1.0 / share)
+        rows = panel if positions.size == len(panel) else panel.iloc[positions]
         design = CovariateDesign()
         x = design.fit_transform(rows, self.features_)
         risk = RiskSets(start, stop, np.unique(stop[event]))
