@@ -139,7 +139,7 @@ def test_run_with_workers_on_a_local_cluster(tmp_path, capsys):
     assert "--workers was 0" in capsys.readouterr().err
 
 
-def test_compute_section_names_a_cluster_for_run(tmp_path, capsys):
+def test_an_unknown_compute_setting_is_refused_before_any_work(tmp_path, capsys):
     """``[compute]`` with an unknown setting is refused before any work (exit 2)."""
     from lifecycle.demo import write_demo
 
