@@ -149,3 +149,17 @@ def test_an_unknown_compute_setting_is_refused_before_any_work(tmp_path, capsys)
     assert main(["run", "--config", str(config)]) == 2
     assert "[compute] has unknown setting(s) ['threads']" in capsys.readouterr().err
     assert not (tmp_path / "reports").exists()
+
+
+def test_compute_workers_in_the_config_start_a_cluster_without_the_option(tmp_path, capsys):
+    """``[compute] workers = 1`` alone makes ``lifecycle run`` score on a local cluster: the
+    log names the cluster it starts, and the month is written."""
+    from lifecycle.demo import write_demo
+
+    paths = write_demo(tmp_path / "data", customers=500, seed=4)
+    config = paths["config"]
+    text = config.read_text().replace('families = ["cox", "boosted"]', 'families = ["cox"]')
+    config.write_text(text + "\n[compute]\nworkers = 1\n")
+    assert main(["-v", "run", "--config", str(config)]) == 0
+    assert "starting a local Dask cluster of 1 worker process(es)" in capsys.readouterr().err
+    assert (tmp_path / "reports" / "2026-10" / "scores.csv").is_file()
