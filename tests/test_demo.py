@@ -177,6 +177,27 @@ def test_areas_file_and_premises(small_dir):
     assert (lon > -34).all() and (lon < -32).all() and (lat > 39).all() and (lat < 41).all()
 
 
+def test_place_names_are_coined(small_dir):
+    """The district and area names are coined: none is the city of a time zone in the IANA
+    database (a weak outside list of real places, but one that can fail), and every area name is
+    one of our coined stems with a common word."""
+    import zoneinfo
+
+    from lifecycle.demo import _geography, _params
+
+    cities = {
+        part.replace("_", " ").lower()
+        for zone in zoneinfo.available_timezones()
+        for part in zone.split("/")[1:]
+    }
+    assert len(cities) > 300  # the database is there
+    names = gpd.read_file(small_dir / "areas.geojson")["area_name"]
+    stems = {name.rsplit(" ", 1)[0] for name in names}
+    assert stems <= set(_geography._STEMS)
+    for name in (*_geography._STEMS, _params.DISTRICT):
+        assert name.lower() not in cities, name
+
+
 # --- table sanity ----------------------------------------------------------------------------
 
 

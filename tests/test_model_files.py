@@ -99,3 +99,18 @@ def test_hazards_predicted_in_blocks_equal_one_block(tables, monkeypatch):
     whole = model.hazard_array(snapshot, 6)
     monkeypatch.setattr(_base, "_BLOCK_CUSTOMERS", 7)
     np.testing.assert_array_equal(model.hazard_array(snapshot, 6), whole)
+
+
+def test_manifest_records_the_published_distribution_version():
+    """The distribution is published under a name of its own ("lifecycle" on the package index
+    is an unrelated project), and the manifest looks its version up under that name."""
+    import tomllib
+    from importlib import metadata
+    from pathlib import Path
+
+    import lifecycle
+    from lifecycle.models._persist import DISTRIBUTION, _versions
+
+    project = tomllib.loads((Path(__file__).parents[1] / "pyproject.toml").read_text())
+    assert project["project"]["name"] == DISTRIBUTION != "lifecycle"
+    assert metadata.version(DISTRIBUTION) == lifecycle.__version__ == _versions()["lifecycle"]

@@ -42,7 +42,7 @@ def grid_areas(order=None) -> gpd.GeoDataFrame:
             "area_id": ["Q1", "Q2", "Q3", "Q4"],
             "rental_share": [0.1, 0.2, 0.3, 0.4],
             "flats": [10, 20, 30, 40],
-            "area_name": ["Ashmoor", "Brindle", "Cobhaven", "Dunwick"],  # invented
+            "area_name": ["Aldrevosk", "Brisquenna", "Corvallune", "Dunquessil"],  # coined
         },
         geometry=[
             box(X0, Y0, X0 + 1000, Y0 + 1000),

@@ -16,10 +16,12 @@ import shapely
 from . import _params as P
 
 _STEMS = (
-    "Ashcombe", "Brevick", "Calloway", "Dunmere", "Elsworth", "Fallowby", "Gorrand", "Hesketh",
-    "Ivell", "Jorrow", "Kestle", "Lantry", "Morwen", "Nethercote", "Orrick", "Pellow",
-    "Quarrend", "Rossel", "Skerrow", "Tollan", "Ulvery", "Vennick", "Wendle", "Yarrowby",
+    "Aldrevosk", "Brisquenna", "Corvallune", "Dunquessil", "Elvrathen", "Fernovask", "Grellantor",
+    "Hallowquine", "Istravell", "Jonquivar", "Korrimvale", "Lessivarn", "Mortquellan", "Nevristow",
+    "Osquarrow", "Pellinvask", "Quorrenby", "Rastlewyn", "Sorvennick", "Trevasquel", "Ulvassen",
+    "Vosquarry", "Wyvrenoth", "Yssolmere",
 )  # fmt: skip
+# Coined stems (no real place is meant); the suffixes are common words.
 _SUFFIXES = ("Quay", "Rise", "Green", "Fields", "Row", "Hill", "Strand", "Cross")
 
 

@@ -13,8 +13,8 @@ from dataclasses import dataclass
 
 import numpy as np
 
-PROVIDER = "Brannockmere Community Broadband Co-operative"
-DISTRICT = "Brannockmere"
+PROVIDER = "Brenvaskmere Community Broadband Co-operative"
+DISTRICT = "Brenvaskmere"
 PRODUCT = "backup_line"
 PRODUCT_DESCRIPTION = "4G backup-line add-on: a mobile-data line that takes over during outages"
 CUSTOMER_PREFIX = "BM"

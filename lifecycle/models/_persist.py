@@ -21,6 +21,9 @@ from ._base import HazardModel
 
 MANIFEST = "manifest.json"
 MODEL_FILE = "model.joblib"
+# The distribution is published as "lifecycle-hazards" ("lifecycle" on the package index is
+# an unrelated project); the manifest records its version under the import name.
+DISTRIBUTION = "lifecycle-hazards"
 _LIBRARIES = (
     "lifecycle",
     "numpy",
@@ -44,7 +47,7 @@ def _versions() -> dict[str, str]:
     out = {"python": platform.python_version()}
     for name in _LIBRARIES:
         try:
-            out[name] = metadata.version(name)
+            out[name] = metadata.version(DISTRIBUTION if name == "lifecycle" else name)
         except metadata.PackageNotFoundError:
             out[name] = "not installed"
     return out
