@@ -1,36 +1,9 @@
 """Settings from ``lifecycle.toml``.
 
-The file is optional; every setting has a default. Its format, section by section::
-
-    [data]
-    extract_month = "2026-11"        # last month the data covers (default: this calendar month)
-    premise_crs = "EPSG:32625"       # CRS of the x, y columns (not needed with lon, lat)
-    areas_crs = "EPSG:32625"         # only for areas read from DuckDB as WKT text
-
-    [tables]                         # where each table is, relative to the data folder
-    customers = "customers.csv"      # default: <name>.csv / .parquet, areas.gpkg / .geojson /
-    areas = "areas.gpkg"             # .parquet, or the DuckDB table/view of that name
-
-    [columns.customers]              # our name = your name, for any table of the contract
-    customer_id = "account_no"
-    end_reason = "leave_code"
-
-    [reasons]                        # your end-reason codes onto ours (churn, move_out, other)
-    SW = "churn"
-    MV = "move_out"
-
-    [panel]
-    window_months = 48               # months of history in the panel, ending at as_of
-    not_features = ["do_not_contact", "hardship"]   # customer columns kept out of models
-    trailing_sums = { complaints = 3 }              # activity column = months summed, lagged
-
-    [spatial]
-    radii_m = [400]                  # nearby-adoption radii in metres (boundary inclusive)
-    distance_crs = ""                # projected CRS for distances; default: premise CRS if
-                                     # projected, else the UTM zone of the premises
-    nearest_area_max_m = 0           # > 0: a premise outside every area takes the nearest area
-                                     # within this distance instead of being an error
-    move_rate_months = 12            # trailing window of the local move rate
+The file is optional; every setting has a default. ``lifecycle settings`` prints every section
+and key with its kind, default and meaning (generated from the one schema in
+`lifecycle._settings_keys`); `load_config` checks the whole file against that schema, and each
+stage's own rules, before any work.
 """
 
 from __future__ import annotations
@@ -41,13 +14,14 @@ from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
 
+from . import _settings
 from ._months import parse_month
+from ._settings_keys import REASONS as REASONS
+from ._settings_keys import SECTIONS
+from ._settings_keys import TABLE_NAMES as TABLE_NAMES
 from .errors import UsageError
 
-__all__ = ["Config", "load_config"]
-
-TABLE_NAMES = ("customers", "activity", "uptakes", "areas", "campaigns")
-REASONS = ("churn", "move_out", "other")
+__all__ = ["Config", "load_config", "setting"]
 
 
 @dataclass(frozen=True)
@@ -88,22 +62,40 @@ class Config:
         return today.year * 12 + today.month - 1
 
 
-def _section(raw: dict[str, Any], name: str, allowed: set[str], path: Path) -> dict[str, Any]:
-    section = raw.get(name, {})
-    if not isinstance(section, dict):
-        raise UsageError(f"{path}: [{name}] must be a table of settings")
-    unknown = sorted(set(section) - allowed)
-    if unknown:
-        raise UsageError(
-            f"{path}: [{name}] has unknown setting(s) {unknown}; allowed are {sorted(allowed)}"
-        )
-    return section
+def setting(config: Config | None, key: str) -> Any:
+    """One setting by its dotted name (``"value.horizon_months"``): the file's value, else the
+    schema's default (``None`` where there is none)."""
+    return _settings.setting(config.raw if config else {}, SECTIONS, key)
+
+
+def section(config: Config | None, name: str) -> dict[str, Any]:
+    """The section ``name`` (dotted, e.g. ``"models.cox"``) of ``config``, checked against the
+    schema (a config built in Python has not been through `load_config`); ``{}`` if absent."""
+    raw = config.raw if config else {}
+    table: Any = raw
+    for part in name.split("."):
+        table = table.get(part, {}) if isinstance(table, dict) else table
+    nested: Any = table
+    for part in reversed(name.split(".")):
+        nested = {part: nested}
+    source = str(config.source) if config and config.source else "config"
+    _settings.validate(nested, SECTIONS, source)
+    return dict(table)
+
+
+def settings_template(*, examples: bool = False) -> str:
+    """The documented ``lifecycle.toml`` of every setting (what ``lifecycle settings`` prints);
+    keys without a default are commented out unless ``examples``."""
+    return _settings.template(SECTIONS, examples=examples)
 
 
 def load_config(path: str | Path | None) -> Config:
     """Read a ``lifecycle.toml``; ``None`` gives the defaults.
 
-    Raises `UsageError` naming the file and the setting when something is malformed.
+    The whole file is checked before anything else: against the schema (unknown section or
+    key, wrong kind, out-of-range value, required key missing), then each stage's own rules
+    across settings (offers, reason phrases, the run's paths). Raises `UsageError` naming the
+    file, the section, the key, the value given and what is allowed.
     """
     if path is None:
         return Config()
@@ -114,38 +106,47 @@ def load_config(path: str | Path | None) -> Config:
         raw = tomllib.loads(path.read_text(encoding="utf-8"))
     except (tomllib.TOMLDecodeError, UnicodeDecodeError) as exc:
         raise UsageError(f"{path} is not valid TOML: {exc}") from None
-    # Later stages (models, offers, report, ...) read their own sections.
-    data = _section(raw, "data", {"extract_month", "premise_crs", "areas_crs"}, path)
-    tables = _section(raw, "tables", set(TABLE_NAMES), path)
-    columns = _section(raw, "columns", set(TABLE_NAMES), path)
-    reasons = raw.get("reasons", {})
-    bad = {k: v for k, v in reasons.items() if v not in REASONS}
-    if bad:
-        raise UsageError(f"{path}: [reasons] maps onto {bad}; each must be one of {list(REASONS)}")
-    panel = _section(raw, "panel", {"window_months", "not_features", "trailing_sums"}, path)
-    spatial = _section(
-        raw, "spatial", {"radii_m", "distance_crs", "nearest_area_max_m", "move_rate_months"}, path
-    )
+    _settings.validate(raw, SECTIONS, str(path))
+    data, panel, spatial = raw.get("data", {}), raw.get("panel", {}), raw.get("spatial", {})
     if data.get("extract_month"):
-        parse_month(data["extract_month"], what=f"{path}: data.extract_month")
-    return Config(
+        parse_month(data["extract_month"], what=f"{path}: [data] extract_month")
+    config = Config(
         extract_month=data.get("extract_month"),
         premise_crs=data.get("premise_crs"),
         areas_crs=data.get("areas_crs"),
-        tables={k: str(v) for k, v in tables.items()},
-        columns={k: dict(v) for k, v in columns.items()},
-        reasons={str(k): str(v) for k, v in reasons.items()},
+        tables=dict(raw.get("tables", {})),
+        columns={k: dict(v) for k, v in raw.get("columns", {}).items()},
+        reasons=dict(raw.get("reasons", {})),
         panel=PanelSettings(
-            window_months=int(panel.get("window_months", 48)),
+            window_months=panel.get("window_months", PanelSettings.window_months),
             not_features=tuple(panel.get("not_features", PanelSettings.not_features)),
-            trailing_sums={str(k): int(v) for k, v in panel.get("trailing_sums", {}).items()},
+            trailing_sums=dict(panel.get("trailing_sums", {})),
         ),
         spatial=SpatialSettings(
-            radii_m=tuple(float(r) for r in spatial.get("radii_m", (400.0,))),
+            radii_m=tuple(float(r) for r in spatial.get("radii_m", SpatialSettings.radii_m)),
             distance_crs=spatial.get("distance_crs") or None,
             nearest_area_max_m=float(spatial.get("nearest_area_max_m", 0.0)),
-            move_rate_months=int(spatial.get("move_rate_months", 12)),
+            move_rate_months=spatial.get("move_rate_months", SpatialSettings.move_rate_months),
         ),
         source=path,
         raw=raw,
     )
+    _check_stages(config)
+    return config
+
+
+def _check_stages(config: Config) -> None:
+    """Each stage's rules across settings (an uptake offer's hazard ratio >= 1, a reason
+    phrase's placeholders, ...), so that they too fail before any work."""
+    from .cycle._run import run_settings
+    from .decisions import offers_from_config, phrases_from_config, plan_settings_from_config
+    from .forecast import forecast_settings
+    from .value import value_settings
+
+    value_settings(config)
+    forecast_settings(config)
+    run_settings(config)
+    offers_from_config(config)
+    phrases_from_config(config)
+    if "budget" in config.raw.get("plan", {}):
+        plan_settings_from_config(config)

@@ -147,7 +147,7 @@ def test_an_unknown_compute_setting_is_refused_before_any_work(tmp_path, capsys)
     config = paths["config"]
     config.write_text(config.read_text() + "\n[compute]\nthreads = 4\n")
     assert main(["run", "--config", str(config)]) == 2
-    assert "[compute] has unknown setting(s) ['threads']" in capsys.readouterr().err
+    assert "[compute] has an unknown setting 'threads'" in capsys.readouterr().err
     assert not (tmp_path / "reports").exists()
 
 

@@ -241,7 +241,7 @@ def _backtest_run(args: argparse.Namespace) -> None:
     tables, config = _load(args)
     families = {"life_table": TenureLifeTable()}
     for name in [f.strip() for f in args.families.split(",") if f.strip()]:
-        families[name] = make_model(name, config)
+        families[name] = make_model(name, config, horizon=max(horizons))
     if args.cutoffs:
         cutoffs = [c.strip() for c in args.cutoffs.split(",") if c.strip()]
         for c in cutoffs:
@@ -374,4 +374,27 @@ BENCH = Command(
     _bench_run,
 )
 
-COMMANDS = (CHECK, PANEL, FIT, BACKTEST, SCORE, PLAN, FORECAST, RUN, DEMO, BENCH)
+
+# settings ------------------------------------------------------------------------------------
+def _settings_arguments(p: argparse.ArgumentParser) -> None:
+    p.add_argument(
+        "--examples",
+        action="store_true",
+        help="write the settings without a default with example values, not commented out",
+    )
+
+
+def _settings_run(args: argparse.Namespace) -> None:
+    from ..config import settings_template
+
+    print(settings_template(examples=args.examples), end="")
+
+
+SETTINGS = Command(
+    "settings",
+    "print every setting of lifecycle.toml: its kind, default and meaning (a valid file)",
+    _settings_arguments,
+    _settings_run,
+)
+
+COMMANDS = (CHECK, PANEL, FIT, BACKTEST, SCORE, PLAN, FORECAST, RUN, DEMO, BENCH, SETTINGS)

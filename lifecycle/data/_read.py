@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import logging
+import os
 from pathlib import Path
 
 import geopandas as gpd
@@ -70,8 +71,7 @@ def _read_folder(folder: Path, config: Config):
 
 def _find_file(folder: Path, name: str, config: Config) -> Path | None:
     if name in config.tables:
-        file = Path(config.tables[name])
-        file = file if file.is_absolute() else folder / file
+        file = _table_path(folder, name, config.tables[name])
         if not file.is_file():
             raise UsageError(
                 f"[tables] {name} = {config.tables[name]!r}, but {file} does not exist"
@@ -83,6 +83,21 @@ def _find_file(folder: Path, name: str, config: Config) -> Path | None:
         if file.is_file():
             return file
     return None
+
+
+def _table_path(folder: Path, name: str, given: str) -> Path:
+    """Where ``[tables] name`` points: an absolute path as given (on purpose), else a path
+    inside ``folder``; a relative path leading out of it (``..``) is refused."""
+    path = Path(given)
+    if path.is_absolute():
+        return path
+    inside = Path(os.path.normpath(folder / path))
+    if not inside.is_relative_to(Path(os.path.normpath(folder))):
+        raise UsageError(
+            f"[tables] {name} was {given!r}, which leads out of the data folder {folder}; "
+            "name a file inside it, or give an absolute path on purpose"
+        )
+    return inside
 
 
 def _read_tabular(file: Path, name: str) -> pd.DataFrame:
@@ -121,7 +136,7 @@ def _read_duckdb(file: Path, config: Config):
         for name in TABLE_NAMES:
             table = config.tables.get(name, name)
             if name == "areas" and Path(table).suffix.lower() in _AREA_SUFFIXES:
-                path = Path(table) if Path(table).is_absolute() else file.parent / table
+                path = _table_path(file.parent, name, table)
                 frames[name] = _read_areas_file(path)
                 sources[name] = str(path)
                 continue

@@ -1,6 +1,6 @@
 """Connecting to a Dask cluster: a local one on this machine, or a running scheduler.
 
-Settings in ``lifecycle.toml`` (all optional)::
+Settings in ``lifecycle.toml`` (all optional; ``lifecycle settings`` prints every setting)::
 
     [compute]
     scheduler = "tcp://10.0.0.5:8786"   # a running Dask scheduler; its workers need lifecycle
@@ -19,7 +19,7 @@ from collections.abc import Iterator
 from dataclasses import dataclass
 from typing import TYPE_CHECKING
 
-from ..config import Config
+from ..config import Config, section
 from ..errors import UsageError
 
 if TYPE_CHECKING:
@@ -28,7 +28,6 @@ if TYPE_CHECKING:
 log = logging.getLogger(__name__)
 
 DEFAULT_PARTITION_CUSTOMERS = 100_000
-_ALLOWED = ("partition_customers", "scheduler", "workers")
 
 
 @dataclass(frozen=True)
@@ -42,27 +41,10 @@ class ComputeSettings:
 
 def compute_settings(config: Config | None) -> ComputeSettings:
     """Read and check the ``[compute]`` section of a config (defaults where it is silent)."""
-    config = config or Config()
-    src = str(config.source) if config.source else "config"
-    raw = config.raw.get("compute", {})
-    if not isinstance(raw, dict):
-        raise UsageError(f"{src}: [compute] must be a table of settings")
-    unknown = sorted(set(raw) - set(_ALLOWED))
-    if unknown:
-        raise UsageError(
-            f"{src}: [compute] has unknown setting(s) {unknown}; allowed are {list(_ALLOWED)}"
-        )
+    raw = section(config or Config(), "compute")  # checked against the settings schema
     scheduler = raw.get("scheduler") or None
-    if scheduler is not None and not isinstance(scheduler, str):
-        raise UsageError(
-            f"{src}: [compute] scheduler was {scheduler!r} but is expected to be an address "
-            'such as "tcp://10.0.0.5:8786"'
-        )
     workers = raw.get("workers")
-    if workers is not None:
-        _check_whole(workers, f"{src}: [compute] workers")
     size = raw.get("partition_customers", DEFAULT_PARTITION_CUSTOMERS)
-    _check_whole(size, f"{src}: [compute] partition_customers")
     return ComputeSettings(scheduler, None if workers is None else int(workers), int(size))
 
 

@@ -2,7 +2,7 @@
 
 from __future__ import annotations
 
-from ..config import Config
+from ..config import Config, section, setting
 from ..errors import UsageError
 from ._base import HazardModel
 
@@ -18,17 +18,28 @@ def _families() -> dict[str, type[HazardModel]]:
 FAMILY_NAMES = ("cox", "forest", "boosted")
 
 
-def make_model(family: str, config: Config | None = None) -> HazardModel:
+SCORE_HORIZON = 12
+"""The longest horizon scores are given for by default (``score --horizons 3,6,12``)."""
+
+
+def needed_horizon(config: Config | None = None, longest: int = SCORE_HORIZON) -> int:
+    """The longest horizon, in months, a later step asks of a model: ``longest`` (the scores'),
+    ``[value] horizon_months`` and ``[forecast] horizon_months``."""
+    value = setting(config, "value.horizon_months")
+    forecast = setting(config, "forecast.horizon_months")
+    return int(max(longest, value, forecast))
+
+
+def make_model(
+    family: str, config: Config | None = None, *, horizon: int | None = None
+) -> HazardModel:
     """A new, unfitted model of ``family`` (``cox``, ``forest`` or ``boosted``).
 
-    Hyperparameters come from the config section ``[models.<family>]``, e.g.::
-
-        [models.cox]
-        penalizer = 0.01
-        sample_fraction = 0.2
-
-        [models.boosted]
-        max_iter = 200
+    Hyperparameters come from the config section ``[models.<family>]`` (``lifecycle settings``
+    lists them), checked against the settings schema. The forest predicts at most its
+    ``horizon`` months ahead; unless set, that follows `needed_horizon` (with ``horizon``, the
+    longest the caller will ask for, when it is longer), so that scoring, lifetime value and
+    the forecast can use it as fitted.
 
     Unknown families or hyperparameters raise `UsageError` naming what is allowed.
     """
@@ -36,13 +47,7 @@ def make_model(family: str, config: Config | None = None) -> HazardModel:
     if family not in families:
         raise UsageError(f"family was {family!r} but is expected to be one of {list(FAMILY_NAMES)}")
     cls = families[family]
-    settings = (config.raw if config else {}).get("models", {}).get(family, {})
-    if not isinstance(settings, dict):
-        raise UsageError(f"[models.{family}] must be a table of hyperparameters")
-    allowed = sorted(cls().get_params())
-    unknown = sorted(set(settings) - set(allowed))
-    if unknown:
-        raise UsageError(
-            f"[models.{family}] has unknown hyperparameter(s) {unknown}; allowed are {allowed}"
-        )
+    settings = section(config, f"models.{family}")
+    if family == "forest" and "horizon" not in settings:
+        settings["horizon"] = needed_horizon(config, max(SCORE_HORIZON, horizon or 0))
     return cls(**settings)

@@ -232,7 +232,8 @@ class SurvivalForest(HazardModel):
         if horizon > self.horizon:
             raise UsageError(
                 f"horizon was {horizon} but this forest was fitted with horizon={self.horizon}; "
-                f"ask for at most {self.horizon} months or refit with a longer horizon"
+                f"ask for at most {self.horizon} months or refit with a longer horizon "
+                "([models.forest] horizon in lifecycle.toml)"
             )
         snapshot = future.iloc[::horizon]
         x = self.encoder_.transform(snapshot)

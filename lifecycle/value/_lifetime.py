@@ -1,11 +1,8 @@
 """Lifetime value: the discounted margin a customer is expected to bring while still a customer.
 
-Settings in ``lifecycle.toml`` (both optional)::
-
-    [value]
-    annual_discount = 0.08     # yearly discount rate a, >= 0 and < 1; the monthly rate is
-                               # d = (1 + a)^(1/12) − 1 (compounding: 12 months of d make a)
-    horizon_months = 36        # months of margin counted, whole number >= 1
+Settings: ``[value] annual_discount`` (yearly rate a in [0, 1), default 0.08; the monthly rate
+is d = (1 + a)^(1/12) − 1, so that 12 months of d make a) and ``horizon_months`` (default 36);
+``lifecycle settings`` prints every setting.
 
 Timing: the margin of month t is received at the end of month t, and only if the customer is
 still a customer then, so it is weighted by S(t) and discounted by (1 + d)^−t, t = 1..H. This is
@@ -23,7 +20,7 @@ from dataclasses import dataclass
 import numpy as np
 import pandas as pd
 
-from ..config import Config
+from ..config import Config, section
 from ..errors import UsageError
 
 DEFAULT_ANNUAL_DISCOUNT = 0.08
@@ -40,24 +37,9 @@ class ValueSettings:
 
 def value_settings(config: Config) -> ValueSettings:
     """Read and check the ``[value]`` section of a config (defaults where it is silent)."""
-    src = str(config.source) if config.source else "config"
-    raw = config.raw.get("value", {})
-    if not isinstance(raw, dict):
-        raise UsageError(f"{src}: [value] must be a table of settings")
-    unknown = sorted(set(raw) - {"annual_discount", "horizon_months"})
-    if unknown:
-        raise UsageError(
-            f"{src}: [value] has unknown setting(s) {unknown}; allowed are "
-            "['annual_discount', 'horizon_months']"
-        )
+    raw = section(config, "value")  # checked against the settings schema
     annual = raw.get("annual_discount", DEFAULT_ANNUAL_DISCOUNT)
-    _check_annual(annual, f"{src}: [value] annual_discount")
     horizon = raw.get("horizon_months", DEFAULT_HORIZON_MONTHS)
-    if isinstance(horizon, bool) or not isinstance(horizon, int) or horizon < 1:
-        raise UsageError(
-            f"{src}: [value] horizon_months was {horizon!r} but is expected to be a whole "
-            "number of months >= 1"
-        )
     return ValueSettings(annual_discount=float(annual), horizon_months=int(horizon))
 
 
