@@ -14,7 +14,6 @@ from pathlib import Path
 
 import pytest
 
-from lifecycle import _settings
 from lifecycle._settings_keys import SECTIONS, TABLE_NAMES
 from lifecycle.cli import main
 from lifecycle.config import Config, load_config, settings_template

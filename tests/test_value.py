@@ -184,7 +184,7 @@ def test_value_settings_from_the_config():
         value_settings(Config(raw={"value": {"annual_discount": -0.1}}))
     with pytest.raises(UsageError, match="horizon_months was 0"):
         value_settings(Config(raw={"value": {"horizon_months": 0}}))
-    with pytest.raises(UsageError, match=r"unknown setting\(s\) \['rate'\]"):
+    with pytest.raises(UsageError, match=r"unknown setting 'rate'"):
         value_settings(Config(raw={"value": {"rate": 0.1}}))
 
 
