@@ -374,24 +374,27 @@ def template(sections: tuple[Section, ...], *, examples: bool = False) -> str:
     comment = "" if examples else "# "
     lines = [
         "# lifecycle.toml: every setting, its kind, its default and what it does.",
-        "# Every section and key is optional unless marked required; a line starting with",
-        "# '# ' shows a setting that has no default (remove '# ' to set it).",
+        "# Every section and key is optional unless marked required. A line '# key = value'",
+        "# is one to fill in (a setting with no default, or in a section that exists only when",
+        "# you write it, such as [[offers]]): remove the '# ' to use it.",
     ]
     in_many = tuple(s.name for s in sections if s.many)
     for section in sections:
         heading = f"[[{section.name}]]" if section.many else f"[{section.name}]"
         listed = any(section.name == m or section.name.startswith(m + ".") for m in in_many)
         live = not listed and any(k.default is not None for k in section.keys)
-        lines += ["", f"# {heading} {section.meaning}"]
+        lines += ["", f"# --- {section.meaning[:1].upper()}{section.meaning[1:]}"]
         lines.append(heading if live or examples else f"# {heading}")
         for key in section.keys:
-            lines.append(f"#   {key.name}: {key.allowed()}; {_default_words(key)}. {key.meaning}")
+            lines.append(f"#   {key.name}: {key.meaning}")
+            lines.append(f"#     ({key.allowed()}; {_default_words(key)})")
             value = key.default if key.default is not None else key.example
             if value is not None:
                 prefix = "" if live and key.default is not None else comment
                 lines.append(f"{prefix}{key.name} = {toml_value(value)}")
         for key in section.open:
-            lines.append(f"#   {key.name} = {key.allowed()}. {key.meaning}")
+            lines.append(f"#   {key.name} = {key.meaning}")
+            lines.append(f"#     ({key.allowed()})")
         lines += [f"{comment}{line}" for line in section.examples]
     return "\n".join(lines) + "\n"
 
@@ -400,5 +403,5 @@ def _default_words(key: Key) -> str:
     if key.required:
         return "required"
     if key.default is None:
-        return "default: none"
+        return "no default"
     return f"default {toml_value(key.default)}"

@@ -124,7 +124,7 @@ def test_settings_prints_a_valid_file_that_gives_the_defaults(tmp_path, capsys):
     for section in SECTIONS:
         assert f"[{section.name}]" in text
         for key in section.keys:
-            assert f"#   {key.name}: {key.allowed()}" in text
+            assert f"#   {key.name}: {key.meaning}\n#     ({key.allowed()}; " in text
     file = tmp_path / "lifecycle.toml"
     file.write_text(text)
     config = load_config(file)

@@ -1,6 +1,7 @@
 """``lifecycle run``: the whole monthly cycle, resumable, writing one month folder atomically.
 
-Settings come from the ``[run]`` section of ``lifecycle.toml``::
+Settings come from the ``[run]`` section of ``lifecycle.toml`` (``lifecycle settings`` prints
+every setting)::
 
     [run]
     families = ["cox", "boosted"]   # compared in the backtest (the tenure life table always is)

@@ -1,6 +1,7 @@
 """Offers and the plan's settings, read from ``lifecycle.toml``.
 
-The format, section by section (every ``[[offers]]`` table is one offer)::
+The format, section by section (every ``[[offers]]`` table is one offer; ``lifecycle settings``
+prints every setting)::
 
     [[offers]]
     name = "loyalty_credit"      # letters, digits and _, starting with a letter; unique

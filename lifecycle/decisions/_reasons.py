@@ -16,7 +16,7 @@ full (a Python regular expression; named groups become placeholders). The phrase
 ``high`` when the value is above the reference and ``low`` when below; placeholders are
 ``{value}``, ``{reference}``, ``{feature}``, ``{s}`` ("" when the value is 1, else "s") and
 the pattern's named groups (underscores shown as spaces). Phrases from ``[reason_phrases]``
-come before the built-in ones (`DEFAULT_PHRASES`)::
+come before the built-in ones (`DEFAULT_PHRASES`; ``lifecycle settings`` prints every setting)::
 
     [reason_phrases]
     "contract_ending" = "contract ends within 2 months"   # a text: the phrase when high

@@ -1,6 +1,6 @@
 """Uptake forecast: how many current customers will take each product up, month by month.
 
-Settings in ``lifecycle.toml`` (all optional)::
+Settings in ``lifecycle.toml`` (all optional; ``lifecycle settings`` prints every setting)::
 
     [forecast]
     horizon_months = 12        # months forecast, whole number in [1, 120] (6–24 is typical)
