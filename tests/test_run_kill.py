@@ -9,7 +9,6 @@ import random
 import signal
 import subprocess
 import sys
-import time
 
 import pytest
 
@@ -54,7 +53,6 @@ def test_sigkill_at_random_points_leaves_earlier_months_intact(tmp_path):
     command = [sys.executable, "-m", "lifecycle", "run", "--config", str(paths["config"])]
     completed = 0
     for _ in range(TRIALS):
-        started = time.monotonic()
         proc = subprocess.Popen(
             [*command, "--as-of", "2026-10", "--force"],
             stdout=subprocess.DEVNULL,
@@ -68,7 +66,6 @@ def test_sigkill_at_random_points_leaves_earlier_months_intact(tmp_path):
         except subprocess.TimeoutExpired:
             proc.send_signal(signal.SIGKILL)
             proc.wait()
-        assert time.monotonic() - started < 300
         assert _digest(reports / "2026-09") == earlier
         _assert_reports_whole(reports)
         months = ScoreHistory(reports / "history.duckdb").months()

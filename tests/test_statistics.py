@@ -3,6 +3,8 @@
 
 from __future__ import annotations
 
+from pathlib import Path
+
 import numpy as np
 import pandas as pd
 import pytest
@@ -100,6 +102,13 @@ def test_logrank_two_groups_matches_lifelines_and_published_value():
     # chi-square 16.79 for these data (from memory).
     assert round(result.statistic, 2) == 16.79
     np.testing.assert_allclose(result.observed.sum(), data["status"].sum())
+    # Its 6-MP arm (Rx = 0) is the arm tabulated by Gehan (1965) in tests/data/gehan_6mp.csv.
+    gehan = pd.read_csv(Path(__file__).parent / "data" / "gehan_6mp.csv")
+    arm = a.sort_values(["t", "status"], ascending=[True, False])
+    assert arm["t"].tolist() == sorted(gehan["weeks"])
+    assert sorted(zip(arm["t"], arm["status"], strict=True)) == sorted(
+        zip(gehan["weeks"], gehan["relapse"], strict=True)
+    )
 
 
 def test_logrank_four_groups_matches_lifelines_multivariate(rossi):
