@@ -416,3 +416,33 @@ def test_backtest_with_the_cause_specific_cox_family(portfolio):
     assert m[("cox", "churn", "uno_c")] > m[("life_table", "churn", "uno_c")] + 0.1
     assert m[("cox", "churn", "brier")] < m[("life_table", "churn", "brier")]
     assert out.champions.set_index("cause").loc["churn", "family"] == "cox"
+
+
+def test_backtest_keeps_the_forest_importances_of_its_latest_cutoff(portfolio, result):
+    """The forest's permutation importances from its fit at the latest cutoff are kept (the
+    cycle shows them when the forest is a candidate but champion of no cause); families
+    without importances leave the table empty."""
+    from lifecycle.cycle._run import _forest_importances
+    from lifecycle.models import SurvivalForest
+
+    assert result.importances.empty
+    forest = SurvivalForest(n_estimators=5, max_rows=2_000, importance_rows=300)
+    out = backtest(
+        portfolio,
+        families={"forest": forest},
+        cutoffs=["2025-07", "2025-10"],
+        horizons=(12,),
+        config=CONFIG,
+    )
+    imp = out.importances
+    assert list(imp.columns[:2]) == ["family", "cutoff"]
+    assert set(imp["family"]) == {"forest"} and set(imp["cutoff"]) == {"2025-10"}
+    assert {"cause", "feature", "importance", "importance_sd"} <= set(imp.columns)
+
+    notes: list[str] = []
+    shown = _forest_importances(object(), {"importances": imp}, notes)
+    assert list(shown.columns) == ["cause", "feature", "importance", "importance_sd"]
+    assert len(shown) == len(imp) and notes == [
+        "Forest importances are from its backtest fit as of 2025-10."
+    ]
+    assert _forest_importances(object(), {"importances": result.importances}, []) is None

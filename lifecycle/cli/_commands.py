@@ -224,7 +224,9 @@ SCORE = Command(
 def _backtest_arguments(p: argparse.ArgumentParser) -> None:
     _data_arguments(p)
     p.add_argument("--as-of", required=True, help="the latest month of data to use, YYYY-MM")
-    p.add_argument("--families", default="cox,boosted", help="comma-separated (cox,boosted)")
+    p.add_argument(
+        "--families", default="cox,boosted,forest", help="comma-separated (cox,boosted,forest)"
+    )
     p.add_argument("--cutoffs", help="comma-separated YYYY-MM (default: two with full follow-up)")
     p.add_argument("--horizons", default="3,6,12", help="months, comma-separated (3,6,12)")
     p.add_argument("--out", required=True, type=Path, help="CSV of the metrics table")

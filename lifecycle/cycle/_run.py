@@ -4,7 +4,8 @@ Settings come from the ``[run]`` section of ``lifecycle.toml`` (``lifecycle sett
 every setting)::
 
     [run]
-    families = ["cox", "boosted"]   # compared in the backtest (the tenure life table always is)
+    families = ["cox", "boosted", "forest"]  # compared in the backtest (the tenure life
+                                    # table always is); each a champion candidate per cause
     cutoffs = 2                     # past cutoffs in the backtest, 3 months apart
     refit_months = 1                # refit when the newest saved model is this many months old
     backtest_months = 1             # redo the backtest (and the champion choice) this often
@@ -48,7 +49,7 @@ _RUN_KEYS = {
 class RunSettings:
     """The ``[run]`` section (see the module docstring)."""
 
-    families: tuple[str, ...] = ("cox", "boosted")
+    families: tuple[str, ...] = ("cox", "boosted", "forest")
     cutoffs: int = 2
     refit_months: int = 1
     backtest_months: int = 1
@@ -73,7 +74,7 @@ def run_settings(config: Config, *, reports: str | Path | None = None) -> RunSet
         p = Path(str(value or default))
         return (p if p.is_absolute() else base / p).resolve()
 
-    families = tuple(raw.get("families", ("cox", "boosted")))
+    families = tuple(raw.get("families", ("cox", "boosted", "forest")))
     from ..models._families import FAMILY_NAMES
 
     bad = [f for f in families if f not in FAMILY_NAMES]
@@ -303,13 +304,17 @@ def _cached_backtest(
     one saved in the last months, else computed now and saved."""
     from .._files import write_parquet_atomic
 
-    names = ("metrics", "champions")
+    names = ("metrics", "champions", "importances")
     for cache in _scheduled(work / "cache", "backtest", month, fingerprint, every):
         if all((cache / f"{n}.parquet").is_file() for n in names):
             log.info("backtest: reusing %s (backtest every %d months)", cache, every)
             return {n: pd.read_parquet(cache / f"{n}.parquet") for n in names}
     result = compute()
-    out = {"metrics": result.metrics, "champions": result.champions}
+    out = {
+        "metrics": result.metrics,
+        "champions": result.champions,
+        "importances": result.importances,
+    }
     cache = work / "cache" / f"backtest-{month}-{fingerprint[:16]}"
     for name, frame in out.items():
         write_parquet_atomic(cache / f"{name}.parquet", frame)
@@ -370,6 +375,20 @@ def _key_metrics(summary: dict, plan) -> dict[str, float]:
     }
 
 
+def _forest_importances(model, result, notes: list[str]):
+    """The champion's forest importances; when the forest is a candidate but champion of no
+    cause, those of its backtest fit at the latest cutoff (said in ``notes``)."""
+    found = getattr(getattr(model, "fitted_", {}).get("forest"), "feature_importances_", None)
+    backtested = result.get("importances")
+    if found is not None or backtested is None or not len(backtested):
+        return found
+    forest = backtested[backtested["family"] == "forest"]
+    if not len(forest):
+        return None
+    notes.append(f"Forest importances are from its backtest fit as of {forest['cutoff'].iloc[0]}.")
+    return forest.drop(columns=["family", "cutoff"]).reset_index(drop=True)
+
+
 def _report_inputs(
     tables, config, month, panel, scored, model, result, plan, forecast, history, previous
 ):
@@ -389,8 +408,7 @@ def _report_inputs(
         previous_scores = history.scores(previous)
         previous_snapshot = snapshot_with_context(tables, previous, config)
         notes.append(f"Compared with the run of {previous} (score history).")
-    fitted = getattr(model, "fitted_", {})
-    importances = getattr(fitted.get("forest"), "feature_importances_", None)
+    importances = _forest_importances(model, result, notes)
     return build_report_inputs(
         month=month,
         panel=panel,

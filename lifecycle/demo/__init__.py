@@ -23,8 +23,16 @@ from ._simulate import simulate
 from ._tables import build_tables
 from ._truth import build_truth, config_text, readme_text, truth_json
 from ._write import DEMO_FILES, check_target, write_all
+from ._yardstick import TrueIncidence, true_incidence
 
-__all__ = ["DEMO_FILES", "DemoScenario", "simulate_demo", "write_demo"]
+__all__ = [
+    "DEMO_FILES",
+    "DemoScenario",
+    "TrueIncidence",
+    "simulate_demo",
+    "true_incidence",
+    "write_demo",
+]
 
 log = logging.getLogger(__name__)
 

@@ -14,6 +14,8 @@ hazard of offered customers by its hazard ratio in the months after the offer mo
 
 from __future__ import annotations
 
+import copy
+import dataclasses
 import logging
 from dataclasses import dataclass
 
@@ -108,28 +110,68 @@ def linear_predictor(cause: str, x: dict[str, np.ndarray]) -> np.ndarray:
     return np.broadcast_to(np.asarray(total, dtype=np.float64), np.shape(x["season_sin"])).copy()
 
 
-def simulate(
-    customers: int, seed: int, months: int, *, keep_features: bool = True
-) -> SimulationResult:
-    """Run the demo process for a portfolio of about ``customers`` customers.
+@dataclass
+class World:
+    """The whole state of the simulated district at the end of a month: customers, who
+    occupies each premise, and the area move-out counts and exposure by month."""
 
-    Without ``keep_features`` the per-customer-month features and hazards are not kept (the
-    result's ``features`` is empty): the input tables and the truth do not need them, and at
-    a million customers they are the largest part of the memory. The random draws, and so the
-    tables, are the same either way.
+    customers: int  # target portfolio size
+    cal: Calendar
+    district: District
+    adjacency: sparse.csr_matrix
+    pop: Population
+    occupant: np.ndarray
+    moveouts: np.ndarray  # (months since first − W, areas)
+    exposure: np.ndarray
+    n_pairs: int = 0  # premise pairs within the radius
+    campaign: pd.DataFrame | None = None
+
+    def branch(self) -> World:
+        """A copy whose future can be simulated without touching this one (the district and
+        its adjacency, which never change, are shared)."""
+        return dataclasses.replace(
+            self,
+            pop=copy.deepcopy(self.pop),
+            occupant=self.occupant.copy(),
+            moveouts=self.moveouts.copy(),
+            exposure=self.exposure.copy(),
+        )
+
+
+@dataclass
+class Month:
+    """What happened in one simulated month to the customers ``active`` in it."""
+
+    active: np.ndarray
+    x: dict[str, np.ndarray]
+    lam: dict[str, np.ndarray]  # exit hazards, the campaign effect included
+    lam_u: np.ndarray  # uptake hazard, NaN where the product is held
+    cause: np.ndarray  # 0 stays, 1.. index into CAUSES + 1
+    takes_up: np.ndarray
+    effect: np.ndarray
+    activity: dict[str, np.ndarray]
+
+
+def random_streams(seed: int | list[int]) -> dict[str, np.random.Generator]:
+    """One generator per name of `STREAMS`, from ``SeedSequence(seed).spawn``."""
+    spawned = np.random.SeedSequence(seed).spawn(len(STREAMS))
+    return {name: np.random.default_rng(s) for name, s in zip(STREAMS, spawned, strict=True)}
+
+
+def start_world(
+    customers: int, months: int, rng: dict[str, np.random.Generator], *, extra_months: int = 0
+) -> World:
+    """The district and its stock of customers before the first simulated month.
+
+    ``extra_months``: room for simulating that many months past the calendar's last month.
     """
-    streams = dict(zip(STREAMS, np.random.SeedSequence(seed).spawn(len(STREAMS)), strict=True))
-    rng = {name: np.random.default_rng(s) for name, s in streams.items()}
     cal = calendar_for(months)
     district = build_district(customers, rng["geography"])
     n_premises = district.premise_x.size
     pairs = neighbour_pairs(district.premise_x, district.premise_y, P.RADIUS_M)
-    n_pairs = len(pairs)
+    log.info("district: %d premises, %d pairs within %d m", n_premises, len(pairs), P.RADIUS_M)
     adjacency = _adjacency(pairs, n_premises)
-    del pairs
-    log.info("district: %d premises, %d pairs within %d m", n_premises, n_pairs, P.RADIUS_M)
-
-    n_sim = cal.as_of - cal.first + 1
+    n_sim = cal.as_of - cal.first + 1 + extra_months
     capacity = customers + int(customers * (P.PORTFOLIO["arrival_rate"] + 0.01) * n_sim) + 100
     pop = Population(capacity)
     occupant = np.full(n_premises, -1, dtype=np.int64)
@@ -146,97 +188,121 @@ def simulate(
         exposure[t - cal.first + w] = np.bincount(
             stock_area[pop.start[: pop.n] <= t], minlength=n_areas
         )
+    return World(customers, cal, district, adjacency, pop, occupant, moveouts, exposure, len(pairs))
 
+
+def simulate(
+    customers: int, seed: int, months: int, *, keep_features: bool = True
+) -> SimulationResult:
+    """Run the demo process for a portfolio of about ``customers`` customers.
+
+    Without ``keep_features`` the per-customer-month features and hazards are not kept (the
+    result's ``features`` is empty): the input tables and the truth do not need them, and at
+    a million customers they are the largest part of the memory. The random draws, and so the
+    tables, are the same either way.
+    """
+    rng = random_streams(seed)
+    world = start_world(customers, months, rng)
+    cal = world.cal
     activity_parts: list[dict[str, np.ndarray]] = []
     feature_parts: list[dict[str, np.ndarray]] = []
-    campaign = None
-    hr = P.CAMPAIGN["hazard_ratio"]
-    effect_months = range(cal.campaign + 1, cal.campaign + 1 + P.CAMPAIGN["effect_months"])
     for m in range(cal.first, cal.as_of + 1):
-        # --- the state at the end of month m - 1 -------------------------------------------
-        occupied = occupant >= 0
-        holder = np.zeros(n_premises, dtype=bool)
-        holder[occupied] = (pop.uptake[occupant[occupied]] >= 0) & (
-            pop.uptake[occupant[occupied]] <= m - 1
+        month = simulate_month(world, m, rng)
+        active = month.active
+        activity_parts.append(
+            {"customer": active, "month": np.full(active.size, m), **month.activity}
         )
-        near_customers = adjacency @ occupied.astype(np.float64)
-        near_holders = adjacency @ holder.astype(np.float64)
-        row = m - cal.first + w
-        with np.errstate(divide="ignore"):  # an area without exposure gets the overall rate
-            move_rate = gamma_poisson_rates(
-                moveouts[row - w : row].sum(0), exposure[row - w : row].sum(0)
-            )
-        n_alive = int(occupied.sum())
-
-        # --- arrivals: new customers on premises free at the end of m - 1 -------------------
-        if m > cal.first:
-            _add_arrivals(pop, occupant, customers, n_alive, m, rng["portfolio"])
-        active = np.flatnonzero((pop.start[: pop.n] <= m) & (pop.end[: pop.n] < 0))
-
-        # --- features of month m (known at the end of m - 1) --------------------------------
-        premise = pop.premise[active]
-        area = district.premise_area[premise]
-        x = _features(
-            pop, active, m, district, area, near_customers[premise], near_holders[premise]
-        )
-        x["local_move_rate"] = move_rate[area]
-
-        # --- hazards and events -------------------------------------------------------------
-        lam = {k: P.BASELINE[k](x["tenure"]) * np.exp(linear_predictor(k, x)) for k in P.CAUSES}
-        effect = np.zeros(active.size, dtype=np.int8)
-        if m in effect_months:
-            effect = pop.offered[active].astype(np.int8)
-            lam["churn"] = lam["churn"] * np.where(effect == 1, hr, 1.0)
-        holds = x[P.HOLDS] == 1
-        lam_u = P.BASELINE[P.PRODUCT](x["tenure"]) * np.exp(linear_predictor(P.PRODUCT, x))
-        lam_u[holds] = np.nan
-        total = lam["churn"] + lam["move_out"] + lam["other"]
-        ev = rng["events"]
-        exits = ev.random(active.size) < -np.expm1(-total)
-        pick = ev.random(active.size) * total
-        cause = np.where(
-            pick < lam["churn"], 1, np.where(pick < lam["churn"] + lam["move_out"], 2, 3)
-        )
-        cause = np.where(exits, cause, 0).astype(np.int8)
-        takes_up = ~holds & (ev.random(active.size) < -np.expm1(-np.nan_to_num(lam_u)))
-
-        if m == cal.campaign:
-            campaign = _run_campaign(pop, active, x["contract_months_left"], m, rng["campaign"])
-
-        # --- activity of month m ------------------------------------------------------------
-        outage = (
-            rng["activity"].random(n_areas)
-            < P.ACTIVITY["complaints"]["outage_probability_per_area_month"]
-        )
-        values = draw_activity(pop, active, m, outage, area, rng["activity"])
-        activity_parts.append({"customer": active, "month": np.full(active.size, m), **values})
-        for name in ACTIVITY_COLUMNS:
-            pop.prev[name][active] = values[name]
-        hist = pop.complaints_hist
-        hist[active, 1:] = hist[active, :2]
-        hist[active, 0] = values["complaints"]
-
         if keep_features and m >= cal.window_start:
-            feature_parts.append(_feature_row(active, m, x, cause, takes_up, effect, lam, lam_u))
-
-        # --- the end of month m -------------------------------------------------------------
-        exposure[row] = np.bincount(area, minlength=n_areas)
-        moveouts[row] = np.bincount(area[cause == 2], minlength=n_areas)
-        leaving = active[cause > 0]
-        pop.end[leaving] = m
-        pop.reason[leaving] = cause[cause > 0]
-        occupant[pop.premise[leaving]] = -1
-        pop.uptake[active[takes_up]] = m
-
+            feature_parts.append(
+                _feature_row(
+                    active, m, month.x, month.cause, month.takes_up, month.effect, month.lam,
+                    month.lam_u,
+                )
+            )  # fmt: skip
     return SimulationResult(
-        pop=pop,
-        district=district,
+        pop=world.pop,
+        district=world.district,
         calendar=cal,
         activity=_stack(activity_parts),
         features=_stack(feature_parts) if feature_parts else {},
-        campaigns=campaign,
-        n_pairs=n_pairs,
+        campaigns=world.campaign,
+        n_pairs=world.n_pairs,
     )
+
+
+def simulate_month(world: World, m: int, rng: dict[str, np.random.Generator]) -> Month:
+    """Simulate month ``m`` from the state at the end of ``m − 1``; ``world`` moves to the end
+    of ``m``. The draws are taken from ``rng`` in a fixed order (same streams, same month)."""
+    cal, pop, occupant, district = world.cal, world.pop, world.occupant, world.district
+    # --- the state at the end of month m - 1 -----------------------------------------------
+    occupied = occupant >= 0
+    holder = np.zeros(occupant.size, dtype=bool)
+    holder[occupied] = (pop.uptake[occupant[occupied]] >= 0) & (
+        pop.uptake[occupant[occupied]] <= m - 1
+    )
+    near_customers = world.adjacency @ occupied.astype(np.float64)
+    near_holders = world.adjacency @ holder.astype(np.float64)
+    w = cal.move_rate_months
+    row = m - cal.first + w
+    with np.errstate(divide="ignore"):  # an area without exposure gets the overall rate
+        move_rate = gamma_poisson_rates(
+            world.moveouts[row - w : row].sum(0), world.exposure[row - w : row].sum(0)
+        )
+    n_alive = int(occupied.sum())
+
+    # --- arrivals: new customers on premises free at the end of m - 1 -----------------------
+    if m > cal.first:
+        _add_arrivals(pop, occupant, world.customers, n_alive, m, rng["portfolio"])
+    active = np.flatnonzero((pop.start[: pop.n] <= m) & (pop.end[: pop.n] < 0))
+
+    # --- features of month m (known at the end of m - 1) ------------------------------------
+    premise = pop.premise[active]
+    area = district.premise_area[premise]
+    x = _features(pop, active, m, district, area, near_customers[premise], near_holders[premise])
+    x["local_move_rate"] = move_rate[area]
+
+    # --- hazards and events -----------------------------------------------------------------
+    lam = {k: P.BASELINE[k](x["tenure"]) * np.exp(linear_predictor(k, x)) for k in P.CAUSES}
+    effect = np.zeros(active.size, dtype=np.int8)
+    if cal.campaign < m <= cal.campaign + P.CAMPAIGN["effect_months"]:
+        effect = pop.offered[active].astype(np.int8)
+        lam["churn"] = lam["churn"] * np.where(effect == 1, P.CAMPAIGN["hazard_ratio"], 1.0)
+    holds = x[P.HOLDS] == 1
+    lam_u = P.BASELINE[P.PRODUCT](x["tenure"]) * np.exp(linear_predictor(P.PRODUCT, x))
+    lam_u[holds] = np.nan
+    total = lam["churn"] + lam["move_out"] + lam["other"]
+    ev = rng["events"]
+    exits = ev.random(active.size) < -np.expm1(-total)
+    pick = ev.random(active.size) * total
+    cause = np.where(pick < lam["churn"], 1, np.where(pick < lam["churn"] + lam["move_out"], 2, 3))
+    cause = np.where(exits, cause, 0).astype(np.int8)
+    takes_up = ~holds & (ev.random(active.size) < -np.expm1(-np.nan_to_num(lam_u)))
+
+    if m == cal.campaign:
+        world.campaign = _run_campaign(pop, active, x["contract_months_left"], m, rng["campaign"])
+
+    # --- activity of month m ----------------------------------------------------------------
+    n_areas = district.area_id.size
+    outage = (
+        rng["activity"].random(n_areas)
+        < P.ACTIVITY["complaints"]["outage_probability_per_area_month"]
+    )
+    values = draw_activity(pop, active, m, outage, area, rng["activity"])
+    for name in ACTIVITY_COLUMNS:
+        pop.prev[name][active] = values[name]
+    hist = pop.complaints_hist
+    hist[active, 1:] = hist[active, :2]
+    hist[active, 0] = values["complaints"]
+
+    # --- the end of month m -----------------------------------------------------------------
+    world.exposure[row] = np.bincount(area, minlength=n_areas)
+    world.moveouts[row] = np.bincount(area[cause == 2], minlength=n_areas)
+    leaving = active[cause > 0]
+    pop.end[leaving] = m
+    pop.reason[leaving] = cause[cause > 0]
+    occupant[pop.premise[leaving]] = -1
+    pop.uptake[active[takes_up]] = m
+    return Month(active, x, lam, lam_u, cause, takes_up, effect, values)
 
 
 def _adjacency(pairs: np.ndarray, n: int) -> sparse.csr_matrix:

@@ -233,7 +233,7 @@ weeks = 4
 
 # The backtest and the models are redone every third month; between, the last ones are reused.
 [run]
-families = ["cox", "boosted"]
+families = ["cox", "boosted", "forest"]
 cutoffs = 1
 refit_months = 3
 backtest_months = 3

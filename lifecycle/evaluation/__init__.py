@@ -5,16 +5,26 @@ from ._baseline import TenureLifeTable
 from ._calibration import calibration_table, lift_and_capture
 from ._metrics import CensoringCurve, brier_score, time_dependent_auc, uno_concordance
 from ._outcomes import observed_outcomes, outcome_for_cause
+from ._statistics import (
+    LogrankResult,
+    harrell_concordance,
+    integrated_brier_score,
+    logrank_test,
+)
 
 __all__ = [
     "BacktestResult",
     "CensoringCurve",
+    "LogrankResult",
     "TenureLifeTable",
     "backtest",
     "brier_score",
     "calibration_table",
     "champions",
+    "harrell_concordance",
+    "integrated_brier_score",
     "lift_and_capture",
+    "logrank_test",
     "observed_outcomes",
     "outcome_for_cause",
     "time_dependent_auc",

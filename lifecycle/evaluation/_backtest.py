@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import logging
 from collections.abc import Callable, Iterable, Mapping, Sequence
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 
 import numpy as np
 import pandas as pd
@@ -52,11 +52,16 @@ class BacktestResult:
         ``brier``; with both means.
     calibration
         Per family, cause, horizon and cutoff, the risk-decile table of `calibration_table`.
+    importances
+        ``family``, ``cutoff`` and the family's ``feature_importances_`` (``cause``,
+        ``feature``, ``importance``, ``importance_sd``) from its fit at the latest cutoff, for
+        the families that measure them (the survival forest); empty when none does.
     """
 
     metrics: pd.DataFrame
     champions: pd.DataFrame
     calibration: pd.DataFrame
+    importances: pd.DataFrame = field(default_factory=pd.DataFrame)
 
 
 def backtest(
@@ -123,6 +128,7 @@ def backtest(
 
     rows: list[dict] = []
     tables_out: list[pd.DataFrame] = []
+    importances: dict[str, pd.DataFrame] = {}
     for cutoff in cutoffs:
         usable = [h for h in horizons if cutoff + h <= tables.extract_month]
         skipped = [h for h in horizons if h not in usable]
@@ -145,6 +151,9 @@ def backtest(
         for name, family in families.items():
             log.info("backtest %s: fitting %s", format_month(cutoff), name)
             model = clone(family).fit(panel)
+            found = getattr(model, "feature_importances_", None)
+            if found is not None and len(found):  # cutoffs ascend: the latest one stays
+                importances[name] = found.assign(family=name, cutoff=format_month(cutoff))
             incidence = model.predict_cumulative_incidence(snapshot, max(usable))
             array = incidence.to_numpy().reshape(len(snapshot), max(usable), -1)
             for j, cause in enumerate(incidence.columns):
@@ -171,7 +180,16 @@ def backtest(
     if not calibration.empty:
         front = ["family", "cause", "horizon", "cutoff"]
         calibration = calibration[front + [c for c in calibration if c not in front]]
-    return BacktestResult(metrics=metrics, champions=champions(metrics), calibration=calibration)
+    found = pd.concat(list(importances.values()), ignore_index=True) if importances else None
+    if found is not None:
+        front = ["family", "cutoff"]
+        found = found[front + [c for c in found if c not in front]]
+    return BacktestResult(
+        metrics=metrics,
+        champions=champions(metrics),
+        calibration=calibration,
+        importances=found if found is not None else pd.DataFrame(),
+    )
 
 
 def champions(metrics: pd.DataFrame) -> pd.DataFrame:

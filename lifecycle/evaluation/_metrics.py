@@ -103,10 +103,7 @@ def uno_concordance(
     Events of causes other than ``cause`` are treated as censored at their time (a
     cause-specific concordance); so are they in the censoring distribution.
 
-    Pairs are counted, not formed: customers are sorted by time, the comparable set of an
-    event is then a suffix, and the number of risks below a bound in a suffix comes from a
-    wavelet matrix over the risk ranks (binary search for the bounds): O(n log n) time, O(n)
-    memory.
+    Pairs are counted without forming them (`weighted_concordance`): O(n log n).
 
     Parameters
     ----------
@@ -140,34 +137,7 @@ def uno_concordance(
     weight = np.zeros(time.size)
     weight[weighted] = 1.0 / np.square(g)
 
-    # Time order with events before censorings at equal times: the comparable set of an event
-    # at position p is then the suffix after the last event of its time group.
-    order = np.lexsort((~is_event, time))
-    t_sorted, e_sorted, r_sorted = time[order], is_event[order], risk[order]
-    starts = np.flatnonzero(np.r_[True, t_sorted[1:] != t_sorted[:-1]])
-    group = np.cumsum(np.r_[True, t_sorted[1:] != t_sorted[:-1]]) - 1
-    events_in_group = np.bincount(group, weights=e_sorted, minlength=starts.size).astype(np.int64)
-    suffix_start = (starts + events_in_group)[group]
-
-    who = np.flatnonzero(weight[order] > 0)
-    if who.size == 0:
-        return float("nan")
-    w = weight[order][who]
-    by_risk = np.argsort(r_sorted, kind="stable")
-    rank = np.empty(time.size, dtype=np.int64)
-    rank[by_risk] = np.arange(time.size)
-    risks_sorted = r_sorted[by_risk]
-    below = np.searchsorted(risks_sorted, r_sorted[who] - tied_tol, side="left")
-    up_to = np.searchsorted(risks_sorted, r_sorted[who] + tied_tol, side="right")
-    s = suffix_start[who]
-    in_prefix = _prefix_counts_below(rank, np.r_[s, s], np.r_[below, up_to])
-    concordant = below - in_prefix[: who.size]
-    tied = (up_to - in_prefix[who.size :]) - concordant
-    comparable = time.size - s
-    denominator = float(np.sum(w * comparable))
-    if denominator == 0.0:
-        return float("nan")
-    return float(np.sum(w * (concordant + 0.5 * tied)) / denominator)
+    return weighted_concordance(time, is_event, risk, weight, tied_tol=tied_tol)
 
 
 def time_dependent_auc(
@@ -331,6 +301,54 @@ def brier_score(
             + np.where(after, np.square(f) * inv_times[j], 0.0)
         )
     return scores
+
+
+def weighted_concordance(
+    time: np.ndarray,
+    is_event: np.ndarray,
+    risk: np.ndarray,
+    weight: np.ndarray,
+    *,
+    tied_tol: float = TIED_TOL,
+) -> float:
+    """``Σ_i Σ_j w_i [I(r_j < r_i) + ½ I(|r_j − r_i| ≤ tol)] / Σ_i Σ_j w_i`` over comparable pairs.
+
+    j is comparable with the event i when ``T_j > T_i``, or ``T_j = T_i`` and j is censored.
+    ``w = 1`` on every event is Harrell's C; ``w = Ĝ(T)^{−2}`` is Uno's. NaN without a pair.
+
+    Pairs are counted, not formed: customers are sorted by time, the comparable set of an
+    event is then a suffix, and the number of risks below a bound in a suffix comes from a
+    wavelet matrix over the risk ranks (binary search for the bounds): O(n log n) time, O(n)
+    memory.
+    """
+    # Time order with events before censorings at equal times: the comparable set of an event
+    # at position p is then the suffix after the last event of its time group.
+    order = np.lexsort((~is_event, time))
+    t_sorted, e_sorted, r_sorted = time[order], is_event[order], risk[order]
+    starts = np.flatnonzero(np.r_[True, t_sorted[1:] != t_sorted[:-1]])
+    group = np.cumsum(np.r_[True, t_sorted[1:] != t_sorted[:-1]]) - 1
+    events_in_group = np.bincount(group, weights=e_sorted, minlength=starts.size).astype(np.int64)
+    suffix_start = (starts + events_in_group)[group]
+
+    who = np.flatnonzero(weight[order] > 0)
+    if who.size == 0:
+        return float("nan")
+    w = weight[order][who]
+    by_risk = np.argsort(r_sorted, kind="stable")
+    rank = np.empty(time.size, dtype=np.int64)
+    rank[by_risk] = np.arange(time.size)
+    risks_sorted = r_sorted[by_risk]
+    below = np.searchsorted(risks_sorted, r_sorted[who] - tied_tol, side="left")
+    up_to = np.searchsorted(risks_sorted, r_sorted[who] + tied_tol, side="right")
+    s = suffix_start[who]
+    in_prefix = _prefix_counts_below(rank, np.r_[s, s], np.r_[below, up_to])
+    concordant = below - in_prefix[: who.size]
+    tied = (up_to - in_prefix[who.size :]) - concordant
+    comparable = time.size - s
+    denominator = float(np.sum(w * comparable))
+    if denominator == 0.0:
+        return float("nan")
+    return float(np.sum(w * (concordant + 0.5 * tied)) / denominator)
 
 
 # -- shared pieces ---------------------------------------------------------------------------

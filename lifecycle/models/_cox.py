@@ -18,6 +18,7 @@ from scipy import stats
 from ..errors import InputError, UsageError
 from ..panel import PanelLayout
 from ._base import HazardModel
+from ._cox_stats import CoxLikelihoodMixin, cause_likelihood
 from ._design import CovariateDesign
 from ._sampling import check_max_rows, non_event_share
 
@@ -57,7 +58,7 @@ class _CauseFit:
         return base * np.exp(eta)
 
 
-class CauseSpecificCox(HazardModel):
+class CauseSpecificCox(CoxLikelihoodMixin, HazardModel):
     """Cause-specific Cox proportional hazards on the customer-month panel.
 
     For each cause k (terminal causes and product uptakes) a Cox model with time-varying
@@ -130,6 +131,9 @@ class CauseSpecificCox(HazardModel):
         weighted covariate mean of that cause's training rows; NaN past a cause's last month.
     cause_fits_ : dict
         Per cause, the arrays used for prediction (no training rows are kept).
+    log_likelihood_ : dict
+        Cause → log partial likelihood at β̂; ``likelihood_ratio_test()`` tests each cause's
+        coefficients against none (`CoxLikelihoodMixin`).
     """
 
     def __init__(
@@ -153,6 +157,7 @@ class CauseSpecificCox(HazardModel):
         fits: dict[str, _CauseFit] = {}
         coef_rows: list[pd.DataFrame] = []
         ph_rows: list[pd.DataFrame] = []
+        self.likelihoods_ = {}  # filled per cause (see CoxLikelihoodMixin)
         for cause, seed in zip(self.causes_, seeds, strict=True):
             began = time.perf_counter()
             fit, coefs, ph = self._fit_cause(panel, cause, start, stop, seed)
@@ -248,6 +253,9 @@ class CauseSpecificCox(HazardModel):
             )
         else:
             beta, cov = np.empty(0), np.empty((0, 0))
+        self.likelihoods_[cause] = cause_likelihood(
+            risk.times, start, stop, event, weights, x, beta
+        )
         se = np.sqrt(np.diag(cov))
         centre = np.average(x, axis=0, weights=weights) if x.shape[1] else np.empty(0)
         phi = weights * np.exp(np.clip((x - centre) @ beta, -_MAX_LOG_RISK, _MAX_LOG_RISK))

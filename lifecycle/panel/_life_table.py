@@ -6,6 +6,7 @@ import numpy as np
 import pandas as pd
 from scipy import stats
 
+from ..errors import InputError
 from ._layout import TERMINAL_CAUSES, panel_layout
 
 
@@ -32,12 +33,20 @@ def life_table(
     level
         Confidence level of the interval.
 
+    Raises
+    ------
+    InputError
+        When the rows do not follow the panel contract (one row per customer per month,
+        ``tenure_stop = tenure_start + 1``): one row per customer with its whole duration, say,
+        would otherwise give a wrong curve silently.
+
     Returns
     -------
     pandas.DataFrame
         Indexed by ``tenure`` (the month ``tenure_stop``): ``at_risk``, ``events``, ``hazard``,
         ``survival``, ``survival_lower``, ``survival_upper``.
     """
+    _check_panel_rows(panel)
     causes = (cause,) if isinstance(cause, str) else tuple(cause)
     layout = panel_layout(panel)
     at_risk = np.ones(len(panel), dtype=bool)
@@ -77,3 +86,53 @@ def life_table(
         },
         index=pd.Index(t, name="tenure"),
     )
+
+
+_FIX = (
+    "life_table needs the customer-month panel (build_panel): one row per customer per "
+    "active month with tenure_stop = tenure_start + 1; for one row per customer with a "
+    "duration, expand it into months first (or use a Kaplan–Meier estimator)"
+)
+
+
+def _check_panel_rows(panel: pd.DataFrame) -> None:
+    """Refuse rows that do not follow the panel contract (see DEVELOPERS.md)."""
+    missing = [c for c in ("customer_id", "tenure_start", "tenure_stop") if c not in panel]
+    if missing:
+        raise InputError(
+            table="panel",
+            column=missing[0],
+            problem=f"column(s) {missing} are missing, so these rows are not a panel",
+            fix=_FIX,
+        )
+    start = pd.to_numeric(panel["tenure_start"], errors="coerce").to_numpy(dtype=np.float64)
+    stop = pd.to_numeric(panel["tenure_stop"], errors="coerce").to_numpy(dtype=np.float64)
+    bad = ~(stop - start == 1.0) | (start < 0)
+    if bad.any():
+        widths = np.unique((stop - start)[bad & np.isfinite(stop - start)])[:3]
+        raise InputError(
+            table="panel",
+            column="tenure_stop",
+            problem="rows span other than one month (tenure_stop - tenure_start was "
+            f"{', '.join(f'{w:g}' for w in widths) or 'missing'}; 1 is allowed, from "
+            "tenure_start >= 0)",
+            count=int(bad.sum()),
+            examples=panel["customer_id"].to_numpy()[bad][:5],
+            fix=_FIX,
+        )
+    column = panel["customer_id"]
+    ids = column.cat.codes.to_numpy() if isinstance(column.dtype, pd.CategoricalDtype) else column
+    ids = np.asarray(ids)
+    same = ids[1:] == ids[:-1]
+    if not (same & (start[1:] <= start[:-1])).any():
+        return  # each customer's rows contiguous with tenure increasing: no repeats
+    twice = panel.duplicated(subset=["customer_id", "tenure_start"], keep=False).to_numpy()
+    if twice.any():
+        raise InputError(
+            table="panel",
+            column="tenure_start",
+            problem="a customer has more than one row for the same tenure month",
+            count=int(twice.sum()),
+            examples=pd.unique(panel["customer_id"].to_numpy()[twice])[:5],
+            fix=_FIX,
+        )
