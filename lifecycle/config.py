@@ -21,7 +21,9 @@ The file is optional; every setting has a default. Its format, section by sectio
 
     [panel]
     window_months = 48               # months of history in the panel, ending at as_of
-    not_features = ["do_not_contact", "hardship"]   # customer columns kept out of models
+    not_features = ["do_not_contact", "hardship"]   # customer columns kept out of models; the
+                                    # decision flags (do_not_contact, hardship, [plan] exclude
+                                    # and [plan] consent_column) are always kept out
     trailing_sums = { complaints = 3 }              # activity column = months summed, lagged
 
     [spatial]
@@ -50,11 +52,24 @@ TABLE_NAMES = ("customers", "activity", "uptakes", "areas", "campaigns")
 REASONS = ("churn", "move_out", "other")
 
 
+#: Decision flags: always kept out of the models and out of every contact plan.
+DECISION_FLAGS = ("do_not_contact", "hardship")
+
+
 @dataclass(frozen=True)
 class PanelSettings:
     window_months: int = 48
-    not_features: tuple[str, ...] = ("do_not_contact", "hardship")
+    not_features: tuple[str, ...] = DECISION_FLAGS
     trailing_sums: dict[str, int] = field(default_factory=dict)
+
+    def __post_init__(self) -> None:
+        # The decision flags are never model inputs, whatever the setting lists; a single
+        # name given as text is one column, not a sequence of letters.
+        names = [self.not_features] if isinstance(self.not_features, str) else self.not_features
+        bad = [n for n in names if not isinstance(n, str) or not n]
+        if bad:
+            raise UsageError(f"[panel] not_features has {bad!r}; each must be a column name")
+        object.__setattr__(self, "not_features", tuple(dict.fromkeys([*DECISION_FLAGS, *names])))
 
 
 @dataclass(frozen=True)
@@ -100,6 +115,26 @@ def _section(raw: dict[str, Any], name: str, allowed: set[str], path: Path) -> d
     return section
 
 
+def _not_features(raw: dict[str, Any], panel: dict[str, Any]) -> tuple[str, ...]:
+    """``[panel] not_features`` plus every flag the plan excludes on and its consent column."""
+    given = panel.get("not_features", PanelSettings.not_features)
+    names = (
+        [given]
+        if isinstance(given, str)
+        else list(given)
+        if isinstance(given, list | tuple)
+        else None
+    )
+    if names is None:
+        raise UsageError(f"[panel] not_features was {given!r} but must be a list of column names")
+    plan = raw.get("plan", {}) if isinstance(raw.get("plan"), dict) else {}
+    extra = plan.get("exclude", [])
+    extra = [extra] if isinstance(extra, str) else extra if isinstance(extra, list) else []
+    consent = plan.get("consent_column")
+    extra = [*extra, *([consent] if isinstance(consent, str) and consent else [])]
+    return tuple(dict.fromkeys([*names, *(e for e in extra if isinstance(e, str) and e)]))
+
+
 def load_config(path: str | Path | None) -> Config:
     """Read a ``lifecycle.toml``; ``None`` gives the defaults.
 
@@ -137,7 +172,7 @@ def load_config(path: str | Path | None) -> Config:
         reasons={str(k): str(v) for k, v in reasons.items()},
         panel=PanelSettings(
             window_months=int(panel.get("window_months", 48)),
-            not_features=tuple(panel.get("not_features", PanelSettings.not_features)),
+            not_features=_not_features(raw, panel),
             trailing_sums={str(k): int(v) for k, v in panel.get("trailing_sums", {}).items()},
         ),
         spatial=SpatialSettings(
