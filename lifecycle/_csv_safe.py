@@ -34,7 +34,7 @@ def spreadsheet_safe(frame: pd.DataFrame) -> pd.DataFrame:
     """A copy of ``frame`` whose text cells and column names are made safe with `safe_cell`
     (``frame`` itself is left alone; numeric, boolean and datetime columns are kept as they are)."""
     out = frame.copy(deep=False)
-    for position, name in enumerate(frame.columns):
+    for position in range(frame.shape[1]):
         column = frame.iloc[:, position]
         if isinstance(column.dtype, pd.CategoricalDtype):
             renamed = [safe_cell(c) for c in column.cat.categories]
