@@ -109,8 +109,11 @@ def signature_matches(data: bytes, signature: str, key: bytes) -> bool:
 
 def _check_location(path: Path, folders: Iterable[Path]) -> None:
     where = path.resolve()
+    config_home = default_key_file().parent.parent.resolve()
     for folder in folders:
-        if where.is_relative_to(folder):
+        # a project kept in the home folder holds ~/.config too: a key there is still apart
+        apart = config_home.is_relative_to(folder) and where.is_relative_to(config_home)
+        if where.is_relative_to(folder) and not apart:
             raise UsageError(
                 f"the signing key file {path} is inside {folder}, a folder the run reads or "
                 f"writes; keep it elsewhere (set {KEY_FILE_ENV} or {KEY_ENV})"
