@@ -36,11 +36,12 @@ def run_lock(reports: Path) -> Iterator[None]:
     """Hold the reports folder's lock for the ``with`` block, or raise `RunLockedError` at
     once, naming the run that holds it.
 
-    A reports folder this call had to create is removed again if the block fails and left it
-    empty, so that a refused run writes nothing.
+    A lock file (and a reports folder) this call had to create is removed again if the block
+    fails, so that a refused run leaves the reports folder as it was.
     """
     reports = Path(reports)
     created = not reports.exists()
+    new_lock = not (reports / LOCK).exists()
     reports.mkdir(parents=True, exist_ok=True)
     lock = FileLock(str(reports / LOCK))
     try:
@@ -64,9 +65,10 @@ def run_lock(reports: Path) -> Iterator[None]:
         with contextlib.suppress(OSError):
             (reports / OWNER).unlink()
         lock.release()
-        if created and not ok:
+        if new_lock and not ok:
             with contextlib.suppress(OSError):
                 (reports / LOCK).unlink()
+        if created and not ok:
             with contextlib.suppress(OSError):
                 reports.rmdir()  # only if empty
 

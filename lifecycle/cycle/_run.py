@@ -20,7 +20,9 @@ the history as one unit, so a month folder is complete or absent and the history
 published folders; an existing month is never rewritten without ``force``. Steps whose inputs
 (the data files' and the config's SHA-256) have not changed are taken from the work folder
 instead of being redone (`lifecycle.cycle._cache`: verified first; written only after the
-month is published; ``force`` recomputes them).
+month is published; ``force`` recomputes the month's own ones, while one saved in an earlier
+month is still reused on the ``refit_months`` / ``backtest_months`` schedule if the panel still
+has its causes and features).
 """
 
 from __future__ import annotations
@@ -322,15 +324,15 @@ def _save_steps(saves) -> None:
 def _cached_backtest(work: Path, keys, every: int, force: bool, saves, compute):
     """The backtest's tables: the saved ones for these inputs, or (``[run] backtest_months``)
     one saved in the last months with the same settings, else computed now (and saved once
-    the month is published). ``force`` recomputes."""
+    the month is published). ``force`` recomputes the month's own saved step (one saved in an
+    earlier month is still taken on the schedule)."""
     names = ("metrics", "champions")
     folder = work / "cache"
-    if not force:
-        for cache in candidates(folder, "backtest", *keys, every):
-            frames = load_frames(cache, names)
-            if frames is not None:
-                log.info("backtest: reusing %s (backtest every %d months)", cache, every)
-                return frames
+    for cache in candidates(folder, "backtest", *keys, every)[force:]:
+        frames = load_frames(cache, names)
+        if frames is not None:
+            log.info("backtest: reusing %s (backtest every %d months)", cache, every)
+            return frames
     result = compute()
     out = {"metrics": result.metrics, "champions": result.champions}
     saves.append((folder / entry_name("backtest", *keys), lambda tmp: save_frames(tmp, out)))
@@ -340,12 +342,13 @@ def _cached_backtest(work: Path, keys, every: int, force: bool, saves, compute):
 def _champion_model(work, keys, panel, families, champions, refit_months, force, saves):
     """The champion model of the month: the one saved for these inputs, else one saved less
     than ``refit_months`` months before with the same settings whose causes and features the
-    panel still has (the refit schedule), else a new fit. ``force`` refits."""
+    panel still has (the refit schedule), else a new fit. ``force`` does not take the month's
+    own saved model."""
     from ..models import load_model, save_model
     from ..models._champion import ChampionModel
 
     folder = work / "models"
-    for candidate in [] if force else candidates(folder, "champion", *keys, refit_months):
+    for candidate in candidates(folder, "champion", *keys, refit_months)[force:]:
         if not candidate.is_dir():
             continue
         try:
