@@ -57,8 +57,12 @@ def write_text_atomic(dest: str | Path, text: str) -> Path:
 
 
 def write_csv_atomic(dest: str | Path, frame: pd.DataFrame) -> Path:
-    """Write ``frame`` as CSV without its index, atomically."""
-    return write_atomic(dest, lambda tmp: frame.to_csv(tmp, index=False, lineterminator="\n"))
+    """Write ``frame`` as CSV without its index, atomically, with text cells that a spreadsheet
+    would run as formulas quoted (`lifecycle._csv_safe.spreadsheet_safe`)."""
+    from ._csv_safe import spreadsheet_safe
+
+    safe = spreadsheet_safe(frame)
+    return write_atomic(dest, lambda tmp: safe.to_csv(tmp, index=False, lineterminator="\n"))
 
 
 def write_parquet_atomic(dest: str | Path, frame: pd.DataFrame) -> Path:

@@ -24,11 +24,24 @@ from .errors import UsageError
 __all__ = ["Config", "load_config", "setting"]
 
 
+#: Decision flags: always kept out of the models and out of every contact plan.
+DECISION_FLAGS = ("do_not_contact", "hardship")
+
+
 @dataclass(frozen=True)
 class PanelSettings:
     window_months: int = 48
-    not_features: tuple[str, ...] = ("do_not_contact", "hardship")
+    not_features: tuple[str, ...] = DECISION_FLAGS
     trailing_sums: dict[str, int] = field(default_factory=dict)
+
+    def __post_init__(self) -> None:
+        # The decision flags are never model inputs, whatever the setting lists; a single
+        # name given as text is one column, not a sequence of letters.
+        names = [self.not_features] if isinstance(self.not_features, str) else self.not_features
+        bad = [n for n in names if not isinstance(n, str) or not n]
+        if bad:
+            raise UsageError(f"[panel] not_features has {bad!r}; each must be a column name")
+        object.__setattr__(self, "not_features", tuple(dict.fromkeys([*DECISION_FLAGS, *names])))
 
 
 @dataclass(frozen=True)
@@ -89,6 +102,26 @@ def settings_template(*, examples: bool = False) -> str:
     return _settings.template(SECTIONS, examples=examples)
 
 
+def _not_features(raw: dict[str, Any], panel: dict[str, Any]) -> tuple[str, ...]:
+    """``[panel] not_features`` plus every flag the plan excludes on and its consent column."""
+    given = panel.get("not_features", PanelSettings.not_features)
+    names = (
+        [given]
+        if isinstance(given, str)
+        else list(given)
+        if isinstance(given, list | tuple)
+        else None
+    )
+    if names is None:
+        raise UsageError(f"[panel] not_features was {given!r} but must be a list of column names")
+    plan = raw.get("plan", {}) if isinstance(raw.get("plan"), dict) else {}
+    extra = plan.get("exclude", [])
+    extra = [extra] if isinstance(extra, str) else extra if isinstance(extra, list) else []
+    consent = plan.get("consent_column")
+    extra = [*extra, *([consent] if isinstance(consent, str) and consent else [])]
+    return tuple(dict.fromkeys([*names, *(e for e in extra if isinstance(e, str) and e)]))
+
+
 def load_config(path: str | Path | None) -> Config:
     """Read a ``lifecycle.toml``; ``None`` gives the defaults.
 
@@ -119,7 +152,7 @@ def load_config(path: str | Path | None) -> Config:
         reasons=dict(raw.get("reasons", {})),
         panel=PanelSettings(
             window_months=panel.get("window_months", PanelSettings.window_months),
-            not_features=tuple(panel.get("not_features", PanelSettings.not_features)),
+            not_features=_not_features(raw, panel),
             trailing_sums=dict(panel.get("trailing_sums", {})),
         ),
         spatial=SpatialSettings(

@@ -8,7 +8,7 @@ from __future__ import annotations
 
 from collections.abc import Iterable
 
-__all__ = ["InputError", "LifecycleError", "ModelFileError", "UsageError"]
+__all__ = ["InputError", "LifecycleError", "ModelFileError", "OutputError", "UsageError"]
 
 _MAX_EXAMPLES = 5
 
@@ -80,6 +80,11 @@ class InputError(LifecycleError):
 class ModelFileError(LifecycleError):
     """Raised when a saved model folder is incomplete or a file's SHA-256 does not match its
     manifest; such a file is never loaded, because loading a joblib file runs code."""
+
+
+class OutputError(LifecycleError):
+    """Raised when an output cannot be written, e.g. the disk is full (exit code 1). Nothing
+    partial is left: earlier outputs and the history are as they were."""
 
 
 def _plain(value: object) -> object:

@@ -1,5 +1,6 @@
 """Killing `lifecycle run` at random points never damages earlier months or leaves partial
-files (SIGKILL, 20 seeded trials)."""
+files (SIGKILL, 20 seeded trials); what a killed run leaves in its staging folder is gone
+after the next run."""
 
 from __future__ import annotations
 
@@ -28,11 +29,18 @@ def _digest(folder):
     return {p.name: hashlib.sha256(p.read_bytes()).hexdigest() for p in sorted(folder.iterdir())}
 
 
-def _assert_reports_whole(reports):
+# What a killed run may leave at the top of the reports folder until the next run starts
+# (which removes or mends them: lifecycle.cycle._publish.mend).
+LEFT_UNTIL_NEXT_START = (".staging-", ".journal-", ".replaced-")
+
+
+def _assert_reports_whole(reports, *, killed=False):
     for path in reports.rglob("*"):
+        if killed and path.relative_to(reports).parts[0].startswith(LEFT_UNTIL_NEXT_START):
+            continue
         assert not path.name.startswith("."), f"temporary file left: {path}"
         assert not path.name.endswith((".part", ".tmp")), f"partial file left: {path}"
-    for month in (p for p in reports.iterdir() if p.is_dir()):
+    for month in (p for p in reports.iterdir() if p.is_dir() and not p.name.startswith(".")):
         assert {p.name for p in month.iterdir()} == MONTH_FILES, month
 
 
@@ -67,12 +75,12 @@ def test_sigkill_at_random_points_leaves_earlier_months_intact(tmp_path):
             proc.send_signal(signal.SIGKILL)
             proc.wait()
         assert _digest(reports / "2026-09") == earlier
-        _assert_reports_whole(reports)
+        _assert_reports_whole(reports, killed=True)
         months = ScoreHistory(reports / "history.duckdb").months()
         assert "2026-09" in months
     # a final uninterrupted run completes and the history holds both months
     done = subprocess.run([*command, "--as-of", "2026-10", "--force"], capture_output=True)
     assert done.returncode == 0, done.stderr.decode()[-2000:]
-    _assert_reports_whole(reports)
+    _assert_reports_whole(reports)  # the next run removed every staging folder left by a kill
     assert ScoreHistory(reports / "history.duckdb").months() == ["2026-09", "2026-10"]
     assert _digest(reports / "2026-09") == earlier

@@ -37,6 +37,14 @@ def _data_arguments(p: argparse.ArgumentParser) -> None:
     p.add_argument("--config", help="lifecycle.toml (default: the one in the data folder)")
 
 
+def _keep_key_outside(args: argparse.Namespace, *folders: Path) -> None:
+    """Refuse a model signing key kept inside the data, config or model folders."""
+    from ..models._signing import keep_key_outside
+
+    config = Path(args.config).parent if getattr(args, "config", None) else None
+    keep_key_outside([args.data, config, *folders])
+
+
 def _load(args: argparse.Namespace):
     from ..data import load_tables
 
@@ -177,6 +185,7 @@ def _fit_run(args: argparse.Namespace) -> None:
     from ..models import save_model
 
     parse_month(args.as_of, what="--as-of")
+    _keep_key_outside(args, args.out)
     tables, config = _load(args)
     model, window = fit_model(tables, args.as_of, args.family, config)
     save_model(model, args.out, training_window=window, family=args.family)
@@ -201,6 +210,7 @@ def _scored(args: argparse.Namespace, **kwargs):
     from ..models import load_model
 
     parse_month(args.as_of, what="--as-of")
+    _keep_key_outside(args, args.model)
     model = load_model(args.model)
     tables, config = _load(args)
     return tables, config, model, score_portfolio(tables, model, args.as_of, config, **kwargs)

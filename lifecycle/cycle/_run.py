@@ -12,20 +12,27 @@ every setting)::
     reports = "reports"             # month folders go to <reports>/<YYYY-MM>/ (relative to
                                     # the config file's folder)
     history = ""                    # score history; default <reports>/history.duckdb
-    work = ".lifecycle-work"        # saved models, cached steps and the staging folder
+    work = ".lifecycle-work"        # saved models and cached steps
 
-A run writes everything for month M into a staging folder first and renames it to
-``<reports>/M`` at the end, so a month folder is complete or absent; an existing month is
-never rewritten without ``force``. Steps whose inputs (the data files' and the config's
-SHA-256) have not changed are taken from the work folder instead of being redone.
+A run first takes the reports folder's lock (`lifecycle.cycle._lock`: a second run is refused
+at once) and mends what a crashed run left (`lifecycle.cycle._publish`). It then makes every
+check that can fail, computes, and writes everything for month M into a staging folder inside
+the reports folder; the staging folder is renamed to ``<reports>/M`` and the month written to
+the history as one unit, so a month folder is complete or absent and the history matches the
+published folders; an existing month is never rewritten without ``force``. Steps whose inputs
+(the data files' and the config's SHA-256) have not changed are taken from the work folder
+instead of being redone (`lifecycle.cycle._cache`: verified first; written only after the
+month is published; ``force`` recomputes the month's own ones, while one saved in an earlier
+month is still reused on the ``refit_months`` / ``backtest_months`` schedule if the panel still
+has its causes and features).
 """
 
 from __future__ import annotations
 
+import errno
 import hashlib
 import json
 import logging
-import os
 import shutil
 from collections.abc import Callable
 from dataclasses import dataclass, field
@@ -36,7 +43,10 @@ import pandas as pd
 from .._files import write_csv_atomic, write_text_atomic
 from .._months import format_month, parse_month
 from ..config import Config
-from ..errors import ModelFileError, UsageError
+from ..errors import ModelFileError, OutputError, UsageError
+from ._cache import candidates, entry_name, load_frames, save_entry, save_frames
+from ._lock import run_lock
+from ._publish import HistoryEntry, mend, publish_with_history, staging_folder
 
 log = logging.getLogger(__name__)
 
@@ -153,9 +163,33 @@ def run_cycle(
     the plan's optimisation and the report stay in this process. The files written are the
     same up to floating-point rounding.
     """
+    from ..history import ScoreHistory
+    from ..models._signing import keep_key_outside
+
+    tick = step or (lambda name: None)
+    settings = run_settings(config, reports=reports)
+    config_dir = config.source.parent if config.source else None
+    keep_key_outside([source, settings.work, settings.reports, config_dir])
+    with run_lock(settings.reports):  # before any computation: one run per reports folder
+        history = ScoreHistory(settings.history_path)
+        mend(settings.reports, history, settings.work)
+        try:
+            return _locked_run(source, config, settings, as_of, force, tick, client, history)
+        except OSError as exc:
+            if exc.errno in (errno.ENOSPC, errno.EDQUOT, errno.EFBIG):
+                raise OutputError(
+                    f"no space left to write {exc.filename or 'the outputs'} ({exc.strerror}); "
+                    "nothing of this month was published and earlier months and the history "
+                    "are unchanged. Free some space and run again"
+                ) from None
+            raise
+
+
+def _locked_run(source, config, settings, as_of, force, tick, client, history) -> RunResult:
+    """`run_cycle` once the reports folder is locked: every check, then the computation, then
+    the month folder and its history rows together, then the work folder's saved steps."""
     from ..data import load_tables, tables_as_of
     from ..evaluation import TenureLifeTable, backtest
-    from ..history import ScoreHistory
     from ..models._families import make_model
     from ..report import write_report
     from ._steps import (
@@ -168,8 +202,6 @@ def run_cycle(
         score_portfolio,
     )
 
-    tick = step or (lambda name: None)
-    settings = run_settings(config, reports=reports)
     tick("check")
     tables = load_tables(source, config)
     month = as_of or format_month(tables.extract_month)
@@ -185,18 +217,19 @@ def run_cycle(
         raise UsageError(
             f"{folder} exists: month {month} was run already; pass --force to rewrite it"
         )
+    _check_plan_inputs(tables, config)
+    offers = plan_offers(tables, config)
     fingerprint = hashlib.sha256(f"{data_fingerprint(source, config)}:{month}".encode()).hexdigest()
-    work = settings.work
-    staging = work / f"staging-{month}-{os.getpid()}"
-    shutil.rmtree(staging, ignore_errors=True)
-    staging.mkdir(parents=True)
+    keys = (month, fingerprint, _config_hash(config))
+    saves = []  # saved steps, written to the work folder only once the month is published
+    staging = staging_folder(settings.reports, month)
     try:
         tick("backtest")
         families = {"life_table": TenureLifeTable()}
         for name in settings.families:
             families[name] = make_model(name, config)
         result = _cached_backtest(
-            work, fingerprint, month, settings.backtest_months, lambda: backtest(
+            settings.work, keys, settings.backtest_months, force, saves, lambda: backtest(
                 tables,
                 families=families,
                 cutoffs=default_cutoffs(month, 12, count=settings.cutoffs),
@@ -209,10 +242,9 @@ def run_cycle(
         tick("fit")
         panel = panel_with_context(tables, month, config)
         model = _champion_model(
-            work, fingerprint, month, panel, families, champions, settings.refit_months
+            settings.work, keys, panel, families, champions, settings.refit_months, force, saves
         )
         tick("score")
-        offers = plan_offers(tables, config)
         if client is None:
             scored = score_portfolio(tables, model, month, config)
             values = None
@@ -243,32 +275,28 @@ def run_cycle(
             staging / "run_summary.json", json.dumps(summary, indent=2, sort_keys=True, default=str)
         )
         tick("report")
-        history = ScoreHistory(settings.history_path)
         previous = history.previous_month(month)
         inputs = _report_inputs(
             tables, config, month, panel, scored, model, result, plan, forecast, history, previous
         )
         files.update(write_report(inputs, staging))
-        tick("history")
-        # The month folder does not exist (checked above), so a stored month without one is
-        # an earlier attempt that stopped before publishing: replace it.
-        history.append_run(
-            month,
+        tick("publish")
+        entry = HistoryEntry(
+            month=month,
             scores=scored.scores,
             plan=plan.table,
             metrics=_key_metrics(summary, plan),
             meta={
-                "created": pd.Timestamp(parse_month(month) // 12, parse_month(month) % 12 + 1, 1),
+                "created": pd.Timestamp(month_index // 12, month_index % 12 + 1, 1),
                 "families": champions,
                 "config_hash": _config_hash(config),
                 "data_hash": fingerprint,
             },
-            force=True,
         )
-        tick("publish")
-        _publish(staging, folder, force=force)
+        publish_with_history(staging, folder, entry, history, force=force)
     finally:
         shutil.rmtree(staging, ignore_errors=True)
+    _save_steps(saves)
     return RunResult(
         month=month,
         folder=folder,
@@ -277,86 +305,78 @@ def run_cycle(
     )
 
 
-def _scheduled(folder: Path, prefix: str, month: str, fingerprint: str, every: int) -> list[Path]:
-    """Where a saved step may be taken from: first the one saved for exactly these inputs, then
-    (when the step is redone only every ``every`` months) those saved in the months before,
-    newest first."""
-    candidates = [folder / f"{prefix}-{month}-{fingerprint[:16]}"]
-    if every > 1 and folder.is_dir():
-        now = parse_month(month)
-        older = []
-        for path in folder.glob(f"{prefix}-*"):
-            parts = path.name.removeprefix(f"{prefix}-").split("-")
-            try:
-                saved = parse_month("-".join(parts[:2]))
-            except UsageError:
-                continue
-            if now - every < saved < now:
-                older.append((saved, path))
-        candidates += [path for _, path in sorted(older, reverse=True)]
-    return candidates
+def _check_plan_inputs(tables, config: Config) -> None:
+    """The plan's settings and exclusion flags, checked before any computation."""
+    from ..decisions import plan_settings_from_config
+    from ..decisions._exclusions import require_flag_columns
+
+    plan = plan_settings_from_config(config)
+    require_flag_columns(tables.customers, plan.exclusions, plan.flags_absent, plan.consent_column)
 
 
-def _cached_backtest(
-    work: Path, fingerprint: str, month: str, every: int, compute
-) -> dict[str, pd.DataFrame]:
+def _save_steps(saves) -> None:
+    """Write the saved steps of a published month; a failure here only costs the reuse."""
+    for dest, write in saves:
+        try:
+            save_entry(dest, write)
+        except OSError as exc:
+            log.warning("could not save %s for reuse (%s); it will be recomputed", dest, exc)
+
+
+def _cached_backtest(work: Path, keys, every: int, force: bool, saves, compute):
     """The backtest's tables: the saved ones for these inputs, or (``[run] backtest_months``)
-    one saved in the last months, else computed now and saved."""
-    from .._files import write_parquet_atomic
-
+    one saved in the last months with the same settings, else computed now (and saved once
+    the month is published). ``force`` recomputes the month's own saved step (one saved in an
+    earlier month is still taken on the schedule)."""
     names = ("metrics", "champions", "importances")
-    for cache in _scheduled(work / "cache", "backtest", month, fingerprint, every):
-        if all((cache / f"{n}.parquet").is_file() for n in names):
+    folder = work / "cache"
+    for cache in candidates(folder, "backtest", *keys, every)[force:]:
+        frames = load_frames(cache, names)
+        if frames is not None:
             log.info("backtest: reusing %s (backtest every %d months)", cache, every)
-            return {n: pd.read_parquet(cache / f"{n}.parquet") for n in names}
+            return frames
     result = compute()
     out = {
         "metrics": result.metrics,
         "champions": result.champions,
         "importances": result.importances,
     }
-    cache = work / "cache" / f"backtest-{month}-{fingerprint[:16]}"
-    for name, frame in out.items():
-        write_parquet_atomic(cache / f"{name}.parquet", frame)
+    saves.append((folder / entry_name("backtest", *keys), lambda tmp: save_frames(tmp, out)))
     return out
 
 
-def _champion_model(work, fingerprint, month, panel, families, champions, refit_months):
-    """The champion model of ``month``: the one saved for these inputs, else one saved less
-    than ``refit_months`` months before (the refit schedule), else a new fit."""
+def _champion_model(work, keys, panel, families, champions, refit_months, force, saves):
+    """The champion model of the month: the one saved for these inputs, else one saved less
+    than ``refit_months`` months before with the same settings whose causes and features the
+    panel still has (the refit schedule), else a new fit. ``force`` does not take the month's
+    own saved model."""
     from ..models import load_model, save_model
     from ..models._champion import ChampionModel
 
-    folder = work / "models" / f"champion-{month}-{fingerprint[:16]}"
-    candidates = _scheduled(work / "models", "champion", month, fingerprint, refit_months)
-    for candidate in candidates:
-        if (candidate / "manifest.json").is_file():
-            try:
-                model = load_model(candidate)
-            except ModelFileError as exc:
-                log.warning("not reusing %s: %s", candidate, exc)
-                continue
-            log.info("model: reusing %s (refit every %d months)", candidate, refit_months)
-            return model
+    folder = work / "models"
+    for candidate in candidates(folder, "champion", *keys, refit_months)[force:]:
+        if not candidate.is_dir():
+            continue
+        try:
+            model = load_model(candidate)
+        except ModelFileError as exc:
+            log.warning("not reusing %s: %s; refitting", candidate, exc)
+            continue
+        missing = [c for c in [*model.features_, *model.causes_] if c not in panel.columns]
+        if missing:
+            log.warning("not reusing %s: the panel lacks %s; refitting", candidate, missing)
+            continue
+        log.info("model: reusing %s (refit every %d months)", candidate, refit_months)
+        return model
     model = ChampionModel(families=families, champions=champions).fit(panel)
     window = (str(panel["month"].min()), str(panel["month"].max()))
-    save_model(model, folder, training_window=window, family="champion")
+    saves.append(
+        (
+            folder / entry_name("champion", *keys),
+            lambda tmp: save_model(model, tmp, training_window=window, family="champion"),
+        )
+    )
     return model
-
-
-def _publish(staging: Path, folder: Path, *, force: bool) -> None:
-    """Move the staging folder to ``folder`` in one rename; with ``force`` the old folder is
-    moved aside first and removed only after the new one is in place."""
-    folder.parent.mkdir(parents=True, exist_ok=True)
-    if folder.exists():
-        if not force:
-            raise UsageError(f"{folder} appeared while running; not overwriting it")
-        aside = staging.parent / f"replaced-{folder.name}-{os.getpid()}"
-        os.replace(folder, aside)
-        os.replace(staging, folder)
-        shutil.rmtree(aside, ignore_errors=True)
-    else:
-        os.replace(staging, folder)
 
 
 def _config_hash(config: Config) -> str:

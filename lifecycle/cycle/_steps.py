@@ -152,6 +152,7 @@ def plan_contacts(
         phrases_from_config,
         plan_settings_from_config,
     )
+    from ..decisions._exclusions import guard_plan, require_flag_columns
     from ..value import offer_values, value_settings
 
     offers = plan_offers(tables, config) if offers is None else offers
@@ -173,13 +174,17 @@ def plan_contacts(
             customer_ids=snapshot["customer_id"].to_numpy(),
         )
     frame = snapshot.merge(scored.scores, on="customer_id", how="left")
-    flags = [c for c in settings.exclude if c in tables.customers.columns]
-    if flags:
-        frame = frame.merge(tables.customers[["customer_id", *flags]], on="customer_id", how="left")
+    customers = tables.customers
+    flags = list(settings.exclusions)
+    consent = settings.consent_column
+    require_flag_columns(customers, flags, settings.flags_absent, consent)
+    wanted = [c for c in [*flags, consent] if c and c in customers and c not in frame]
+    if wanted:
+        frame = frame.merge(customers[["customer_id", *wanted]], on="customer_id", how="left")
     frame = frame.rename(columns={"tenure_start": "tenure"}).assign(
         tenure_start=frame["tenure_start"]
     )
-    return make_plan(
+    plan = make_plan(
         frame,
         ev[["customer_id", "offer", "expected_value"]],
         offers,
@@ -189,6 +194,8 @@ def plan_contacts(
         snapshot=snapshot,
         phrases=phrases_from_config(config),
     )
+    guard_plan(plan.table, customers, flags, consent)
+    return plan
 
 
 def _with_estimated_effects(offers, effects: pd.DataFrame):

@@ -43,7 +43,12 @@ prints every setting)::
     mip_gap = 1e-4               # relative gap at which the exact solver may stop
     urgency = "cif_{target}_3m"  # column ranking an offer's contacts, most urgent first;
                                  # {target} is replaced by the offer's target cause
-    exclude = ["do_not_contact", "hardship"]   # flag columns: a flagged customer is never selected
+    exclude = []                 # flag columns added to do_not_contact and hardship, which
+                                 # are always excluded: a flagged customer is never selected
+    flags_absent = []            # flags the portfolio does not keep (e.g. ["hardship"]); any
+                                 # other missing flag column is an input error
+    consent_column = ""          # e.g. "marketing_opt_in": only customers with it set (1, true,
+                                 # yes) may be planned; blank: no consent column
     reasons = 3                  # reasons per plan row (0: none)
 
 Phrases for reasons live in ``[reason_phrases]`` (see `lifecycle.decisions._reasons`).
@@ -101,6 +106,8 @@ _PLAN_KEYS = {
     "mip_gap",
     "urgency",
     "exclude",
+    "flags_absent",
+    "consent_column",
     "reasons",
 }
 _TRUE = {"1", "true", "yes", "y", "t"}
@@ -199,6 +206,8 @@ class PlanSettings:
     urgency: str = "cif_{target}_3m"
     exclude: tuple[str, ...] = ("do_not_contact", "hardship")
     reasons: int = 3
+    flags_absent: tuple[str, ...] = ()
+    consent_column: str | None = None
 
     def __post_init__(self) -> None:
         where = "[plan]"
@@ -212,10 +221,36 @@ class PlanSettings:
         _check_number(where, "time_limit_s", self.time_limit_s, low=0.0, strict=True)
         _check_number(where, "mip_gap", self.mip_gap, low=0.0)
         _check_whole(where, "reasons", self.reasons, low=0)
+        for key in ("exclude", "flags_absent"):
+            value = getattr(self, key)
+            if isinstance(value, str):  # one name, not a sequence of its letters
+                value = (value,)
+                object.__setattr__(self, key, value)
+            if not all(isinstance(v, str) and v for v in value):
+                raise UsageError(f"[plan] {key} was {value!r} but must be a list of column names")
+        stray = sorted(set(self.flags_absent) - set(self.exclusions))
+        if stray:
+            raise UsageError(
+                f"[plan] flags_absent names {stray}, which are not exclusion flags; allowed are "
+                f"{list(self.exclusions)}"
+            )
+        if self.consent_column is not None and not (
+            isinstance(self.consent_column, str) and self.consent_column
+        ):
+            raise UsageError(
+                f"[plan] consent_column was {self.consent_column!r} but must be a column name"
+            )
         if "{target}" not in self.urgency and "{" in self.urgency:
             raise UsageError(
                 f"[plan] urgency was {self.urgency!r}; the only placeholder allowed is {{target}}"
             )
+
+    @property
+    def exclusions(self) -> tuple[str, ...]:
+        """Every exclusion flag: ``do_not_contact``, ``hardship`` (always) and ``exclude``."""
+        from ._exclusions import exclusion_columns
+
+        return exclusion_columns(self.exclude)
 
     def urgency_column(self, offer: Offer) -> str:
         """The urgency column of ``offer`` (``urgency`` with ``{target}`` filled in)."""
@@ -266,6 +301,10 @@ def plan_settings_from_config(config: Config) -> PlanSettings:
             kwargs[key] = _text(raw[key], f"{src}: [plan] {key}")
     if "exclude" in raw:
         kwargs["exclude"] = _texts(raw["exclude"], f"{src}: [plan] exclude")
+    if "flags_absent" in raw:
+        kwargs["flags_absent"] = _texts(raw["flags_absent"], f"{src}: [plan] flags_absent")
+    if raw.get("consent_column"):
+        kwargs["consent_column"] = _text(raw["consent_column"], f"{src}: [plan] consent_column")
     try:
         return PlanSettings(**kwargs)
     except UsageError as exc:

@@ -18,6 +18,7 @@ import pandas as pd
 
 from .._months import categorical_to_index, format_month, parse_month
 from ..errors import InputError, UsageError
+from ._exclusions import consent_mask, require_flag_columns
 from ._offers import Offer, PlanSettings, _numbers, cooldown_ok, eligible_mask, excluded_mask
 from ._reasons import DEFAULT_PHRASES, Phrase, join_reasons, top_reasons
 from ._schedule import schedule_weeks
@@ -120,7 +121,9 @@ def make_plan(
     frame
         One row per customer: ``customer_id`` (unique), the columns the offers' eligibility
         rules name, each offer's urgency column (``settings.urgency``, e.g. ``cif_churn_3m``)
-        and the exclusion flags (``do_not_contact``, ``hardship``). Typically the snapshot
+        and the exclusion flags (``do_not_contact``, ``hardship`` and ``[plan] exclude``; a
+        missing one is an `InputError` unless ``[plan] flags_absent`` names it) and the
+        ``[plan] consent_column`` when set. Typically the snapshot
         merged with its scores and the customers' flags.
     expected_values
         ``(n, O)`` array in the order of ``frame`` and ``offers`` (NaN: not allowed), or a
@@ -174,10 +177,11 @@ def make_plan(
         )
 
     allowed = np.column_stack([eligible_mask(frame, o) for o in offers])
-    for flag in settings.exclude:
-        if flag not in frame:
-            log.warning("plan: no %r column, so no customer is excluded by it", flag)
-    excluded = excluded_mask(frame, settings.exclude)
+    flags = settings.exclusions
+    require_flag_columns(
+        frame, flags, settings.flags_absent, settings.consent_column, table="planning frame"
+    )
+    excluded = excluded_mask(frame, flags) | ~consent_mask(frame, settings.consent_column)
     allowed &= ~excluded[:, None]
     if last_contact is not None:
         month = _plan_month(frame, plan_month)

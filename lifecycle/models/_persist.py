@@ -1,14 +1,20 @@
-"""Saving and loading fitted models: joblib files beside a manifest of SHA-256 hashes.
+"""Saving and loading fitted models: joblib files beside a signed manifest of SHA-256 hashes.
 
-Loading a joblib file runs code, so a file is loaded only when its hash matches the manifest
-written with it; anything else is refused with `ModelFileError`.
+Loading a joblib file runs code, so a file is loaded only when the manifest's signature
+(HMAC-SHA256 under a key kept outside the model's folder, `lifecycle.models._signing`) holds
+and every file's hash matches the manifest; anything else is refused with `ModelFileError`
+before a byte is unpickled. The libraries the model was saved with are compared too: a
+different major version of numpy, pandas, scikit-learn, scikit-survival or lifelines is
+refused, a different minor version is logged as a warning.
 """
 
 from __future__ import annotations
 
 import hashlib
 import json
+import logging
 import platform
+import re
 from importlib import metadata
 from pathlib import Path
 
@@ -18,12 +24,21 @@ import pandas as pd
 from .._files import write_atomic, write_csv_atomic, write_text_atomic
 from ..errors import ModelFileError
 from ._base import HazardModel
+from ._signing import sign, signature_matches, signing_key
+
+log = logging.getLogger(__name__)
 
 MANIFEST = "manifest.json"
+SIGNATURE = "manifest.sig"
 MODEL_FILE = "model.joblib"
 # The distribution is published as "lifecycle-hazards" ("lifecycle" on the package index is
 # an unrelated project); the manifest records its version under the import name.
 DISTRIBUTION = "lifecycle-hazards"
+#: Libraries whose major version must match on load (pickled objects change across majors).
+CHECKED_LIBRARIES = ("numpy", "pandas", "scikit-learn", "scikit-survival", "lifelines")
+_REQUIRED = {"family": str, "class": str, "causes": list, "features": list, "versions": dict,
+             "files": dict}  # fmt: skip
+_HEX64 = re.compile(r"[0-9a-f]{64}")
 _LIBRARIES = (
     "lifecycle",
     "numpy",
@@ -65,9 +80,10 @@ def save_model(
     (``coefficients.csv`` for the Cox family), then ``manifest.json`` last.
 
     The manifest records the SHA-256 of every file, the library versions, the family, the
-    causes, the features and the training window (first and last month of the panel).
-    Every file is written atomically; the manifest is written after the files it vouches for,
-    so an interrupted save leaves a folder that `load_model` refuses.
+    causes, the features and the training window (first and last month of the panel); it is
+    signed into ``manifest.sig`` (HMAC-SHA256, `lifecycle.models._signing`). Every file is
+    written atomically; the manifest and then its signature are written after the files they
+    vouch for, so an interrupted save leaves a folder that `load_model` refuses.
     """
     folder = Path(folder)
     folder.mkdir(parents=True, exist_ok=True)
@@ -86,42 +102,133 @@ def save_model(
         "files": {name: _sha256(path) for name, path in sorted(files.items())},
         **(extra or {}),
     }
-    write_text_atomic(folder / MANIFEST, json.dumps(manifest, indent=2, sort_keys=True) + "\n")
+    text = json.dumps(manifest, indent=2, sort_keys=True) + "\n"
+    signature = sign(text.encode("utf-8"), signing_key(near=[folder]))
+    write_text_atomic(folder / MANIFEST, text)
+    write_text_atomic(folder / SIGNATURE, signature + "\n")
     return folder
 
 
 def read_manifest(folder: str | Path) -> dict:
-    """The manifest of a saved model folder, or `ModelFileError`."""
+    """The manifest of a saved model folder, checked for shape (not signature), or
+    `ModelFileError`."""
     path = Path(folder) / MANIFEST
     if not path.is_file():
         raise ModelFileError(f"{folder} holds no {MANIFEST}; it is not a saved lifecycle model")
+    return _parse_manifest(path.read_bytes(), path)
+
+
+def _parse_manifest(data: bytes, path: Path) -> dict:
     try:
-        return json.loads(path.read_text(encoding="utf-8"))
+        manifest = json.loads(data.decode("utf-8"))
     except (json.JSONDecodeError, UnicodeDecodeError) as exc:
         raise ModelFileError(f"{path} is not valid JSON: {exc}") from None
+    if not isinstance(manifest, dict):
+        raise ModelFileError(
+            f"{path} holds a JSON {type(manifest).__name__}, not an object of settings; "
+            "it was not written by lifecycle. Refit the model"
+        )
+    for key, kind in _REQUIRED.items():
+        if key not in manifest:
+            raise ModelFileError(f"{path} lacks the key {key!r}; refit the model")
+        if not isinstance(manifest[key], kind):
+            raise ModelFileError(
+                f"{path}: {key!r} is a {type(manifest[key]).__name__} but should be a "
+                f"{kind.__name__}; refit the model"
+            )
+    files = manifest["files"]
+    bad = [
+        name for name, digest in files.items()
+        if not isinstance(digest, str) or not _HEX64.fullmatch(digest)
+        or Path(name).name != name or name.startswith(".")
+    ]  # fmt: skip
+    if bad:
+        raise ModelFileError(
+            f"{path}: files {bad} are not plain file names with a SHA-256 hash; refit the model"
+        )
+    if MODEL_FILE not in files:
+        raise ModelFileError(f"{path} does not list {MODEL_FILE}")
+    return manifest
 
 
-def load_model(folder: str | Path) -> HazardModel:
-    """Load a model saved by `save_model`, after checking every file's SHA-256.
-
-    Raises `ModelFileError` if the manifest is missing, a file is missing, or a hash does not
-    match (the file was changed or replaced after saving): such a file is never unpickled.
-    """
+def verify_model_folder(folder: str | Path) -> dict:
+    """Check a saved model folder without loading it: the manifest's shape and signature, every
+    file's SHA-256 and the library versions. Returns the manifest, or raises `ModelFileError`."""
     folder = Path(folder)
-    manifest = read_manifest(folder)
-    for name, expected in manifest.get("files", {}).items():
-        path = folder / name
-        if not path.is_file():
-            raise ModelFileError(f"{path} is listed in the manifest but missing")
-        actual = _sha256(path)
+    path = folder / MANIFEST
+    if not path.is_file():
+        raise ModelFileError(f"{folder} holds no {MANIFEST}; it is not a saved lifecycle model")
+    data = path.read_bytes()
+    manifest = _parse_manifest(data, path)
+    sig = folder / SIGNATURE
+    if not sig.is_file():
+        raise ModelFileError(
+            f"{folder} has no {SIGNATURE}: the manifest is unsigned (saved by an older version, "
+            "or tampered with) and the model will not be loaded (a joblib file runs code when "
+            "loaded). Refit the model"
+        )
+    try:
+        signature = sig.read_text(encoding="ascii")
+    except UnicodeDecodeError:
+        signature = ""
+    if not signature_matches(data, signature, signing_key(near=[folder])):
+        raise ModelFileError(
+            f"the signature of {path} does not match: the manifest was changed after saving, or "
+            "it was signed with another key (LIFECYCLE_SIGNING_KEY / LIFECYCLE_KEY_FILE). The "
+            "model will not be loaded (a joblib file runs code when loaded). Refit the model"
+        )
+    for name, expected in manifest["files"].items():
+        file = folder / name
+        if not file.is_file():
+            raise ModelFileError(f"{file} is listed in the manifest but missing")
+        actual = _sha256(file)
         if actual != expected:
             raise ModelFileError(
-                f"{path} has SHA-256 {actual[:16]}… but the manifest says {expected[:16]}…; "
+                f"{file} has SHA-256 {actual[:16]}… but the manifest says {expected[:16]}…; "
                 "it was changed after saving and will not be loaded (a joblib file runs code "
                 "when loaded). Refit the model or restore the original file"
             )
-    if MODEL_FILE not in manifest.get("files", {}):
-        raise ModelFileError(f"the manifest in {folder} does not list {MODEL_FILE}")
+    _compare_versions(manifest["versions"], path)
+    return manifest
+
+
+def _compare_versions(saved: dict, path: Path) -> None:
+    now = _versions()
+    for name in CHECKED_LIBRARIES:
+        then, current = str(saved.get(name, "")), now.get(name, "")
+        if then == current:
+            continue
+        major_then, minor_then = _major_minor(then)
+        major_now, minor_now = _major_minor(current)
+        if major_then is None or major_then != major_now:
+            raise ModelFileError(
+                f"{path} was saved with {name} {then or 'unknown'} but {current} is installed; "
+                "a model pickled under another major version is not loaded. Refit the model, "
+                f"or install {name} {then}"
+            )
+        if minor_then != minor_now:
+            log.warning(
+                "model %s was saved with %s %s; %s is installed (same major version: loading, "
+                "but refit when you can)", path.parent, name, then, current,
+            )  # fmt: skip
+
+
+def _major_minor(version: str) -> tuple[int | None, int | None]:
+    match = re.match(r"(\d+)(?:\.(\d+))?", version)
+    if not match:
+        return None, None
+    return int(match.group(1)), int(match.group(2) or 0)
+
+
+def load_model(folder: str | Path) -> HazardModel:
+    """Load a model saved by `save_model`, after `verify_model_folder`.
+
+    Raises `ModelFileError` if the manifest is missing, malformed or its signature does not
+    hold, a file is missing, a hash does not match (the file was changed or replaced after
+    saving) or a library's major version differs: such a file is never unpickled.
+    """
+    folder = Path(folder)
+    verify_model_folder(folder)
     model = joblib.load(folder / MODEL_FILE)
     if not isinstance(model, HazardModel):
         raise ModelFileError(f"{folder / MODEL_FILE} does not hold a lifecycle model")
