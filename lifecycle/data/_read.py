@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import csv
 import logging
 from pathlib import Path
 
@@ -51,7 +52,30 @@ def read_raw_tables(source: str | Path, config: Config | None = None) -> RawTabl
 def _rename(frame: pd.DataFrame, table: str, config: Config) -> pd.DataFrame:
     mapping = config.columns.get(table, {})
     theirs_to_ours = {theirs: ours for ours, theirs in mapping.items() if theirs in frame.columns}
+    clash = [ours for theirs, ours in theirs_to_ours.items() if ours in frame.columns]
+    if clash:
+        raise InputError(
+            table=table,
+            column=clash[0],
+            problem=f"is given twice: as itself and as '{mapping[clash[0]]}', mapped onto it in "
+            f"[columns.{table}]",
+            fix="Drop one of the two columns, or remove the mapping",
+        )
     return frame.rename(columns=theirs_to_ours) if theirs_to_ours else frame
+
+
+def _check_header(names: list[object], table: str, file: Path) -> None:
+    """Refuse a header that names a column twice (pandas would rename one ``name.1``)."""
+    seen: set[str] = set()
+    repeated = [str(n) for n in names if str(n) in seen or seen.add(str(n))]
+    if repeated:
+        raise InputError(
+            table=table,
+            column=repeated[0],
+            problem=f"appears more than once in the header of {file} "
+            f"(repeated: {sorted(set(repeated))[:5]})",
+            fix="Give every column its own name, or drop the copies",
+        )
 
 
 def _read_folder(folder: Path, config: Config):
@@ -88,7 +112,12 @@ def _find_file(folder: Path, name: str, config: Config) -> Path | None:
 def _read_tabular(file: Path, name: str) -> pd.DataFrame:
     try:
         if file.suffix.lower() == ".parquet":
+            import pyarrow.parquet as pq
+
+            _check_header(pq.read_schema(file).names, name, file)
             return pd.read_parquet(file)
+        with open(file, newline="", encoding="utf-8-sig", errors="replace") as handle:
+            _check_header(next(csv.reader(handle), []), name, file)
         return pd.read_csv(file, dtype=str, keep_default_na=False, na_values=[""])
     except (OSError, ValueError, pd.errors.ParserError) as exc:
         raise InputError(
