@@ -57,6 +57,27 @@ def _rank_by_id(areas: gpd.GeoDataFrame) -> np.ndarray:
     return rank
 
 
+def _rank_by_size(areas: gpd.GeoDataFrame) -> np.ndarray:
+    """Rank of each area by its size, smallest first (ties: ``area_id`` order)."""
+    by_id = _rank_by_id(areas)
+    order = np.lexsort((by_id, areas.geometry.area.to_numpy()))
+    rank = np.empty(len(order), dtype=np.int64)
+    rank[order] = np.arange(len(order))
+    return rank
+
+
+def _swapped_hits(
+    areas: gpd.GeoDataFrame, x: np.ndarray, y: np.ndarray, source: CRS, area_crs: CRS
+) -> int:
+    """How many of these premises would lie in an area with their two coordinates swapped."""
+    points = gpd.GeoSeries.from_xy(y, x, crs=source)
+    if not area_crs.equals(source):
+        points = points.to_crs(area_crs)
+    ok = np.isfinite(points.x.to_numpy()) & np.isfinite(points.y.to_numpy())
+    hit, _ = areas.sindex.query(points[ok], predicate="intersects")
+    return int(np.unique(hit).size)
+
+
 def _best_rank(n: int, points: np.ndarray, ranks: np.ndarray) -> np.ndarray:
     """For each of ``n`` premises the smallest area rank among its matches, else ``_NONE``."""
     best = np.full(n, _NONE, dtype=np.int64)
@@ -85,15 +106,18 @@ def area_positions(tables: Tables, config: Config | None = None) -> np.ndarray:
             area_crs.to_string(),
         )
         points = points.to_crs(area_crs)
-    rank = _rank_by_id(areas)
+    rank = _rank_by_size(areas) if config.spatial.overlaps == "smallest" else _rank_by_id(areas)
     hit_point, hit_area = areas.sindex.query(points, predicate="intersects")
     best = _best_rank(n, hit_point, rank[hit_area])
     shared = int((np.bincount(hit_point, minlength=n) > 1).sum())
     if shared:
         log.info(
             "%d premise(s) lie in more than one area (on a shared boundary or where areas "
-            "overlap); each takes the area whose area_id sorts first",
+            "overlap); each takes the %s",
             shared,
+            "smallest area"
+            if config.spatial.overlaps == "smallest"
+            else "area whose area_id sorts first",
         )
     outside = np.flatnonzero(best == _NONE)
     max_m = float(config.spatial.nearest_area_max_m)
@@ -107,6 +131,13 @@ def area_positions(tables: Tables, config: Config | None = None) -> np.ndarray:
         outside = np.flatnonzero(best == _NONE)
     if outside.size:
         within = f" and none is within {max_m:g} m" if max_m > 0 else ""
+        swapped = _swapped_hits(areas, x[outside], y[outside], source, area_crs)
+        if swapped * 2 >= outside.size:
+            names = coordinate_columns(source).replace(", ", " and ")
+            within += (
+                f"; {swapped} of them would lie in an area with {names} swapped: check which "
+                "column is which (and the mapping in [columns.customers])"
+            )
         raise InputError(
             table="customers",
             column=coordinate_columns(source),
