@@ -74,8 +74,10 @@ class InputError(LifecycleError):
     def with_source_names(self, columns: dict[str, dict[str, str]]) -> InputError:
         """This error naming the input's own column name beside ours, where ``columns``
         (``[columns.<table>]``: our name = yours) maps this error's column."""
-        theirs = columns.get(self.table, {}).get(self.column or "")
-        if not theirs or theirs == self.column or self.source_column:
+        mapping = columns.get(self.table, {})
+        parts = (self.column or "").split(", ")  # "x, y": a pair of columns
+        theirs = ", ".join(str(mapping.get(p, p)) for p in parts)
+        if not self.column or theirs == self.column or self.source_column:
             return self
         return InputError(
             table=self.table,
@@ -84,7 +86,7 @@ class InputError(LifecycleError):
             count=self.count,
             examples=self.examples,
             fix=self.fix,
-            source_column=str(theirs),
+            source_column=theirs,
         )
 
     def _message(self) -> str:

@@ -156,6 +156,7 @@ def run_cycle(
     from ..history import ScoreHistory
     from ..models._families import make_model
     from ..report import write_report
+    from ..spatial import premise_areas
     from ._steps import (
         default_cutoffs,
         forecast_portfolio,
@@ -170,6 +171,7 @@ def run_cycle(
     settings = run_settings(config, reports=reports)
     tick("check")
     tables = load_tables(source, config)
+    premise_areas(tables, config)  # as `lifecycle check` does: refused before anything is written
     month = as_of or format_month(tables.extract_month)
     month_index = parse_month(month, what="as_of")
     if month_index > tables.extract_month:

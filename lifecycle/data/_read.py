@@ -64,14 +64,16 @@ def _rename(frame: pd.DataFrame, table: str, config: Config) -> pd.DataFrame:
     return frame.rename(columns=theirs_to_ours) if theirs_to_ours else frame
 
 
-def _check_header(names: list[object], table: str, file: Path) -> None:
+def _check_header(names: list[object], table: str, file: Path, config: Config) -> None:
     """Refuse a header that names a column twice (pandas would rename one ``name.1``)."""
     seen: set[str] = set()
     repeated = [str(n) for n in names if str(n) in seen or seen.add(str(n))]
     if repeated:
+        ours = {v: k for k, v in config.columns.get(table, {}).items()}.get(repeated[0])
         raise InputError(
             table=table,
-            column=repeated[0],
+            column=ours or repeated[0],
+            source_column=repeated[0] if ours else None,
             problem=f"appears more than once in the header of {file} "
             f"(repeated: {sorted(set(repeated))[:5]})",
             fix="Give every column its own name, or drop the copies",
@@ -88,7 +90,9 @@ def _read_folder(folder: Path, config: Config):
             continue
         sources[name] = str(file)
         log.info("reading %s from %s", name, file)
-        frames[name] = _read_areas_file(file) if name == "areas" else _read_tabular(file, name)
+        frames[name] = (
+            _read_areas_file(file) if name == "areas" else _read_tabular(file, name, config)
+        )
     return frames, sources
 
 
@@ -109,15 +113,15 @@ def _find_file(folder: Path, name: str, config: Config) -> Path | None:
     return None
 
 
-def _read_tabular(file: Path, name: str) -> pd.DataFrame:
+def _read_tabular(file: Path, name: str, config: Config) -> pd.DataFrame:
     try:
         if file.suffix.lower() == ".parquet":
             import pyarrow.parquet as pq
 
-            _check_header(pq.read_schema(file).names, name, file)
+            _check_header(pq.read_schema(file).names, name, file, config)
             return pd.read_parquet(file)
         with open(file, newline="", encoding="utf-8-sig", errors="replace") as handle:
-            _check_header(next(csv.reader(handle), []), name, file)
+            _check_header(next(csv.reader(handle), []), name, file, config)
         return pd.read_csv(file, dtype=str, keep_default_na=False, na_values=[""])
     except (OSError, ValueError, pd.errors.ParserError) as exc:
         raise InputError(

@@ -146,7 +146,7 @@ def area_positions(tables: Tables, config: Config | None = None) -> np.ndarray:
             examples=customers["customer_id"].to_numpy()[outside[:5]],
             fix="add the missing area polygons or correct the coordinates, or set [spatial] "
             "nearest_area_max_m to give such premises the nearest area within that distance",
-        )
+        ).with_source_names(config.columns)
     by_rank = np.empty(len(rank), dtype=np.int64)
     by_rank[rank] = np.arange(len(rank))
     return by_rank[best]
