@@ -19,6 +19,9 @@ import pytest
 from shapely.geometry import box
 
 from lifecycle.cli import main
+from lifecycle.config import load_config
+from lifecycle.data import load_tables
+from lifecycle.spatial import premise_areas
 from tests._brackwater import CRS, X0, Y0, brackwater_zones, write_brackwater
 
 
@@ -187,6 +190,11 @@ def test_overlapping_zones_are_refused_unless_a_rule_is_chosen(export, capsys):
     assert "MARL-W & MID" in message
     _settings(export, "[run]", '[spatial]\noverlaps = "smallest"\n\n[run]')
     assert main(["check", str(export)]) == 0
+    # The rule: a premise in MID (1 km², drawn by hand) and a corner zone (4 km²) takes MID.
+    config = load_config(export / "lifecycle.toml")
+    areas = premise_areas(load_tables(export, config), config)
+    assert (areas.loc[inside.to_numpy()] == "MID").all()
+    assert (areas.drop(inside.to_numpy()) != "MID").all()
 
 
 def test_zones_without_a_crs_are_named_as_such(export, capsys):
