@@ -137,6 +137,7 @@ def _check_all(raw: RawTables, config: Config) -> Tables:
         campaigns=campaigns,
         premise_crs=premise_crs,
         extract_month=int(extract),
+        extract_inferred=configured is None,
         products=products,
         static_columns=static_columns,
         activity_columns=activity_columns,
@@ -555,7 +556,8 @@ def _check_campaigns(
     _, ids, month, report = _rows_of_customers("campaigns", raw, known, extract, config)
     report.fail("offer", "is blank", blank(raw["offer"]))
     offer = raw["offer"].astype(str).str.strip()
-    offer = offer.map(lambda code: config.campaigns.offers.get(code, code))
+    if config.campaigns.offers:
+        offer = offer.replace(config.campaigns.offers)
     configured = _configured_offers(config)
     unknown = ~offer.isin(configured).to_numpy(dtype=bool)
     if configured and unknown.any():
@@ -569,7 +571,8 @@ def _check_campaigns(
             "offer to [[offers]]",
         )
     arm = raw["arm"].astype("string").str.strip()
-    arm = arm.map(lambda label: config.campaigns.arms.get(label, label), na_action="ignore")
+    if config.campaigns.arms:
+        arm = arm.replace(config.campaigns.arms)
     wrong = ~arm.isin(ARMS).to_numpy(dtype=bool)
     report.fail(
         "arm",

@@ -180,9 +180,12 @@ def premise_areas(tables: Tables, config: Config | None = None) -> pd.Series:
 
     Each premise is joined to the area polygon that contains it (point in polygon, boundary
     included, in the areas' CRS; premises are reprojected there when their CRS differs, with a
-    log line naming both). A premise on a boundary shared by several areas, or inside
-    overlapping areas, takes the area whose ``area_id`` sorts first, so the result does not
-    depend on the order of the areas table. A premise in no area is an error, unless
+    log line naming both). Areas whose interiors overlap are refused by `check_tables` unless
+    ``[spatial] overlaps`` chooses a rule: ``"smallest"`` (a premise in several areas takes the
+    smallest) or ``"first_id"``. A premise on a boundary shared by several areas takes the area
+    whose ``area_id`` sorts first (under ``"smallest"``: the smallest), so the result does not
+    depend on the order of the areas table. A premise in no area is an error (naming swapped
+    coordinates when most such premises would lie in an area with x and y swapped), unless
     ``[spatial] nearest_area_max_m`` is positive: then it takes the nearest area within that
     many metres (measured in the CRS of `distance_crs`), and only premises farther than that
     from every area are an error.
