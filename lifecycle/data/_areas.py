@@ -131,6 +131,8 @@ def overlapping_pairs(areas: gpd.GeoDataFrame) -> list[tuple[int, int]]:
     """Row pairs ``(i, j)``, ``i < j``, of areas whose interiors overlap: the intersection
     covers more than `OVERLAP_SHARE` of the smaller one (touching edges do not count)."""
     geometry = areas.geometry.reset_index(drop=True)
+    if not geometry.is_valid.all():  # intersections of invalid polygons may raise
+        geometry = geometry.make_valid()
     left, right = geometry.sindex.query(geometry, predicate="intersects")
     keep = left < right
     left, right = left[keep], right[keep]
