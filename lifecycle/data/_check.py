@@ -20,12 +20,12 @@ from pathlib import Path
 
 import numpy as np
 import pandas as pd
-import pyproj
 
 from .._months import YEAR_MAX, YEAR_MIN, format_month
 from ..config import REASONS, Config
-from ..errors import InputError, UsageError
+from ..errors import InputError, UsageError, cut_text
 from ._areas import check_areas, check_overlaps
+from ._coordinates import coordinate_columns, premise_coordinates
 from ._parse import FLAG_WORDS, blank, months, numbers, plain_index, static, text_ids
 from ._read import read_raw_tables
 from ._report import Report, values_of
@@ -111,7 +111,7 @@ def _check_all(raw: RawTables, config: Config) -> Tables:
         frame = getattr(raw, name)
         if frame is not None:
             _check_columns(name, frame)
-    x_name, y_name, premise_crs = _coordinate_columns(raw.customers, config)
+    x_name, y_name, premise_crs = coordinate_columns(raw.customers, config)
 
     customers, static_columns = _check_customers(raw.customers, config, extract, x_name, y_name)
     known = _Customers.of(customers)
@@ -189,39 +189,6 @@ def _check_columns(table: str, frame: pd.DataFrame) -> None:
                     problem="has a name the checked table uses for the parsed start/end month",
                     fix="Rename it",
                 )
-
-
-def _coordinate_columns(customers: pd.DataFrame, config: Config) -> tuple[str, str, str]:
-    """Which columns hold the premise coordinates, and their CRS."""
-    columns = set(customers.columns)
-    if {"x", "y"} <= columns and config.premise_crs:
-        try:
-            pyproj.CRS.from_user_input(config.premise_crs)
-        except pyproj.exceptions.CRSError as exc:
-            raise UsageError(
-                f"[data] premise_crs was {config.premise_crs!r} but pyproj does not know it "
-                f'({exc}); give an EPSG code such as "EPSG:32630"'
-            ) from None
-        return "x", "y", str(config.premise_crs)
-    if {"lon", "lat"} <= columns:
-        return "lon", "lat", "EPSG:4326"
-    if {"x", "y"} <= columns:
-        raise InputError(
-            table="customers",
-            column="x",
-            problem="x, y are given but their CRS is not",
-            fix='Set [data] premise_crs (e.g. premise_crs = "EPSG:32630") in lifecycle.toml, '
-            "or give lon, lat instead",
-        )
-    pair = ("lon", "lat") if columns & {"lon", "lat"} else ("x", "y")
-    missing = next(c for c in pair if c not in columns)
-    raise InputError(
-        table="customers",
-        column=missing,
-        problem=f"is missing; premise coordinates are x, y (with [data] premise_crs) or lon, lat; "
-        f"the columns are {sorted(map(str, columns))}",
-        fix="Add the coordinates, or map your names in [columns.customers]",
-    )
 
 
 @dataclass(frozen=True)
@@ -315,7 +282,7 @@ def _check_customers(
         "Check the unit and the export of the margin",
     )
 
-    x, y = _coordinates(raw, x_name, y_name, report)
+    x, y = premise_coordinates(raw, x_name, y_name, report)
     out = pd.DataFrame(
         {
             "customer_id": ids,
@@ -405,37 +372,14 @@ def _end_reasons(values: pd.Series, config: Config, report: Report) -> pd.Catego
     mapped = np.array([mapping.get(t, "" if t else None) for t in texts] + [None], dtype=object)
     unknown = np.array([m == "" for m in mapped], dtype=bool)
     flagged = unknown[codes]
+    odd = sorted({t for t, u in zip(texts, unknown, strict=False) if u})[:5]
     report.fail(
         "end_reason",
-        f"has unknown codes {sorted({t for t, u in zip(texts, unknown, strict=False) if u})[:5]}; "
-        f"known are {sorted(mapping)}",
+        f"has unknown codes {[cut_text(t) for t in odd]}; known are {sorted(mapping)}",
         flagged,
         'Map each code onto churn, move_out or other in [reasons], e.g. CODE = "churn"',
     )
     return pd.Categorical(mapped[codes], categories=list(REASONS))
-
-
-def _coordinates(
-    raw: pd.DataFrame, x_name: str, y_name: str, report: Report
-) -> tuple[np.ndarray, np.ndarray]:
-    out = []
-    for name, limit in ((x_name, 180.0), (y_name, 90.0)):
-        values, bad = numbers(raw[name])
-        report.fail(name, "is not a number", bad)
-        report.fail(name, "is blank; every customer needs premise coordinates", np.isnan(values))
-        if name in ("lon", "lat"):
-            report.fail(
-                name,
-                f"is outside −{limit:g}..{limit:g} degrees",
-                np.abs(values) > limit,
-                "Check that lon and lat are not swapped, or give x, y with [data] premise_crs",
-            )
-        report.fail(
-            name, "is absurdly far from the origin (|value| > 1e8 m)", np.abs(values) > 1e8,
-            "Check the coordinates and [data] premise_crs",
-        )  # fmt: skip
-        out.append(values)
-    return out[0], out[1]
 
 
 # --- uptakes, activity, campaigns --------------------------------------------------------------
