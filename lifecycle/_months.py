@@ -38,28 +38,69 @@ def month_labels(indices: np.ndarray) -> np.ndarray:
     return labels[inverse]
 
 
-def months_to_index(values: pd.Series) -> tuple[np.ndarray, np.ndarray]:
-    """Month indices for a column of ``YYYY-MM`` values (text, dates or periods).
+YEAR_MIN, YEAR_MAX = 1900, 2200  # months outside these years are refused as impossible
 
-    Returns ``(index, bad)``: ``index`` is float64 with NaN where the value is blank, and
-    ``bad`` is a boolean mask of values that are present but not a month. The caller decides
-    whether blanks are allowed and how to report bad values.
+# YYYY-MM, YYYY-MM-DD, or an ISO 8601 date-time (``T`` or a space, then a time and an optional
+# zone); the day and the time are checked, then dropped.
+_MONTH_TEXT = (
+    r"^(\d{4})-(\d{1,2})"
+    r"(?:-(\d{1,2})(?:[T ]\d{2}:\d{2}(?::\d{2}(?:\.\d+)?)?(?:Z|[+-]\d{2}:?\d{2})?)?)?$"
+)
+
+
+def months_to_index(values: pd.Series, *, fmt: str | None = None) -> tuple[np.ndarray, np.ndarray]:
+    """Month indices for a column of months (text, dates or periods).
+
+    Text is read as ``YYYY-MM``, ``YYYY-MM-DD`` or an ISO 8601 date-time such as
+    ``2024-03-17T09:30:00Z`` (the day and time are checked, then dropped); ``fmt``, a
+    ``strftime`` format such as ``"%d/%m/%Y"``, is tried for text that is none of these.
+    A date that does not exist (``2024-01-45``, ``2024-13``, ``2023-02-29``) or whose year lies
+    outside ``YEAR_MIN..YEAR_MAX`` (1900..2200) is bad.
+
+    Returns ``(index, bad)``: ``index`` is float64 with NaN where the value is blank or bad,
+    and ``bad`` is a boolean mask of values that are present but not a month. The caller
+    decides whether blanks are allowed and how to report bad values.
     """
     if isinstance(values.dtype, pd.PeriodDtype):
         out = np.where(values.isna(), np.nan, values.dt.year * 12 + values.dt.month - 1)
-        return out.astype("float64"), np.zeros(len(values), dtype=bool)
+        return _in_years(out.astype("float64"), np.zeros(len(values), dtype=bool))
     if pd.api.types.is_datetime64_any_dtype(values):
         out = (values.dt.year * 12 + values.dt.month - 1).to_numpy(dtype="float64")
-        return out, np.zeros(len(values), dtype=bool)
+        return _in_years(out, np.zeros(len(values), dtype=bool))
+    if not (values.dtype == object or isinstance(values.dtype, pd.StringDtype)):
+        values = values.astype(object)
     text = values.astype("string").str.strip()
-    blank = text.isna() | (text == "")
-    parts = text.str.extract(r"^(\d{4})-(\d{1,2})(?:-\d{1,2})?$")
+    blank = (text.isna() | (text == "")).to_numpy(dtype=bool)
+    parts = text.str.extract(_MONTH_TEXT)
     year = pd.to_numeric(parts[0], errors="coerce")
     month = pd.to_numeric(parts[1], errors="coerce")
+    day = pd.to_numeric(parts[2], errors="coerce")
     ok = year.notna() & month.between(1, 12)
+    has_day = ok & day.notna()
+    if has_day.any():
+        real = pd.to_datetime(
+            pd.DataFrame({"year": year[has_day], "month": month[has_day], "day": day[has_day]}),
+            errors="coerce",
+        )
+        ok[has_day] = real.notna().to_numpy()
     index = (year * 12 + month - 1).where(ok).to_numpy(dtype="float64")
-    bad = (~blank & ~ok).to_numpy(dtype=bool)
-    index[blank.to_numpy(dtype=bool)] = np.nan
+    if fmt:
+        other = ~ok.to_numpy(dtype=bool) & ~blank
+        if other.any():
+            dates = pd.to_datetime(text[other], format=fmt, errors="coerce")
+            index[other] = (dates.dt.year * 12 + dates.dt.month - 1).to_numpy(dtype="float64")
+    bad = ~blank & np.isnan(index)
+    index[blank] = np.nan
+    return _in_years(index, bad)
+
+
+def _in_years(index: np.ndarray, bad: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Months outside ``YEAR_MIN..YEAR_MAX`` marked bad (and NaN)."""
+    outside = (index < YEAR_MIN * 12) | (index > YEAR_MAX * 12 + 11)
+    if outside.any():
+        index = index.copy()
+        index[outside] = np.nan
+        bad = bad | outside
     return index, bad
 
 

@@ -10,6 +10,7 @@ defaults here with the stages' own (the model families' ``get_params()`` among t
 from __future__ import annotations
 
 from ._settings import (
+    Kind,
     FLAG,
     NUMBER,
     NUMBER_OR_INF,
@@ -36,6 +37,8 @@ from ._settings import (
 
 TABLE_NAMES = ("customers", "activity", "uptakes", "areas", "campaigns")
 REASONS = ("churn", "move_out", "other")
+ARMS = ("offered", "held_out")
+OVERLAP_RULES = ("refuse", "smallest", "first_id")
 FAMILIES = ("cox", "forest", "boosted")
 MAX_HORIZON_MONTHS = 120
 _SEED = between(0, 2**32 - 1)
@@ -84,8 +87,8 @@ def _columns(table: str) -> Section:
 
 
 _DATA = Section("data", "the data as a whole", (
-    Key("extract_month", TEXT, None, "last month the data covers (default: this calendar "
-        "month)", _MONTH, example="2026-11"),
+    Key("extract_month", TEXT, None, "last month the data covers (default: the last month in "
+        "which any row of the data is dated)", _MONTH, example="2026-11"),
     Key("premise_crs", TEXT, None, "CRS of the customers' x, y columns (not needed with lon, "
         "lat)", example="EPSG:32625"),
     Key("areas_crs", TEXT, None, "CRS of areas read from DuckDB as WKT text",
@@ -124,6 +127,29 @@ _SPATIAL = Section("spatial", "spatial context", (
         "nearest area within this distance instead of being an error", at_least(0)),
     Key("move_rate_months", WHOLE, 12, "trailing window of the local move rate, months",
         at_least(1)),
+    Key("overlaps", TEXT, "refuse", "premises in overlapping areas: refuse, or take the "
+        "smallest area, or the first area id", choice(*OVERLAP_RULES)),
+))  # fmt: skip
+
+_TEXTS_BY_TEXT = Kind(
+    "a table of text = text",
+    lambda v: isinstance(v, dict) and all(isinstance(x, str) for x in v.values()),
+)
+
+_FORMATS = Section(
+    "formats",
+    "date formats (Python strftime) beside the ones always read (YYYY-MM, YYYY-MM-DD, ISO "
+    "date-time): per table, or per column as \"<table>.<column>\" (the column wins)",
+    open=(Key("<table>", one_of(TEXT, _TEXTS_BY_TEXT), None, "the date format of the table's "
+              "month columns (or a table column = format)"),),
+    examples=('customers = "%d/%m/%Y"', '"activity.month" = "%m/%Y"'),
+)  # fmt: skip
+
+_CAMPAIGNS = Section("campaigns", "the export's campaign codes onto ours", (
+    Key("offers", _TEXTS_BY_TEXT, {}, "your offer codes onto [[offers]] names, e.g. "
+        '{ WINBACK10 = "loyalty_credit" }'),
+    Key("arms", _TEXTS_BY_TEXT, {}, "your arm labels onto offered / held_out, e.g. "
+        '{ T = "offered", C = "held_out" }', each(choice(*ARMS))),
 ))  # fmt: skip
 
 _MODELS = (
@@ -285,6 +311,7 @@ _STAGES = (
 )  # fmt: skip
 
 SECTIONS: tuple[Section, ...] = (
-    _DATA, _TABLES, *(_columns(t) for t in TABLE_NAMES), _REASONS, _PANEL, _SPATIAL,
+    _DATA, _TABLES, *(_columns(t) for t in TABLE_NAMES), _REASONS, _FORMATS, _CAMPAIGNS,
+    _PANEL, _SPATIAL,
     *_MODELS, *_OFFERS, *_STAGES,
 )  # fmt: skip

@@ -8,7 +8,6 @@ stage's own rules, before any work.
 
 from __future__ import annotations
 
-import datetime as _dt
 import tomllib
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -16,13 +15,14 @@ from typing import Any
 
 from . import _settings
 from ._months import parse_month
+from ._settings_keys import ARMS as ARMS
+from ._settings_keys import OVERLAP_RULES as OVERLAP_RULES
 from ._settings_keys import REASONS as REASONS
 from ._settings_keys import SECTIONS
 from ._settings_keys import TABLE_NAMES as TABLE_NAMES
 from .errors import UsageError
 
 __all__ = ["Config", "load_config", "setting"]
-
 
 #: Decision flags: always kept out of the models and out of every contact plan.
 DECISION_FLAGS = ("do_not_contact", "hardship")
@@ -50,6 +50,15 @@ class SpatialSettings:
     distance_crs: str | None = None
     nearest_area_max_m: float = 0.0
     move_rate_months: int = 12
+    overlaps: str = "refuse"
+
+
+@dataclass(frozen=True)
+class CampaignSettings:
+    """``[campaigns]``: the export's offer codes and arm labels onto ours."""
+
+    offers: dict[str, str] = field(default_factory=dict)
+    arms: dict[str, str] = field(default_factory=dict)
 
 
 @dataclass(frozen=True)
@@ -64,15 +73,21 @@ class Config:
     reasons: dict[str, str] = field(default_factory=dict)
     panel: PanelSettings = field(default_factory=PanelSettings)
     spatial: SpatialSettings = field(default_factory=SpatialSettings)
+    formats: dict[str, str] = field(default_factory=dict)
+    campaigns: CampaignSettings = field(default_factory=CampaignSettings)
     source: Path | None = None
     raw: dict[str, Any] = field(default_factory=dict)
 
-    def extract_month_index(self, today: _dt.date | None = None) -> int:
-        """The last month the data covers: the configured one, else this calendar month."""
+    def extract_month_index(self) -> int | None:
+        """The configured last month the data covers, or ``None``: then `check_tables`
+        infers it from the data (never from today's date)."""
         if self.extract_month:
             return parse_month(self.extract_month, what="data.extract_month")
-        today = today or _dt.date.today()
-        return today.year * 12 + today.month - 1
+        return None
+
+    def month_format(self, table: str, column: str) -> str | None:
+        """The ``[formats]`` date format of a column: ``"<table>.<column>"``, else the table's."""
+        return self.formats.get(f"{table}.{column}") or self.formats.get(table)
 
 
 def setting(config: Config | None, key: str) -> Any:
@@ -141,6 +156,8 @@ def load_config(path: str | Path | None) -> Config:
         raise UsageError(f"{path} is not valid TOML: {exc}") from None
     _settings.validate(raw, SECTIONS, str(path))
     data, panel, spatial = raw.get("data", {}), raw.get("panel", {}), raw.get("spatial", {})
+    formats = _formats(raw, path)
+    campaigns = _campaigns(raw, path)
     if data.get("extract_month"):
         parse_month(data["extract_month"], what=f"{path}: [data] extract_month")
     config = Config(
@@ -160,7 +177,10 @@ def load_config(path: str | Path | None) -> Config:
             distance_crs=spatial.get("distance_crs") or None,
             nearest_area_max_m=float(spatial.get("nearest_area_max_m", 0.0)),
             move_rate_months=spatial.get("move_rate_months", SpatialSettings.move_rate_months),
+            overlaps=spatial.get("overlaps", SpatialSettings.overlaps),
         ),
+        formats=formats,
+        campaigns=campaigns,
         source=path,
         raw=raw,
     )
@@ -183,3 +203,51 @@ def _check_stages(config: Config) -> None:
     phrases_from_config(config)
     if "budget" in config.raw.get("plan", {}):
         plan_settings_from_config(config)
+
+
+def _formats(raw: dict[str, Any], path: Path) -> dict[str, str]:
+    """``[formats]``: keys ``<table>`` or ``"<table>.<column>"``, values strftime formats."""
+    section = raw.get("formats", {})
+    if not isinstance(section, dict):
+        raise UsageError(f"{path}: [formats] must be a table of settings")
+    flat: dict[str, Any] = {}
+    for key, value in section.items():  # activity.month = "..." unquoted is a nested table
+        if isinstance(value, dict):
+            flat |= {f"{key}.{column}": v for column, v in value.items()}
+        else:
+            flat[str(key)] = value
+    out: dict[str, str] = {}
+    for key, value in flat.items():
+        table = str(key).split(".", 1)[0]
+        if table not in TABLE_NAMES or table == "areas":
+            raise UsageError(
+                f"{path}: [formats] key {key!r} names no table; use a table name "
+                f'({", ".join(t for t in TABLE_NAMES if t != "areas")}) or "<table>.<column>"'
+            )
+        if not isinstance(value, str) or "%" not in value:
+            raise UsageError(
+                f"{path}: [formats] {key} was {value!r} but is expected to be a date format "
+                'such as "%d/%m/%Y" (Python strftime codes)'
+            )
+        out[str(key)] = value
+    return out
+
+
+def _campaigns(raw: dict[str, Any], path: Path) -> CampaignSettings:
+    """``[campaigns]``: ``offers`` (your code = offer name) and ``arms`` (your label = arm)."""
+    section = raw.get("campaigns", {})
+    maps: dict[str, dict[str, str]] = {}
+    for key in ("offers", "arms"):
+        value = section.get(key, {})
+        if not isinstance(value, dict) or not all(isinstance(v, str) for v in value.values()):
+            raise UsageError(
+                f"{path}: [campaigns] {key} was {value!r} but is expected to be a table of "
+                'texts, e.g. { CODE = "name" }'
+            )
+        maps[key] = {str(k): v for k, v in value.items()}
+    wrong = {k: v for k, v in maps["arms"].items() if v not in ARMS}
+    if wrong:
+        raise UsageError(
+            f"{path}: [campaigns] arms maps onto {wrong}; each must be one of {list(ARMS)}"
+        )
+    return CampaignSettings(offers=maps["offers"], arms=maps["arms"])

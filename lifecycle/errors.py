@@ -8,9 +8,17 @@ from __future__ import annotations
 
 from collections.abc import Iterable
 
-__all__ = ["InputError", "LifecycleError", "ModelFileError", "OutputError", "UsageError"]
+__all__ = [
+    "InputError",
+    "LifecycleError",
+    "ModelFileError",
+    "OutputError",
+    "UsageError",
+    "cut_text",
+]
 
 _MAX_EXAMPLES = 5
+MAX_EXAMPLE_CHARS = 40  # an example id longer than this is cut, with an ellipsis
 
 
 class LifecycleError(Exception):
@@ -42,6 +50,12 @@ class InputError(LifecycleError):
         Ids (or row numbers) of affected rows; the first five are shown.
     fix
         Optional hint on how to mend it.
+    source_column
+        The input file's own name of ``column`` when ``[columns.<table>]`` maps it; the
+        message then names both ("column 'leave_date' (end_month)").
+
+    Each example is shown cut to ``MAX_EXAMPLE_CHARS`` characters, so that a huge id never
+    makes a huge message.
     """
 
     def __init__(
@@ -53,6 +67,7 @@ class InputError(LifecycleError):
         count: int = 0,
         examples: Iterable[object] = (),
         fix: str | None = None,
+        source_column: str | None = None,
     ) -> None:
         self.table = table
         self.column = column
@@ -60,17 +75,38 @@ class InputError(LifecycleError):
         self.count = int(count)
         self.examples = [_plain(e) for e in list(examples)[:_MAX_EXAMPLES]]
         self.fix = fix
+        self.source_column = source_column
         super().__init__(self._message())
+
+    def with_source_names(self, columns: dict[str, dict[str, str]]) -> InputError:
+        """This error naming the input's own column name beside ours, where ``columns``
+        (``[columns.<table>]``: our name = yours) maps this error's column."""
+        mapping = columns.get(self.table, {})
+        parts = (self.column or "").split(", ")  # "x, y": a pair of columns
+        theirs = ", ".join(str(mapping.get(p, p)) for p in parts)
+        if not self.column or theirs == self.column or self.source_column:
+            return self
+        return InputError(
+            table=self.table,
+            column=self.column,
+            problem=self.problem,
+            count=self.count,
+            examples=self.examples,
+            fix=self.fix,
+            source_column=theirs,
+        )
 
     def _message(self) -> str:
         where = f"table '{self.table}'"
-        if self.column is not None:
-            where += f", column '{self.column}'"
+        if self.column is not None and self.source_column:
+            where += f", column '{cut_text(self.source_column)}' ({self.column})"
+        elif self.column is not None:
+            where += f", column '{cut_text(self.column)}'"
         text = f"{where}: {self.problem}"
         if self.count:
             text += f" ({self.count} row{'s' if self.count != 1 else ''}"
             if self.examples:
-                text += ", e.g. " + ", ".join(str(e) for e in self.examples)
+                text += ", e.g. " + ", ".join(cut_text(str(e)) for e in self.examples)
             text += ")"
         if self.fix:
             text += f". {self.fix}"
@@ -91,3 +127,8 @@ def _plain(value: object) -> object:
     """Numpy scalars print as ``np.int64(3)`` under numpy 2; show the bare value instead."""
     item = getattr(value, "item", None)
     return item() if callable(item) else value
+
+
+def cut_text(text: str, limit: int = MAX_EXAMPLE_CHARS) -> str:
+    """``text`` cut to ``limit`` characters, ending in an ellipsis when cut."""
+    return text if len(text) <= limit else text[: limit - 1] + "…"

@@ -190,7 +190,9 @@ def test_known_hazard_ratio_is_recovered_within_its_interval(simulated, caplog):
     assert row["lower_95"] < TRUE_HR < row["upper_95"]
     assert row["upper_95"] / row["lower_95"] < 1.5  # informative: about ±0.14 on the log scale
     assert (row["n_offered"], row["n_held_out"]) == (2500, 2500)
-    assert "replaces the configured guess" in caplog.text
+    # No offer of that name is configured: the log must not claim the estimate replaces one.
+    assert "it is not a configured offer, so no plan uses it" in caplog.text
+    assert "replaces" not in caplog.text
 
     # cross-check: statsmodels' Cox regression (Efron ties) on the same follow-up data
     follow = campaign_follow_up(tables, "credit", target="churn", months=6)
@@ -218,7 +220,7 @@ def test_configured_offers_set_target_and_window_and_are_named_in_the_log(simula
     assert follow["duration"].max() == 3
     # the offer did not change the move-out rate in the simulation
     assert row["lower_95"] < 1.0 < row["upper_95"]
-    assert "replaces the configured hazard ratio 0.8" in caplog.text
+    assert "the plan uses it instead of the configured hazard ratio 0.8" in caplog.text
 
 
 def test_offers_without_hold_out_or_without_events_are_left_out(caplog):

@@ -254,15 +254,15 @@ def test_last_contacts_count_offered_arms_only():
     campaigns = pd.DataFrame(
         {
             "customer_id": [1, 1, 2, 3],
-            "month": [100, 104, 106, 90],
+            "month": [24300, 24304, 24306, 24290],
             "offer": "loyalty_credit",
             "arm": ["offered", "offered", "held_out", "offered"],
         }
     )
-    previous_plan = pd.DataFrame({"customer_id": [3, 4], "month": ["0008-09", "0008-07"]})
+    previous_plan = pd.DataFrame({"customer_id": [3, 4], "month": ["2025-05", "2025-03"]})
     last = last_contact_months(campaigns, previous_plan)
-    # 0008-09 is month index 8*12 + 8 = 104; 0008-07 is 102
-    assert last.to_dict() == {1: 104.0, 3: 104.0, 4: 102.0}
+    # 2025-05 is month index 2025*12 + 4 = 24304; 2025-03 is 24302
+    assert last.to_dict() == {1: 24304.0, 3: 24304.0, 4: 24302.0}
     assert len(last_contact_months()) == 0
 
 

@@ -192,6 +192,7 @@ def _locked_run(source, config, settings, as_of, force, tick, client, history) -
     from ..evaluation import TenureLifeTable, backtest
     from ..models._families import make_model
     from ..report import write_report
+    from ..spatial import premise_areas
     from ._steps import (
         default_cutoffs,
         forecast_portfolio,
@@ -204,6 +205,7 @@ def _locked_run(source, config, settings, as_of, force, tick, client, history) -
 
     tick("check")
     tables = load_tables(source, config)
+    premise_areas(tables, config)  # as `lifecycle check` does: refused before anything is written
     month = as_of or format_month(tables.extract_month)
     month_index = parse_month(month, what="as_of")
     if month_index > tables.extract_month:

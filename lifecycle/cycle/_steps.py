@@ -207,12 +207,19 @@ def _with_estimated_effects(offers, effects: pd.DataFrame):
         if offer.name in by_name.index:
             row = by_name.loc[offer.name]
             ratio = float(row["hazard_ratio"])
+            interval = (float(row["lower_95"]), float(row["upper_95"]))
             log.info(
-                "offer %s: using the hazard ratio %.3f (95%% %.3f–%.3f) estimated from its past "
-                "campaign instead of the configured %.3f",
-                offer.name, ratio, row["lower_95"], row["upper_95"], offer.hazard_ratio,
+                "offer %s: effect from past campaigns: hazard ratio %.3f (95%% %.3f–%.3f), used "
+                "instead of the configured %.3f",
+                offer.name, ratio, *interval, offer.hazard_ratio,
             )  # fmt: skip
-            offer = dataclasses.replace(offer, hazard_ratio=ratio)
+            offer = dataclasses.replace(offer, hazard_ratio=ratio, effect_interval=interval)
+        else:
+            log.info(
+                "offer %s: effect from the settings: hazard ratio %.3f (no past campaign with a "
+                "hold-out estimated it)",
+                offer.name, offer.hazard_ratio,
+            )  # fmt: skip
         out.append(offer)
     return tuple(out)
 

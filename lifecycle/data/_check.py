@@ -18,16 +18,17 @@ import logging
 from dataclasses import dataclass
 from pathlib import Path
 
-import geopandas as gpd
 import numpy as np
 import pandas as pd
-import pyproj
 
-from .._months import format_month
+from .._months import YEAR_MAX, YEAR_MIN, format_month
 from ..config import REASONS, Config
-from ..errors import InputError, UsageError
-from ._parse import blank, is_text, months, numbers, plain_index, static, text_ids
+from ..errors import InputError, UsageError, cut_text
+from ._areas import check_areas, check_overlaps
+from ._coordinates import coordinate_columns, premise_coordinates
+from ._parse import FLAG_WORDS, blank, months, numbers, plain_index, static, text_ids
 from ._read import read_raw_tables
+from ._report import Report, values_of
 from ._tables import RawTables, Tables
 
 __all__ = ["check_tables", "load_tables"]
@@ -48,7 +49,6 @@ FLAG_COLUMNS = ("do_not_contact", "hardship")
 _COORDINATES = ("x", "y", "lon", "lat")
 _RESERVED = ("start", "end")  # names of parsed customer columns
 _POLYGONS = ("Polygon", "MultiPolygon")
-_SCAN = 1000  # flagged rows looked at when picking distinct examples
 
 
 def load_tables(source: str | Path, config: Config | None = None) -> Tables:
@@ -97,20 +97,31 @@ def check_tables(raw: RawTables, config: Config) -> Tables:
     UsageError
         When ``config`` holds a CRS pyproj does not know or a reason mapped onto no cause.
     """
-    extract = config.extract_month_index()
+    try:
+        return _check_all(raw, config)
+    except InputError as exc:
+        raise exc.with_source_names(config.columns) from None
+
+
+def _check_all(raw: RawTables, config: Config) -> Tables:
+    configured = config.extract_month_index()
+    extract = float("inf") if configured is None else configured  # inf: checked after parsing
     _check_presence(raw)
     for name in ("customers", "uptakes", "activity", "campaigns", "areas"):
         frame = getattr(raw, name)
         if frame is not None:
             _check_columns(name, frame)
-    x_name, y_name, premise_crs = _coordinate_columns(raw.customers, config)
+    x_name, y_name, premise_crs = coordinate_columns(raw.customers, config)
 
     customers, static_columns = _check_customers(raw.customers, config, extract, x_name, y_name)
     known = _Customers.of(customers)
-    uptakes = _check_uptakes(raw.uptakes, known, extract)
-    activity, activity_columns = _check_activity(raw.activity, known, extract)
-    campaigns = _check_campaigns(raw.campaigns, known, extract)
-    areas = _check_areas(raw.areas, config)
+    uptakes = _check_uptakes(raw.uptakes, known, extract, config)
+    activity, activity_columns = _check_activity(raw.activity, known, extract, config)
+    campaigns = _check_campaigns(raw.campaigns, known, extract, config)
+    areas = check_areas(raw.areas, config, raw.sources.get("areas"))
+    check_overlaps(areas, customers, premise_crs, config)
+    if configured is None:
+        extract = _inferred_extract(customers, uptakes, activity, campaigns)
     products = sorted(pd.unique(uptakes["product"]).tolist())
     log.info(
         "checked %d customers, %d uptakes of %d products, %d activity rows, %d campaign rows, "
@@ -125,51 +136,12 @@ def check_tables(raw: RawTables, config: Config) -> Tables:
         activity=activity,
         campaigns=campaigns,
         premise_crs=premise_crs,
-        extract_month=extract,
+        extract_month=int(extract),
+        extract_inferred=configured is None,
         products=products,
         static_columns=static_columns,
         activity_columns=activity_columns,
     )
-
-
-# --- reporting ---------------------------------------------------------------------------------
-
-
-@dataclass(frozen=True)
-class _Report:
-    """Raises `InputError` for the rows of one table flagged by a mask."""
-
-    table: str
-    ids: pd.Series | None  # example labels; None: row numbers
-
-    def fail(self, column: str, problem: str, mask: np.ndarray, fix: str | None = None) -> None:
-        mask = np.asarray(mask, dtype=bool)
-        if mask.any():
-            raise InputError(
-                table=self.table,
-                column=column,
-                problem=problem,
-                count=int(mask.sum()),
-                examples=self.examples(mask),
-                fix=fix,
-            )
-
-    def examples(self, mask: np.ndarray) -> list[object]:
-        rows = np.flatnonzero(mask)[:_SCAN]
-        labels = self.ids.iloc[rows].tolist() if self.ids is not None else [None] * len(rows)
-        out: list[object] = []
-        for row, label in zip(rows, labels, strict=True):
-            label = f"row {row + 1}" if label is None or pd.isna(label) else label
-            if label not in out:
-                out.append(label)
-            if len(out) == 5:
-                break
-        return out
-
-
-def _values_of(values: pd.Series, mask: np.ndarray, limit: int = 5) -> list[object]:
-    """Up to ``limit`` distinct offending values, for messages."""
-    return pd.unique(values[mask].iloc[:_SCAN]).tolist()[:limit]
 
 
 # --- tables and columns ------------------------------------------------------------------------
@@ -217,39 +189,6 @@ def _check_columns(table: str, frame: pd.DataFrame) -> None:
                     problem="has a name the checked table uses for the parsed start/end month",
                     fix="Rename it",
                 )
-
-
-def _coordinate_columns(customers: pd.DataFrame, config: Config) -> tuple[str, str, str]:
-    """Which columns hold the premise coordinates, and their CRS."""
-    columns = set(customers.columns)
-    if {"x", "y"} <= columns and config.premise_crs:
-        try:
-            pyproj.CRS.from_user_input(config.premise_crs)
-        except pyproj.exceptions.CRSError as exc:
-            raise UsageError(
-                f"[data] premise_crs was {config.premise_crs!r} but pyproj does not know it "
-                f'({exc}); give an EPSG code such as "EPSG:32630"'
-            ) from None
-        return "x", "y", str(config.premise_crs)
-    if {"lon", "lat"} <= columns:
-        return "lon", "lat", "EPSG:4326"
-    if {"x", "y"} <= columns:
-        raise InputError(
-            table="customers",
-            column="x",
-            problem="x, y are given but their CRS is not",
-            fix='Set [data] premise_crs (e.g. premise_crs = "EPSG:32630") in lifecycle.toml, '
-            "or give lon, lat instead",
-        )
-    pair = ("lon", "lat") if columns & {"lon", "lat"} else ("x", "y")
-    missing = next(c for c in pair if c not in columns)
-    raise InputError(
-        table="customers",
-        column=missing,
-        problem=f"is missing; premise coordinates are x, y (with [data] premise_crs) or lon, lat; "
-        f"the columns are {sorted(map(str, columns))}",
-        fix="Add the coordinates, or map your names in [columns.customers]",
-    )
 
 
 @dataclass(frozen=True)
@@ -304,19 +243,18 @@ def _check_customers(
         raise InputError(
             table="customers", column=None, problem="has no rows", fix="Export the customers"
         )
-    report = _Report("customers", raw["customer_id"])
+    report = Report("customers", raw["customer_id"])
     ids = raw["customer_id"]
     report.fail("customer_id", "is blank", blank(ids))
     report.fail("customer_id", "is not unique", ids.duplicated(keep=False).to_numpy())
 
-    start, bad_start = months(raw["start_month"])
-    end, bad_end = months(raw["end_month"])
-    report.fail("start_month", _not_month(raw["start_month"], bad_start), bad_start)
+    start, bad_start = months(raw["start_month"], config.month_format("customers", "start_month"))
+    end, bad_end = months(raw["end_month"], config.month_format("customers", "end_month"))
+    report.fail("start_month", _not_month(raw["start_month"], bad_start), bad_start, _MONTH_FIX)
     report.fail("start_month", "is blank; every customer needs a start month", np.isnan(start))
-    report.fail("end_month", _not_month(raw["end_month"], bad_end), bad_end)
-    future = f"is later than the extract month {format_month(extract)}"
-    report.fail("start_month", future, start > extract, _FUTURE_FIX)
-    report.fail("end_month", future, end > extract, _FUTURE_FIX)
+    report.fail("end_month", _not_month(raw["end_month"], bad_end), bad_end, _MONTH_FIX)
+    report.fail("start_month", _future(extract), start > extract, _FUTURE_FIX)
+    report.fail("end_month", _future(extract), end > extract, _FUTURE_FIX)
     report.fail("end_month", "is before start_month", end < start)
 
     reason = _end_reasons(raw["end_reason"], config, report)
@@ -337,8 +275,14 @@ def _check_customers(
     report.fail("monthly_margin", "is not a number", bad)
     report.fail("monthly_margin", "is blank", np.isnan(margin))
     report.fail("monthly_margin", "is negative", margin < 0)
+    report.fail(
+        "monthly_margin",
+        f"is absurdly large (more than {MONEY_MAX:g} a month)",
+        margin > MONEY_MAX,
+        "Check the unit and the export of the margin",
+    )
 
-    x, y = _coordinates(raw, x_name, y_name, report)
+    x, y = premise_coordinates(raw, x_name, y_name, report)
     out = pd.DataFrame(
         {
             "customer_id": ids,
@@ -353,26 +297,70 @@ def _check_customers(
     skip = set(REQUIRED_COLUMNS["customers"]) | set(_COORDINATES)
     static_columns = [c for c in raw.columns if c not in skip]
     for name in static_columns:
-        out[name] = static(raw[name])
         if name in FLAG_COLUMNS:
-            flag, _ = numbers(raw[name])
+            _check_flag(raw[name], name, report)
+        out[name] = static(raw[name])
+        if pd.api.types.is_float_dtype(out[name].dtype):
+            values = out[name].to_numpy()
             report.fail(
-                name,
-                "is a decision flag and must be 0 or 1 (blank is not allowed)",
-                ~np.isin(flag, (0.0, 1.0)),
-                "Write 1 for flagged customers and 0 for the others",
-            )
+                name, f"has absurd values (|value| > {VALUE_MAX:g})",
+                np.abs(np.nan_to_num(values)) > VALUE_MAX, "Check the unit and the export",
+            )  # fmt: skip
     return out, static_columns
+
+
+def _check_flag(values: pd.Series, name: str, report: Report) -> None:
+    """A decision flag: a flag word (1/0, true/false, yes/no, Y/N, any case) on every row."""
+    codes, uniques = pd.factorize(values)
+    words = [str(u).strip().lower() for u in uniques]
+    wrong = np.append([w not in FLAG_WORDS for w in words], True)[codes]
+    report.fail(
+        name,
+        f"is a decision flag and must be 1/0, true/false, yes/no or Y/N on every row (blank "
+        f"is not allowed), not {values_of(values.fillna(''), wrong, 3)}",
+        wrong,
+        "Write 1 (or Y) for flagged customers and 0 (or N) for the others",
+    )
+
+
+def _future(extract: float) -> str:
+    return "" if np.isinf(extract) else f"is later than the extract month {format_month(extract)}"
+
+
+def _inferred_extract(*frames: pd.DataFrame) -> int:
+    """The last month in which any row is dated: customer starts and ends, uptakes, activity
+    and campaign months."""
+    customers, *others = frames
+    latest = [customers["start"].max(), np.nanmax(customers["end"].to_numpy(), initial=-1)]
+    latest += [int(f["month"].max()) for f in others if len(f)]
+    extract = int(max(latest))
+    log.info(
+        "extract month %s inferred from the data (the last month in which a row is dated); "
+        "set [data] extract_month to fix it",
+        format_month(extract),
+    )
+    return extract
 
 
 _FUTURE_FIX = "Set [data] extract_month to the last month the data covers, or remove the later rows"
 
 
 def _not_month(values: pd.Series, bad: np.ndarray) -> str:
-    return f"has values that are not YYYY-MM months, e.g. {_values_of(values, bad, 3)}"
+    return (
+        f"has values that are not YYYY-MM months (nor YYYY-MM-DD or an ISO date-time; a real "
+        f"date in the years {YEAR_MIN}..{YEAR_MAX}), e.g. {values_of(values, bad, 3)}"
+    )
 
 
-def _end_reasons(values: pd.Series, config: Config, report: _Report) -> pd.Categorical:
+_MONTH_FIX = (
+    "Write the dates as YYYY-MM or YYYY-MM-DD, or give their format in [formats], e.g. "
+    'customers = "%d/%m/%Y"'
+)
+MONEY_MAX = 1e9  # a monthly margin above this is refused as absurd
+VALUE_MAX = 1e15  # any other number above this in magnitude is refused as absurd
+
+
+def _end_reasons(values: pd.Series, config: Config, report: Report) -> pd.Categorical:
     """End-reason codes mapped onto ``churn`` / ``move_out`` / ``other``."""
     wrong = {k: v for k, v in config.reasons.items() if v not in REASONS}
     if wrong:
@@ -384,44 +372,25 @@ def _end_reasons(values: pd.Series, config: Config, report: _Report) -> pd.Categ
     mapped = np.array([mapping.get(t, "" if t else None) for t in texts] + [None], dtype=object)
     unknown = np.array([m == "" for m in mapped], dtype=bool)
     flagged = unknown[codes]
+    odd = sorted({t for t, u in zip(texts, unknown, strict=False) if u})[:5]
     report.fail(
         "end_reason",
-        f"has unknown codes {sorted({t for t, u in zip(texts, unknown, strict=False) if u})[:5]}; "
-        f"known are {sorted(mapping)}",
+        f"has unknown codes {[cut_text(t) for t in odd]}; known are {sorted(mapping)}",
         flagged,
         'Map each code onto churn, move_out or other in [reasons], e.g. CODE = "churn"',
     )
     return pd.Categorical(mapped[codes], categories=list(REASONS))
 
 
-def _coordinates(
-    raw: pd.DataFrame, x_name: str, y_name: str, report: _Report
-) -> tuple[np.ndarray, np.ndarray]:
-    out = []
-    for name, limit in ((x_name, 180.0), (y_name, 90.0)):
-        values, bad = numbers(raw[name])
-        report.fail(name, "is not a number", bad)
-        report.fail(name, "is blank; every customer needs premise coordinates", np.isnan(values))
-        if name in ("lon", "lat"):
-            report.fail(
-                name,
-                f"is outside −{limit:g}..{limit:g} degrees",
-                np.abs(values) > limit,
-                "Check that lon and lat are not swapped, or give x, y with [data] premise_crs",
-            )
-        out.append(values)
-    return out[0], out[1]
-
-
 # --- uptakes, activity, campaigns --------------------------------------------------------------
 
 
 def _rows_of_customers(
-    table: str, raw: pd.DataFrame, known: _Customers, extract: int
-) -> tuple[np.ndarray, pd.Series, np.ndarray, _Report]:
+    table: str, raw: pd.DataFrame, known: _Customers, extract: float, config: Config
+) -> tuple[np.ndarray, pd.Series, np.ndarray, Report]:
     """The checks every customer-month table shares: ids known, months present and not later
     than the extract month. Returns (customer rows, ids, month indices, report)."""
-    report = _Report(table, raw["customer_id"])
+    report = Report(table, raw["customer_id"])
     # Only missing ids here: ids of spaces are not customers, reported just below.
     report.fail("customer_id", "is blank", raw["customer_id"].isna().to_numpy())
     pos, ids = known.positions(raw["customer_id"])
@@ -431,14 +400,11 @@ def _rows_of_customers(
         pos < 0,
         "Remove these rows, or add the customers",
     )
-    report = _Report(table, ids)
-    month, bad = months(raw["month"])
-    report.fail("month", _not_month(raw["month"], bad), bad)
+    report = Report(table, ids)
+    month, bad = months(raw["month"], config.month_format(table, "month"))
+    report.fail("month", _not_month(raw["month"], bad), bad, _MONTH_FIX)
     report.fail("month", "is blank", np.isnan(month))
-    report.fail(
-        "month", f"is later than the extract month {format_month(extract)}", month > extract,
-        _FUTURE_FIX,
-    )  # fmt: skip
+    report.fail("month", _future(extract), month > extract, _FUTURE_FIX)
     return pos, ids, month.astype(np.int32), report
 
 
@@ -459,11 +425,22 @@ def _empty(known: _Customers, text_columns: tuple[str, ...]) -> pd.DataFrame:
     return pd.DataFrame(columns | {c: pd.Series([], dtype=object) for c in text_columns})
 
 
-def _check_uptakes(raw: pd.DataFrame, known: _Customers, extract: int) -> pd.DataFrame:
+def _check_uptakes(
+    raw: pd.DataFrame, known: _Customers, extract: float, config: Config
+) -> pd.DataFrame:
     raw = plain_index(raw)
-    pos, ids, month, report = _rows_of_customers("uptakes", raw, known, extract)
+    pos, ids, month, report = _rows_of_customers("uptakes", raw, known, extract, config)
     report.fail("product", "is blank", blank(raw["product"]))
     product = raw["product"].astype(str)
+    names, kinds = pd.factorize(product)
+    wrong = np.append([not str(k).isidentifier() for k in kinds], False)[names]
+    report.fail(
+        "product",
+        f"has names that cannot be column names, e.g. {values_of(product, wrong, 3)}; a product "
+        "name becomes part of column names (uptake_<product>, holds_<product>)",
+        wrong,
+        "Use letters, digits and _ only, not starting with a digit (e.g. fibre_plus)",
+    )
     codes, _ = pd.factorize(product)
     report.fail(
         "product",
@@ -476,12 +453,12 @@ def _check_uptakes(raw: pd.DataFrame, known: _Customers, extract: int) -> pd.Dat
 
 
 def _check_activity(
-    raw: pd.DataFrame | None, known: _Customers, extract: int
+    raw: pd.DataFrame | None, known: _Customers, extract: float, config: Config
 ) -> tuple[pd.DataFrame, list[str]]:
     if raw is None:
         return _empty(known, ()), []
     raw = plain_index(raw)
-    pos, ids, month, report = _rows_of_customers("activity", raw, known, extract)
+    pos, ids, month, report = _rows_of_customers("activity", raw, known, extract, config)
     report.fail(
         "month",
         "has more than one row for the same customer and month",
@@ -500,87 +477,68 @@ def _check_activity(
         values, bad = numbers(raw[name])
         if bad.any():
             report.fail(
-                name, f"is not a number, e.g. {_values_of(raw[name], bad, 3)}", bad,
+                name, f"is not a number, e.g. {values_of(raw[name], bad, 3)}", bad,
                 "Activity columns must be numeric; blank means unknown",
             )  # fmt: skip
+        report.fail(
+            name, f"has absurd values (|value| > {VALUE_MAX:g})",
+            np.abs(np.nan_to_num(values)) > VALUE_MAX, "Check the unit and the export",
+        )  # fmt: skip
         data[name] = values
     return pd.DataFrame(data, copy=False), list(columns)
 
 
-def _check_campaigns(raw: pd.DataFrame | None, known: _Customers, extract: int) -> pd.DataFrame:
+def _check_campaigns(
+    raw: pd.DataFrame | None, known: _Customers, extract: float, config: Config
+) -> pd.DataFrame:
+    """Campaign rows, with the export's offer codes and arm labels mapped through
+    ``[campaigns] offers`` and ``arms``. When ``[[offers]]`` are configured, every offer must
+    be one of them (after the mapping): an unknown code would otherwise be ignored in silence."""
     if raw is None:
         return _empty(known, ("offer", "arm"))
     raw = plain_index(raw)
-    _, ids, month, report = _rows_of_customers("campaigns", raw, known, extract)
+    _, ids, month, report = _rows_of_customers("campaigns", raw, known, extract, config)
     report.fail("offer", "is blank", blank(raw["offer"]))
+    offer = raw["offer"].astype(str).str.strip()
+    if config.campaigns.offers:
+        offer = offer.replace(config.campaigns.offers)
+    configured = _configured_offers(config)
+    unknown = ~offer.isin(configured).to_numpy(dtype=bool)
+    if configured and unknown.any():
+        report.fail(
+            "offer",
+            f"names offers that are not configured: {values_of(offer, unknown)}; the "
+            f"configured [[offers]] are {configured}",
+            unknown,
+            "Map each code onto a configured offer in lifecycle.toml, e.g. [campaigns] "
+            f'offers = {{ {values_of(offer, unknown, 1)[0]} = "{configured[0]}" }}, or add the '
+            "offer to [[offers]]",
+        )
     arm = raw["arm"].astype("string").str.strip()
+    if config.campaigns.arms:
+        arm = arm.replace(config.campaigns.arms)
     wrong = ~arm.isin(ARMS).to_numpy(dtype=bool)
     report.fail(
         "arm",
-        f"is not one of {list(ARMS)}: {_values_of(raw['arm'], wrong)}",
+        f"is not one of {list(ARMS)}: {values_of(raw['arm'], wrong)}",
         wrong,
-        "Write offered for customers who got the offer, held_out for the random hold-out",
+        "Write offered for customers who got the offer, held_out for the random hold-out, "
+        'or map your labels in lifecycle.toml: [campaigns] arms = { T = "offered", '
+        'C = "held_out" }',
     )
     return pd.DataFrame(
         {
             "customer_id": ids,
             "month": month,
-            "offer": raw["offer"].astype(str).astype(object),
+            "offer": offer.astype(object),
             "arm": arm.astype(object),
         }
     )
 
 
-# --- areas -------------------------------------------------------------------------------------
-
-
-def _check_areas(raw: gpd.GeoDataFrame, config: Config) -> gpd.GeoDataFrame:
-    if not isinstance(raw, gpd.GeoDataFrame):
-        raise InputError(
-            table="areas", column="geometry", problem="is not a geometry column",
-            fix="Give the areas as GeoPackage, GeoJSON or GeoParquet",
-        )  # fmt: skip
-    areas = plain_index(raw)
-    if areas.geometry.name != "geometry":
-        areas = areas.rename_geometry("geometry")
-    if areas.empty:
-        raise InputError(table="areas", column=None, problem="has no rows")
-    if areas.crs is None:
-        if not config.areas_crs:
-            raise InputError(
-                table="areas",
-                column="geometry",
-                problem="has no CRS",
-                fix="Save the areas with their CRS, or set [data] areas_crs in lifecycle.toml",
-            )
-        try:
-            areas = areas.set_crs(config.areas_crs)
-        except pyproj.exceptions.CRSError as exc:
-            raise UsageError(
-                f"[data] areas_crs was {config.areas_crs!r} but pyproj does not know it ({exc})"
-            ) from None
-    report = _Report("areas", areas["area_id"])
-    report.fail("area_id", "is blank", blank(areas["area_id"]))
-    report.fail("area_id", "is not unique", areas["area_id"].duplicated(keep=False).to_numpy())
-    geometry = areas.geometry
-    report.fail("geometry", "is missing or empty", (geometry.isna() | geometry.is_empty).to_numpy())
-    kind = geometry.geom_type
-    wrong = ~kind.isin(_POLYGONS).to_numpy()
-    report.fail(
-        "geometry",
-        f"is not a polygon but {_values_of(kind, wrong)}; areas must be Polygon or MultiPolygon",
-        wrong,
-    )
-    invalid = ~geometry.is_valid.to_numpy()
-    if invalid.any():
-        log.warning(
-            "areas: %d polygons are not valid (e.g. %s); point-in-polygon results near their "
-            "flaws may be off; shapely.make_valid can mend them",
-            int(invalid.sum()), report.examples(invalid),
-        )  # fmt: skip
-    for name in areas.columns:
-        if name not in ("area_id", "geometry") and is_text(areas[name]):
-            values, bad = numbers(areas[name])
-            if not bad.any() and not np.isnan(values).all():
-                areas[name] = values
-    return areas
+def _configured_offers(config: Config) -> list[str]:
+    """The names of the ``[[offers]]`` (read in full, and checked, by `lifecycle.decisions`)."""
+    offers = config.raw.get("offers", [])
+    if not isinstance(offers, list):
+        return []
+    return [str(o["name"]) for o in offers if isinstance(o, dict) and "name" in o]

@@ -14,7 +14,13 @@ def describe_tables(tables: Tables) -> str:
     extract = tables.extract_month
     active = c["end"].isna() | (c["end"] > extract)
     lines = [
-        f"extract month: {format_month(extract)}",
+        f"extract month: {format_month(extract)}"
+        + (
+            " (inferred: the last month in which a row is dated; set [data] extract_month to fix "
+            "it)"
+            if tables.extract_inferred
+            else " (from [data] extract_month)"
+        ),
         f"customers: {len(c):,} ({int(active.sum()):,} active at the extract month); starts "
         f"{format_month(int(c['start'].min()))} to {format_month(int(c['start'].max()))}",
     ]

@@ -33,12 +33,14 @@ def blank(values: pd.Series) -> np.ndarray:
     return missing
 
 
-def months(values: pd.Series) -> tuple[np.ndarray, np.ndarray]:
+def months(values: pd.Series, fmt: str | None = None) -> tuple[np.ndarray, np.ndarray]:
     """`months_to_index`, parsing each distinct text once (a month column has few)."""
     if not is_text(values):
-        return months_to_index(values)
+        return months_to_index(values, fmt=fmt)
     codes, uniques = pd.factorize(values)
-    parsed, bad = months_to_index(pd.Series(np.asarray(uniques, dtype=object), dtype=object))
+    parsed, bad = months_to_index(
+        pd.Series(np.asarray(uniques, dtype=object), dtype=object), fmt=fmt
+    )
     return np.append(parsed, np.nan)[codes], np.append(bad, False)[codes]
 
 
@@ -66,12 +68,37 @@ def to_float(values: pd.Series) -> np.ndarray:
     return pd.to_numeric(values, errors="coerce").to_numpy(dtype=np.float64, na_value=np.nan)
 
 
+# Flag words, read in any case: 1/0, true/false, yes/no, y/n.
+FLAG_WORDS = {"1": 1.0, "0": 0.0, "true": 1.0, "false": 0.0, "yes": 1.0, "no": 0.0}
+FLAG_WORDS |= {"y": 1.0, "n": 0.0, "1.0": 1.0, "0.0": 0.0}
+
+
+def flags(values: pd.Series) -> np.ndarray | None:
+    """A flag column as float64 1.0 / 0.0 (NaN where blank), or ``None`` if some value is not
+    a flag word (`FLAG_WORDS`, any case) nor a blank."""
+    if pd.api.types.is_bool_dtype(values.dtype):
+        return values.to_numpy(dtype=np.float64, na_value=np.nan)
+    if not is_text(values):
+        out = values.to_numpy(dtype=np.float64, na_value=np.nan)
+        return out if np.isin(out[~np.isnan(out)], (0.0, 1.0)).all() else None
+    codes, uniques = pd.factorize(values)
+    words = [str(u).strip().lower() for u in uniques]
+    if any(w and w not in FLAG_WORDS for w in words):
+        return None
+    lookup = np.array([FLAG_WORDS.get(w, np.nan) for w in words] + [np.nan], dtype=np.float64)
+    return lookup[codes]
+
+
 def static(values: pd.Series) -> pd.Series:
-    """A static attribute: 0/1 flags as int8, numbers as float64, other text as string."""
+    """A static attribute: flags (0/1, true/false, yes/no, Y/N, any case) without blanks as
+    int8 0/1, numbers as float64, other text as string."""
     if isinstance(values.dtype, pd.CategoricalDtype) or pd.api.types.is_datetime64_any_dtype(
         values.dtype
     ):
         return values
+    flag = flags(values) if is_text(values) else None
+    if flag is not None and len(flag) and not np.isnan(flag).any():
+        return pd.Series(flag.astype(np.int8), index=values.index, name=values.name)
     numeric, bad = numbers(values)
     if bad.any() or (is_text(values) and np.isnan(numeric).all() and values.notna().any()):
         return values.astype("string")

@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import csv
 import logging
 import os
 from pathlib import Path
@@ -52,7 +53,32 @@ def read_raw_tables(source: str | Path, config: Config | None = None) -> RawTabl
 def _rename(frame: pd.DataFrame, table: str, config: Config) -> pd.DataFrame:
     mapping = config.columns.get(table, {})
     theirs_to_ours = {theirs: ours for ours, theirs in mapping.items() if theirs in frame.columns}
+    clash = [ours for theirs, ours in theirs_to_ours.items() if ours in frame.columns]
+    if clash:
+        raise InputError(
+            table=table,
+            column=clash[0],
+            problem=f"is given twice: as itself and as '{mapping[clash[0]]}', mapped onto it in "
+            f"[columns.{table}]",
+            fix="Drop one of the two columns, or remove the mapping",
+        )
     return frame.rename(columns=theirs_to_ours) if theirs_to_ours else frame
+
+
+def _check_header(names: list[object], table: str, file: Path, config: Config) -> None:
+    """Refuse a header that names a column twice (pandas would rename one ``name.1``)."""
+    seen: set[str] = set()
+    repeated = [str(n) for n in names if str(n) in seen or seen.add(str(n))]
+    if repeated:
+        ours = {v: k for k, v in config.columns.get(table, {}).items()}.get(repeated[0])
+        raise InputError(
+            table=table,
+            column=ours or repeated[0],
+            source_column=repeated[0] if ours else None,
+            problem=f"appears more than once in the header of {file} "
+            f"(repeated: {sorted(set(repeated))[:5]})",
+            fix="Give every column its own name, or drop the copies",
+        )
 
 
 def _read_folder(folder: Path, config: Config):
@@ -65,7 +91,9 @@ def _read_folder(folder: Path, config: Config):
             continue
         sources[name] = str(file)
         log.info("reading %s from %s", name, file)
-        frames[name] = _read_areas_file(file) if name == "areas" else _read_tabular(file, name)
+        frames[name] = (
+            _read_areas_file(file) if name == "areas" else _read_tabular(file, name, config)
+        )
     return frames, sources
 
 
@@ -100,10 +128,15 @@ def _table_path(folder: Path, name: str, given: str) -> Path:
     return inside
 
 
-def _read_tabular(file: Path, name: str) -> pd.DataFrame:
+def _read_tabular(file: Path, name: str, config: Config) -> pd.DataFrame:
     try:
         if file.suffix.lower() == ".parquet":
+            import pyarrow.parquet as pq
+
+            _check_header(pq.read_schema(file).names, name, file, config)
             return pd.read_parquet(file)
+        with open(file, newline="", encoding="utf-8-sig", errors="replace") as handle:
+            _check_header(next(csv.reader(handle), []), name, file, config)
         return pd.read_csv(file, dtype=str, keep_default_na=False, na_values=[""])
     except (OSError, ValueError, pd.errors.ParserError) as exc:
         raise InputError(

@@ -52,6 +52,8 @@ class Tables:
         The last month the data covers.
     products
         Product names, sorted.
+    extract_inferred
+        True when ``extract_month`` was inferred from the data (no ``[data] extract_month``).
     """
 
     customers: pd.DataFrame
@@ -64,3 +66,4 @@ class Tables:
     products: list[str]
     static_columns: list[str] = field(default_factory=list)
     activity_columns: list[str] = field(default_factory=list)
+    extract_inferred: bool = False

@@ -143,6 +143,8 @@ class Offer:
     The effect multiplies the monthly hazard of ``target`` by ``hazard_ratio`` in months
     1..``months`` after the contact. For an uptake offer, ``value_per_uptake`` is the value of
     one more customer taking the product up (a lump sum in the month of uptake).
+    ``effect_interval`` is the 95 % interval of ``hazard_ratio`` when it was estimated from
+    past campaigns (``None``: the ratio is the configured one).
     """
 
     name: str
@@ -154,6 +156,7 @@ class Offer:
     cooldown_months: int = 3
     weekly_capacity: int | None = None
     eligible: Eligibility = field(default_factory=Eligibility)
+    effect_interval: tuple[float, float] | None = None
 
     def __post_init__(self) -> None:
         where = f"offer {self.name!r}"

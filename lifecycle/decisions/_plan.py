@@ -70,6 +70,15 @@ class Plan:
             "budget_used": a.budget_used,
             "contacts": int(sum(a.counts)),
             "counts": {o.name: c for o, c in zip(self.offers, a.counts, strict=True)},
+            "effects": {
+                o.name: {
+                    "hazard_ratio": o.hazard_ratio,
+                    "from": "campaigns" if o.effect_interval else "settings",
+                    "lower_95": o.effect_interval[0] if o.effect_interval else None,
+                    "upper_95": o.effect_interval[1] if o.effect_interval else None,
+                }
+                for o in self.offers
+            },
             "candidate_pairs": a.candidates,
             "excluded_customers": self.excluded,
         }

@@ -258,6 +258,7 @@ def plan_section(inputs: ReportInputs) -> tuple[Section, dict[str, Any]]:
         rows,
         caption="Offers",
     )
+    _offer_effects(section, summary.get("effects"))
     solver = {k: summary[k] for k in ("solver", "status", "gap", "relative_gap") if k in summary}
     if solver:
         section.table(
@@ -299,6 +300,30 @@ def plan_section(inputs: ReportInputs) -> tuple[Section, dict[str, Any]]:
             key[extra] = summary[extra]
     rate_key = _offer_rates(section, inputs.offer_rates)
     return section, {"plan": key, "offer_rates": rate_key}
+
+
+def _offer_effects(section: Section, effects: dict[str, Any] | None) -> None:
+    """Where each offer's hazard ratio comes from: past campaigns (with its interval) or the
+    settings."""
+    if not effects:
+        return
+    rows = [
+        [
+            Cell(str(name)),
+            Cell(f"{e['hazard_ratio']:.3f}", number=True),
+            Cell(
+                f"{e['lower_95']:.3f} to {e['upper_95']:.3f}" if e["from"] == "campaigns" else "",
+                number=True,
+            ),
+            Cell("past campaigns with a hold-out" if e["from"] == "campaigns" else "settings"),
+        ]
+        for name, e in effects.items()
+    ]
+    section.table(
+        ["offer", "hazard ratio", "95% interval", "effect from"],
+        rows,
+        caption="Offer effects: estimated from past campaigns, or as configured",
+    )
 
 
 def _offer_rates(section: Section, rates: pd.DataFrame | None) -> dict[str, Any] | None:

@@ -57,6 +57,27 @@ def _rank_by_id(areas: gpd.GeoDataFrame) -> np.ndarray:
     return rank
 
 
+def _rank_by_size(areas: gpd.GeoDataFrame) -> np.ndarray:
+    """Rank of each area by its size, smallest first (ties: ``area_id`` order)."""
+    by_id = _rank_by_id(areas)
+    order = np.lexsort((by_id, areas.geometry.area.to_numpy()))
+    rank = np.empty(len(order), dtype=np.int64)
+    rank[order] = np.arange(len(order))
+    return rank
+
+
+def _swapped_hits(
+    areas: gpd.GeoDataFrame, x: np.ndarray, y: np.ndarray, source: CRS, area_crs: CRS
+) -> int:
+    """How many of these premises would lie in an area with their two coordinates swapped."""
+    points = gpd.GeoSeries.from_xy(y, x, crs=source)
+    if not area_crs.equals(source):
+        points = points.to_crs(area_crs)
+    ok = np.isfinite(points.x.to_numpy()) & np.isfinite(points.y.to_numpy())
+    hit, _ = areas.sindex.query(points[ok], predicate="intersects")
+    return int(np.unique(hit).size)
+
+
 def _best_rank(n: int, points: np.ndarray, ranks: np.ndarray) -> np.ndarray:
     """For each of ``n`` premises the smallest area rank among its matches, else ``_NONE``."""
     best = np.full(n, _NONE, dtype=np.int64)
@@ -85,15 +106,18 @@ def area_positions(tables: Tables, config: Config | None = None) -> np.ndarray:
             area_crs.to_string(),
         )
         points = points.to_crs(area_crs)
-    rank = _rank_by_id(areas)
+    rank = _rank_by_size(areas) if config.spatial.overlaps == "smallest" else _rank_by_id(areas)
     hit_point, hit_area = areas.sindex.query(points, predicate="intersects")
     best = _best_rank(n, hit_point, rank[hit_area])
     shared = int((np.bincount(hit_point, minlength=n) > 1).sum())
     if shared:
         log.info(
             "%d premise(s) lie in more than one area (on a shared boundary or where areas "
-            "overlap); each takes the area whose area_id sorts first",
+            "overlap); each takes the %s",
             shared,
+            "smallest area"
+            if config.spatial.overlaps == "smallest"
+            else "area whose area_id sorts first",
         )
     outside = np.flatnonzero(best == _NONE)
     max_m = float(config.spatial.nearest_area_max_m)
@@ -107,6 +131,13 @@ def area_positions(tables: Tables, config: Config | None = None) -> np.ndarray:
         outside = np.flatnonzero(best == _NONE)
     if outside.size:
         within = f" and none is within {max_m:g} m" if max_m > 0 else ""
+        swapped = _swapped_hits(areas, x[outside], y[outside], source, area_crs)
+        if swapped * 2 >= outside.size:
+            names = coordinate_columns(source).replace(", ", " and ")
+            within += (
+                f"; {swapped} of them would lie in an area with {names} swapped: check which "
+                "column is which (and the mapping in [columns.customers])"
+            )
         raise InputError(
             table="customers",
             column=coordinate_columns(source),
@@ -115,7 +146,7 @@ def area_positions(tables: Tables, config: Config | None = None) -> np.ndarray:
             examples=customers["customer_id"].to_numpy()[outside[:5]],
             fix="add the missing area polygons or correct the coordinates, or set [spatial] "
             "nearest_area_max_m to give such premises the nearest area within that distance",
-        )
+        ).with_source_names(config.columns)
     by_rank = np.empty(len(rank), dtype=np.int64)
     by_rank[rank] = np.arange(len(rank))
     return by_rank[best]
@@ -149,9 +180,12 @@ def premise_areas(tables: Tables, config: Config | None = None) -> pd.Series:
 
     Each premise is joined to the area polygon that contains it (point in polygon, boundary
     included, in the areas' CRS; premises are reprojected there when their CRS differs, with a
-    log line naming both). A premise on a boundary shared by several areas, or inside
-    overlapping areas, takes the area whose ``area_id`` sorts first, so the result does not
-    depend on the order of the areas table. A premise in no area is an error, unless
+    log line naming both). Areas whose interiors overlap are refused by `check_tables` unless
+    ``[spatial] overlaps`` chooses a rule: ``"smallest"`` (a premise in several areas takes the
+    smallest) or ``"first_id"``. A premise on a boundary shared by several areas takes the area
+    whose ``area_id`` sorts first (under ``"smallest"``: the smallest), so the result does not
+    depend on the order of the areas table. A premise in no area is an error (naming swapped
+    coordinates when most such premises would lie in an area with x and y swapped), unless
     ``[spatial] nearest_area_max_m`` is positive: then it takes the nearest area within that
     many metres (measured in the CRS of `distance_crs`), and only premises farther than that
     from every area are an error.

@@ -143,8 +143,8 @@ def estimate_offer_effects(
 
     with the 95 % Wald interval ``exp(β̂ ± 1.96·se)``; k is months since the offer month.
     A customer in several campaign rows of one offer gets a robust (sandwich) variance
-    clustered by customer. Each estimate is logged with a note that it replaces the configured
-    hazard ratio of the offer.
+    clustered by customer. Each estimate is logged, saying whether it replaces the hazard
+    ratio of a configured offer or names no configured offer (then no plan uses it).
 
     Parameters
     ----------
@@ -188,11 +188,12 @@ def estimate_offer_effects(
         guess = getattr(spec, "hazard_ratio", None) if spec is not None else None
         log.info(
             "offer %r: hazard ratio on %s %.3f (95%% interval %.3f to %.3f) over %d months from "
-            "%d offered and %d held-out customers with %d events; this estimate replaces the "
-            "configured %s",
+            "%d offered and %d held-out customers with %d events; %s",
             name, target, row["hazard_ratio"], row["lower_95"], row["upper_95"], months,
             row["n_offered"], row["n_held_out"], row["events"],
-            f"hazard ratio {guess:g}" if guess is not None else "guess",
+            f"the plan uses it instead of the configured hazard ratio {guess:g}"
+            if guess is not None
+            else "it is not a configured offer, so no plan uses it",
         )  # fmt: skip
     frame = pd.DataFrame(rows, columns=EFFECT_COLUMNS)
     counts = {"n_offered": np.int64, "n_held_out": np.int64, "events": np.int64}
