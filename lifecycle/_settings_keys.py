@@ -10,7 +10,6 @@ defaults here with the stages' own (the model families' ``get_params()`` among t
 from __future__ import annotations
 
 from ._settings import (
-    Kind,
     FLAG,
     NUMBER,
     NUMBER_OR_INF,
@@ -24,6 +23,7 @@ from ._settings import (
     WHOLES_BY_TEXT,
     Check,
     Key,
+    Kind,
     Section,
     above,
     at_least,
@@ -261,8 +261,12 @@ _OFFERS = (
             at_least(0)),
         Key("urgency", TEXT, "cif_{target}_3m", "column ranking an offer's contacts ({target}: "
             "the offer's target)"),
-        Key("exclude", TEXT_OR_TEXTS, ["do_not_contact", "hardship"], "flag columns: a flagged "
-            "customer is never selected"),
+        Key("exclude", TEXT_OR_TEXTS, ["do_not_contact", "hardship"], "further flag columns: a "
+            "flagged customer is never selected (do_not_contact and hardship always are)"),
+        Key("flags_absent", TEXT_OR_TEXTS, [], "decision flags (do_not_contact, hardship) this "
+            "portfolio does not have; otherwise a missing flag column is an input error"),
+        Key("consent_column", TEXT, None, "a marketing opt-in flag column: only opted-in "
+            "customers are eligible", example="marketing_opt_in"),
         Key("reasons", WHOLE, 3, "reasons per plan row (0: none)", at_least(0)),
     )),
     Section("reason_phrases", "words for reasons: feature pattern (regular expression) = phrase",
@@ -287,7 +291,7 @@ _STAGES = (
             at_least(0)),
     )),
     Section("run", "`lifecycle run`: the monthly cycle", (
-        Key("families", TEXTS, ["cox", "boosted"], "families compared in the backtest (the "
+        Key("families", TEXTS, ["cox", "boosted", "forest"], "families compared in the backtest (the "
             "tenure life table always is)", both(Check("non-empty", bool),
                                                   each(choice(*FAMILIES)))),
         Key("cutoffs", WHOLE, 2, "past cutoffs in the backtest, 3 months apart", at_least(1)),

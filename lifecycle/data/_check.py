@@ -538,7 +538,6 @@ def _check_campaigns(
 
 def _configured_offers(config: Config) -> list[str]:
     """The names of the ``[[offers]]`` (read in full, and checked, by `lifecycle.decisions`)."""
-    offers = config.raw.get("offers", [])
-    if not isinstance(offers, list):
-        return []
-    return [str(o["name"]) for o in offers if isinstance(o, dict) and "name" in o]
+    from ..decisions import offers_from_config
+
+    return [offer.name for offer in offers_from_config(config)]
