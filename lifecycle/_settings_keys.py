@@ -291,8 +291,8 @@ _STAGES = (
             at_least(0)),
     )),
     Section("run", "`lifecycle run`: the monthly cycle", (
-        Key("families", TEXTS, ["cox", "boosted", "forest"], "families compared in the backtest (the "
-            "tenure life table always is)", both(Check("non-empty", bool),
+        Key("families", TEXTS, ["cox", "boosted", "forest"], "families compared in the "
+            "backtest (the tenure life table always is)", both(Check("non-empty", bool),
                                                   each(choice(*FAMILIES)))),
         Key("cutoffs", WHOLE, 2, "past cutoffs in the backtest, 3 months apart", at_least(1)),
         Key("refit_months", WHOLE, 1, "refit when the saved model is this many months old",
