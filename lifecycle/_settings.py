@@ -283,12 +283,16 @@ def _check_value(key: Key, name: str, value: Any, where: str, src: str) -> None:
     hint = ""
     if key.kind is WHOLE and isinstance(value, float):
         hint = " (a number without a fraction, e.g. 12, not 12.0 or 12.9)"
+    elif key.kind is TEXT and not isinstance(value, str):
+        hint = f" (write it in quotes: {shown(str(value))})"
     raise UsageError(
         f"{src}: {where} {name} was {shown(value)} but is expected to be {key.allowed()}{hint}"
     )
 
 
 def _unknown(name, value, section, dotted, here, by_name, src) -> UsageError:
+    name = name if len(name) <= 40 else name[:39] + "…"
+
     def mean(options: list[str], word: str, fmt: str) -> str:
         close = difflib.get_close_matches(word, options, n=1, cutoff=0.6)
         return f" (did you mean {fmt.format(close[0])}?)" if close else ""
@@ -360,7 +364,7 @@ def toml_value(value: Any) -> str:
             return "{}"
         inner = ", ".join(f"{_toml_key(k)} = {toml_value(v)}" for k, v in value.items())
         return "{ " + inner + " }"
-    return repr(value)
+    return str(value)  # TOML dates and times
 
 
 def _toml_key(name: str) -> str:

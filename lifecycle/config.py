@@ -91,9 +91,11 @@ class Config:
 
 
 def setting(config: Config | None, key: str) -> Any:
-    """One setting by its dotted name (``"value.horizon_months"``): the file's value, else the
-    schema's default (``None`` where there is none)."""
-    return _settings.setting(config.raw if config else {}, SECTIONS, key)
+    """One setting by its dotted name (``"value.horizon_months"``): the file's value (its
+    section checked against the schema), else the schema's default (``None`` if none)."""
+    name, _, last = key.rpartition(".")
+    values = section(config, name)
+    return values[last] if last in values else _settings.setting({}, SECTIONS, key)
 
 
 def section(config: Config | None, name: str) -> dict[str, Any]:

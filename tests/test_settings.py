@@ -109,6 +109,11 @@ def test_a_table_path_out_of_the_data_folder_is_refused_when_built_in_python(dat
         extract_month=EXTRACT,
     )
     assert len(load_tables(data, inside).customers) == 6
+    elsewhere = data.parent / "elsewhere"
+    elsewhere.mkdir()
+    (data / "customers.csv").rename(elsewhere / "customers.csv")
+    absolute = dataclasses.replace(inside, tables={"customers": str(elsewhere / "customers.csv")})
+    assert len(load_tables(data, absolute).customers) == 6  # an absolute path, on purpose
 
 
 # -- the template ---------------------------------------------------------------------------

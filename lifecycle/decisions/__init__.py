@@ -1,9 +1,10 @@
 """From expected values to decisions: offers, the contact plan, its weeks and its reasons.
 
-The offers and the plan's settings are read from ``lifecycle.toml`` (format in
-`lifecycle.decisions._offers`); `make_plan` chooses at most one offer per customer within the
-budget and capacities (exact MILP or greedy, with the optimality gap), schedules the contacts
-into weeks, most urgent first, and gives each row its top reasons in plain words.
+The offers and the plan's settings are read from ``lifecycle.toml`` (``lifecycle settings``
+prints every setting; `lifecycle.decisions._offers` explains them); `make_plan` chooses at
+most one offer per customer within the budget and capacities (exact MILP or greedy, with the
+optimality gap), schedules the contacts into weeks, most urgent first, and gives each row its
+top reasons in plain words.
 """
 
 from ._offers import (

@@ -163,7 +163,7 @@ def _rounded(value: Any) -> Any:
 
 
 def config_text(months: int, move_rate_months: int) -> str:
-    """``lifecycle.toml`` for the demo data (format: ``lifecycle.config``)."""
+    """``lifecycle.toml`` for the demo data (every setting: ``lifecycle settings``)."""
     return f"""# Settings for the invented demo scenario, written by `lifecycle demo`.
 [data]
 extract_month = "{P.AS_OF}"
