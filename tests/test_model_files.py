@@ -47,7 +47,7 @@ def test_save_then_load_round_trip_and_manifest(tables, tmp_path):
     assert set(manifest["files"]) == {"model.joblib"}
     assert manifest["causes"] == ["churn", "move_out", "other_exit", "uptake_gadget"]
     assert manifest["training_window"] == {"first_month": "2022-11", "last_month": "2026-10"}
-    loaded = load_model(folder)
+    loaded = load_model(folder, trusted_modules=("tests",))
     np.testing.assert_array_equal(loaded.rates_, model.rates_)
 
 
@@ -59,10 +59,10 @@ def test_a_changed_model_file_is_refused_before_loading(tables, tmp_path):
     with open(folder / "model.joblib", "ab") as handle:
         handle.write(b"\0")
     with pytest.raises(ModelFileError, match=r"SHA-256.*will not be loaded"):
-        load_model(folder)
+        load_model(folder, trusted_modules=("tests",))
     (folder / "manifest.json").unlink()
     with pytest.raises(ModelFileError, match=r"no manifest\.json"):
-        load_model(folder)
+        load_model(folder, trusted_modules=("tests",))
 
 
 def test_scores_add_up_and_exclude_holders_from_uptake(tables):

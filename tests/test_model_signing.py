@@ -64,17 +64,70 @@ def test_the_signature_is_hmac_sha256_of_the_manifest(saved):
     key = signing_key()
     expected = hmac.new(key, (saved / "manifest.json").read_bytes(), hashlib.sha256).hexdigest()
     assert (saved / SIGNATURE).read_text().strip() == expected  # RFC 2104, Python's hmac
-    assert isinstance(load_model(saved), ConstantHazards)
+    assert isinstance(load_model(saved, trusted_modules=("tests",)), ConstantHazards)
 
 
-def test_the_planted_payload_would_run_if_signed_with_the_key(saved, tmp_path):
-    """The control: only the key stands between the payload and its marker."""
+def test_the_planted_payload_is_live(saved, tmp_path):
+    """The control: plain ``joblib.load`` runs the payload and creates the marker."""
     marker = tmp_path / "ran"
     _plant(saved, marker)
-    _resign(saved)
-    with pytest.raises(ModelFileError, match="does not hold a lifecycle model"):
-        load_model(saved)
+    joblib.load(saved / "model.joblib")
     assert marker.exists()
+
+
+@pytest.mark.parametrize(
+    "target",
+    [(exec, "open({m!r}, 'w').close()"), ("pandas.read_pickle", "{m}"), ("os.system", "touch {m}")],
+)
+def test_even_a_signed_payload_is_refused_by_the_allow_list(saved, tmp_path, target):
+    """Behind the signature, unpickling may construct only what a model holds: a payload
+    signed with the right key (as if the key had leaked) is still refused."""
+    import importlib
+
+    marker = tmp_path / "ran"
+    func, argument = target
+    if isinstance(func, str):
+        module, name = func.rsplit(".", 1)
+        func = getattr(importlib.import_module(module), name)
+
+    class Other:
+        def __reduce__(self):
+            return (func, (argument.format(m=str(marker)),))
+
+    joblib.dump(Other(), saved / "model.joblib")
+    manifest = json.loads((saved / "manifest.json").read_text())
+    manifest["files"]["model.joblib"] = hashlib.sha256(
+        (saved / "model.joblib").read_bytes()
+    ).hexdigest()
+    (saved / "manifest.json").write_text(json.dumps(manifest, indent=2, sort_keys=True) + "\n")
+    _resign(saved)
+    with pytest.raises(ModelFileError, match="never holds"):
+        load_model(saved, trusted_modules=("tests",))
+    assert not marker.exists()
+
+
+def test_the_allow_list_admits_every_family():
+    """Every class the three families and the champion pickle (listed by recording joblib's
+    unpickler on fitted models of each family) is allowed."""
+    from lifecycle.models._unpickle import allowed
+
+    names = [
+        ("lifecycle.models._champion", "ChampionModel"), ("lifecycle.models._cox", "_CauseFit"),
+        ("lifecycle.models._forest", "_Encoder"), ("lifecycle.models._design", "CovariateDesign"),
+        ("lifecycle.evaluation._baseline", "TenureLifeTable"), ("numpy", "dtype"),
+        ("numpy._core.multiarray", "_reconstruct"), ("numpy.random._pickle", "__generator_ctor"),
+        ("numpy.random.bit_generator", "__pyx_unpickle_SeedSequence"),
+        ("pandas._libs.internals", "_unpickle_block"), ("pandas.core.indexes.base", "_new_Index"),
+        ("sklearn._loss._loss", "__pyx_unpickle_CyHalfMultinomialLoss"),
+        ("sklearn.utils.validation", "check_array"), ("sksurv.tree.tree", "SurvivalTree"),
+        ("joblib.numpy_pickle", "NumpyArrayWrapper"), ("functools", "partial"),
+        ("builtins", "slice"),
+    ]  # fmt: skip
+    assert [n for n in names if not allowed(*n)] == []
+    refused = [("builtins", "eval"), ("os", "system"), ("pandas", "read_pickle"),
+               ("numpy", "load"), ("numpy.lib.npyio", "NpzFile"), ("lifecycle.demo", "write_demo"),
+               ("builtins", "getattr"), ("subprocess", "Popen")]  # fmt: skip
+    assert [n for n in refused if allowed(*n)] == []
 
 
 @pytest.mark.parametrize("update_hash", [True, False])
@@ -82,7 +135,7 @@ def test_a_planted_model_is_refused_by_score_and_never_runs(saved, tmp_path, cap
     marker = tmp_path / "ran"
     _plant(saved, marker, update_hash=update_hash)
     with pytest.raises(ModelFileError, match="signature" if update_hash else "SHA-256"):
-        load_model(saved)
+        load_model(saved, trusted_modules=("tests",))
     out = tmp_path / "scores.csv"
     data = tmp_path / "data"
     data.mkdir()
@@ -97,12 +150,12 @@ def test_a_planted_model_is_refused_by_score_and_never_runs(saved, tmp_path, cap
 def test_an_unsigned_or_otherwise_signed_manifest_is_refused(saved, monkeypatch):
     (saved / SIGNATURE).unlink()
     with pytest.raises(ModelFileError, match="unsigned"):
-        load_model(saved)
+        load_model(saved, trusted_modules=("tests",))
     _resign(saved)
-    load_model(saved)
+    load_model(saved, trusted_modules=("tests",))
     monkeypatch.setenv(KEY_ENV, "x" * 64)  # another key
     with pytest.raises(ModelFileError, match="signature"):
-        load_model(saved)
+        load_model(saved, trusted_modules=("tests",))
 
 
 @pytest.mark.parametrize(
@@ -125,7 +178,7 @@ def test_a_malformed_manifest_is_a_model_file_error_with_exit_2(
         text = json.dumps(manifest)
     path.write_bytes(text.encode("latin-1"))
     with pytest.raises(ModelFileError, match=message):
-        load_model(saved)
+        load_model(saved, trusted_modules=("tests",))
     data = tmp_path / "data"
     data.mkdir()
     out = tmp_path / "s.csv"
@@ -145,7 +198,7 @@ def test_manifest_file_entries_must_be_names_with_hashes(saved, bad):
     (saved / "manifest.json").write_text(json.dumps(manifest))
     _resign(saved)
     with pytest.raises(ModelFileError, match="plain file names"):
-        load_model(saved)
+        load_model(saved, trusted_modules=("tests",))
 
 
 def test_library_versions_major_refused_minor_warned(saved, caplog):
@@ -155,7 +208,7 @@ def test_library_versions_major_refused_minor_warned(saved, caplog):
     (saved / "manifest.json").write_text(json.dumps(manifest))
     _resign(saved)
     with pytest.raises(ModelFileError, match="saved with numpy"):
-        load_model(saved)
+        load_model(saved, trusted_modules=("tests",))
     manifest["versions"]["numpy"] = f"{numpy_now[0]}.{int(numpy_now[1]) + 1}.0"
     (saved / "manifest.json").write_text(json.dumps(manifest))
     _resign(saved)
@@ -187,7 +240,7 @@ def test_the_default_key_file_honours_xdg_config_home(tmp_path, monkeypatch):
 def test_a_key_inside_the_model_or_data_folder_is_refused(saved, tmp_path, monkeypatch):
     monkeypatch.setenv(KEY_FILE_ENV, str(saved / "signing.key"))
     with pytest.raises(UsageError, match="inside"):
-        load_model(saved)
+        load_model(saved, trusted_modules=("tests",))
     assert not (saved / "signing.key").exists()
     data = tmp_path / "data"
     data.mkdir()

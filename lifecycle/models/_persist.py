@@ -5,7 +5,8 @@ Loading a joblib file runs code, so a file is loaded only when the manifest's si
 and every file's hash matches the manifest; anything else is refused with `ModelFileError`
 before a byte is unpickled. The libraries the model was saved with are compared too: a
 different major version of numpy, pandas, scikit-learn, scikit-survival or lifelines is
-refused, a different minor version is logged as a warning.
+refused, a different minor version is logged as a warning. Unpickling itself may construct
+only the classes a model holds (`lifecycle.models._unpickle`).
 """
 
 from __future__ import annotations
@@ -25,6 +26,7 @@ from .._files import write_atomic, write_csv_atomic, write_text_atomic
 from ..errors import ModelFileError
 from ._base import HazardModel
 from ._signing import sign, signature_matches, signing_key
+from ._unpickle import restricted_load
 
 log = logging.getLogger(__name__)
 
@@ -220,8 +222,12 @@ def _major_minor(version: str) -> tuple[int | None, int | None]:
     return int(match.group(1)), int(match.group(2) or 0)
 
 
-def load_model(folder: str | Path) -> HazardModel:
+def load_model(folder: str | Path, *, trusted_modules: tuple[str, ...] = ()) -> HazardModel:
     """Load a model saved by `save_model`, after `verify_model_folder`.
+
+    Unpickling constructs only classes of lifecycle's models and the libraries they use
+    (`lifecycle.models._unpickle`); a family of your own needs its module named in
+    ``trusted_modules`` (e.g. ``("mypackage.models",)``).
 
     Raises `ModelFileError` if the manifest is missing, malformed or its signature does not
     hold, a file is missing, a hash does not match (the file was changed or replaced after
@@ -229,7 +235,7 @@ def load_model(folder: str | Path) -> HazardModel:
     """
     folder = Path(folder)
     verify_model_folder(folder)
-    model = joblib.load(folder / MODEL_FILE)
+    model = restricted_load(folder / MODEL_FILE, tuple(trusted_modules))
     if not isinstance(model, HazardModel):
         raise ModelFileError(f"{folder / MODEL_FILE} does not hold a lifecycle model")
     return model
