@@ -9,7 +9,7 @@ from sklearn.base import BaseEstimator
 from .._months import categorical_to_index
 from ..errors import UsageError
 from ..panel import PanelLayout, panel_layout
-from ._competing import survival_and_incidence
+from ._competing import survival_and_incidence, uptake_incidence, valid_hazards
 
 _SEASON_ANGLE = 2.0 * np.pi * np.arange(12) / 12.0
 _BLOCK_CUSTOMERS = 50_000
@@ -133,8 +133,8 @@ class HazardModel(BaseEstimator):
         for lo in range(0, max(len(snapshot), 1), _BLOCK_CUSTOMERS):
             part = snapshot.iloc[lo : lo + _BLOCK_CUSTOMERS]
             future = future_rows(part, horizon)
-            blocks.append(np.clip(self._hazard_array(future, len(part), horizon), 0.0, 1.0))
-        array = np.concatenate(blocks, axis=0)
+            blocks.append(self._hazard_array(future, len(part), horizon))
+        array = valid_hazards(np.concatenate(blocks, axis=0), len(self.terminal_causes_))
         for j, cause in enumerate(self.causes_):
             holds = PanelLayout.at_risk_column(cause)
             if holds is not None and holds in snapshot:
@@ -154,18 +154,14 @@ def incidence_from_hazards(hazards: np.ndarray, n_terminal: int) -> np.ndarray:
     """Cumulative incidence ``(n, T, K)`` of every cause from hazards ``(n, T, K)``.
 
     Terminal causes compete with each other; each uptake cause (after the terminal ones)
-    competes with all terminal causes (see `HazardModel.predict_cumulative_incidence`).
+    competes with all terminal causes (see `HazardModel.predict_cumulative_incidence`). The
+    hazards must be valid (`valid_hazards`), as every model's are.
     """
     k = n_terminal
     _, terminal = survival_and_incidence(hazards[..., :k])
     parts = [terminal]
-    exits = hazards[..., :k].sum(axis=-1, keepdims=True)
     for j in range(k, hazards.shape[-1]):
-        # within a month, uptake and exits share one probability: cap uptake at what is left
-        uptake = np.minimum(hazards[..., j : j + 1], np.clip(1.0 - exits, 0.0, 1.0))
-        stacked = np.concatenate([uptake, hazards[..., :k]], axis=-1)
-        _, incidence = survival_and_incidence(stacked)
-        parts.append(incidence[..., :1])
+        parts.append(uptake_incidence(hazards, range(k), j)[..., None])
     return np.concatenate(parts, axis=-1)
 
 

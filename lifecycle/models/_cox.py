@@ -88,9 +88,8 @@ class CauseSpecificCox(HazardModel):
 
     and beyond the last tenure month seen in training the baseline is held at the mean of
     ``ΔH_{0k}`` over the last 12 months seen. (Should the terminal hazards of a row sum past 1,
-    which takes extreme covariates, they are replaced by the continuous-time split
-    ``Λ_k/ΣΛ · (1 − exp(−ΣΛ))`` with ``Λ_k = ΔH_{0k} exp(β̂_k·(x − c_k))``, and an uptake hazard
-    is capped at 1 minus the terminal ones, so that survival stays a probability.)
+    which takes extreme covariates, the shared `valid_hazards` splits them in continuous time
+    and caps the uptakes, as for every family.)
 
     Parameters
     ----------
@@ -324,27 +323,10 @@ class CauseSpecificCox(HazardModel):
 
     # -- prediction ---------------------------------------------------------------------------
     def _hazard_array(self, future: pd.DataFrame, n: int, horizon: int) -> np.ndarray:
-        k = len(self.terminal_causes_)
         cumulative = np.column_stack(
             [self.cause_fits_[c].cumulative_hazards(future) for c in self.causes_]
         )
-        hazards = -np.expm1(-cumulative)
-        terminal_total = hazards[:, :k].sum(axis=1)
-        over = terminal_total > 1.0
-        if over.any():
-            lam = cumulative[over, :k]
-            total = lam.sum(axis=1, keepdims=True)
-            hazards[over, :k] = lam / total * -np.expm1(-total)
-            terminal_total[over] = hazards[over, :k].sum(axis=1)
-            log.warning(
-                "cox: %d customer-months had terminal hazards summing past 1 (extreme "
-                "covariates); split by the continuous-time rule",
-                int(over.sum()),
-            )
-        if hazards.shape[1] > k:
-            room = np.maximum(1.0 - terminal_total, 0.0)[:, None]
-            hazards[:, k:] = np.minimum(hazards[:, k:], room)
-        return hazards.reshape(n, horizon, -1)
+        return -np.expm1(-cumulative).reshape(n, horizon, -1)
 
 
 _COEF_COLUMNS = ["cause", "feature", "coef", "se", "hazard_ratio", "lower_95", "upper_95"]
