@@ -103,6 +103,14 @@ def test_rossi_reproduces_published_coefficients(rossi):
         assert abs(table.loc[feature, "coef"] - value) <= 0.5 * 10**-decimals + 1e-12, feature
     for feature, (value, decimals) in ROSSI_SE.items():
         assert abs(table.loc[feature, "se"] - value) <= 0.5 * 10**-decimals + 1e-12, feature
+    # z and p against lifelines' own summary of CoxPHFitter on the same Rossi data
+    # (lifelines.datasets.load_rossi; two-sided Wald test)
+    data, _ = rossi
+    cph = CoxPHFitter().fit(data[["week", "arrest", *ROSSI_FEATURES]], "week", "arrest")
+    summary = cph.summary
+    np.testing.assert_allclose(table.loc[ROSSI_FEATURES, "z"], summary["z"], rtol=1e-4)
+    np.testing.assert_allclose(table.loc[ROSSI_FEATURES, "p"], summary["p"], rtol=1e-3)
+    assert table.loc["fin", "p"] < 0.05 < table.loc["race", "p"]  # a test that can fail
     row = table.loc["fin"]
     np.testing.assert_allclose(row["hazard_ratio"], np.exp(row["coef"]))
     np.testing.assert_allclose(

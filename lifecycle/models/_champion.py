@@ -65,3 +65,9 @@ class ChampionModel(HazardModel):
         """The Cox family's coefficients, when it is one of the fitted families."""
         cox = getattr(self, "fitted_", {}).get("cox")
         return getattr(cox, "coefficients_", None)
+
+    @property
+    def ph_tests_(self) -> pd.DataFrame | None:
+        """The Cox family's proportional-hazards tests, when it is one of the fitted families."""
+        cox = getattr(self, "fitted_", {}).get("cox")
+        return getattr(cox, "ph_tests_", None)

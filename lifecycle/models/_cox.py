@@ -113,9 +113,10 @@ class CauseSpecificCox(HazardModel):
     Learned attributes
     ------------------
     coefficients_ : pandas.DataFrame
-        ``cause``, ``feature``, ``coef`` (β̂, log hazard ratio per unit), ``se``,
-        ``hazard_ratio`` (exp β̂), ``lower_95``, ``upper_95`` (the 95 % Wald interval of the
-        hazard ratio, ``exp(β̂ ∓ 1.96 se)``).
+        ``cause``, ``feature``, ``coef`` (β̂, log hazard ratio per unit), ``se``, ``z``
+        (``β̂ / se``), ``p`` (two-sided Wald p-value, ``2 · (1 − Φ(|z|))``), ``hazard_ratio``
+        (exp β̂), ``lower_95``, ``upper_95`` (the 95 % Wald interval of the hazard ratio,
+        ``exp(β̂ ∓ 1.96 se)``).
     ph_tests_ : pandas.DataFrame
         ``cause``, ``feature``, ``statistic``, ``p_value``: the proportional-hazards test of
         each covariate (Grambsch & Therneau 1994, Biometrika 81, 515–526) — the correlation of
@@ -329,7 +330,9 @@ class CauseSpecificCox(HazardModel):
         return -np.expm1(-cumulative).reshape(n, horizon, -1)
 
 
-_COEF_COLUMNS = ["cause", "feature", "coef", "se", "hazard_ratio", "lower_95", "upper_95"]
+_COEF_COLUMNS = [
+    "cause", "feature", "coef", "se", "z", "p", "hazard_ratio", "lower_95", "upper_95"
+]  # fmt: skip
 _PH_COLUMNS = ["cause", "feature", "statistic", "p_value"]
 
 
@@ -560,14 +563,20 @@ def _monthly(times: np.ndarray, jumps: np.ndarray, months: int) -> np.ndarray:
 def _coefficient_table(
     cause: str, names: list[str], beta: np.ndarray, se: np.ndarray
 ) -> pd.DataFrame:
-    """``coefficients_`` rows of one cause; a separated covariate may give an infinite bound."""
-    with np.errstate(over="ignore"):
+    """``coefficients_`` rows of one cause; a separated covariate may give an infinite bound.
+
+    ``z = β̂ / se`` and ``p = 2 · (1 − Φ(|z|))``, the two-sided Wald test of β = 0.
+    """
+    with np.errstate(over="ignore", divide="ignore", invalid="ignore"):
+        z = beta / se
         return pd.DataFrame(
             {
                 "cause": cause,
                 "feature": names,
                 "coef": beta,
                 "se": se,
+                "z": z,
+                "p": 2.0 * stats.norm.sf(np.abs(z)),
                 "hazard_ratio": np.exp(beta),
                 "lower_95": np.exp(beta - _Z95 * se),
                 "upper_95": np.exp(beta + _Z95 * se),
