@@ -23,6 +23,10 @@ The file is optional; every setting has a default. Its format, section by sectio
     window_months = 48               # months of history in the panel, ending at as_of
     not_features = ["do_not_contact", "hardship"]   # customer columns kept out of models
     trailing_sums = { complaints = 3 }              # activity column = months summed, lagged
+    known_future = { contract_months_left = "countdown" }   # feature = schedule of its future
+                                     # values when predicting months ahead ("countdown",
+                                     # "within:<countdown column>:<k>", "until:<countdown
+                                     # column>"; lifecycle/panel/_future.py); default none
 
     [spatial]
     radii_m = [400]                  # nearby-adoption radii in metres (boundary inclusive)
@@ -55,6 +59,7 @@ class PanelSettings:
     window_months: int = 48
     not_features: tuple[str, ...] = ("do_not_contact", "hardship")
     trailing_sums: dict[str, int] = field(default_factory=dict)
+    known_future: dict[str, str] = field(default_factory=dict)
 
 
 @dataclass(frozen=True)
@@ -122,7 +127,12 @@ def load_config(path: str | Path | None) -> Config:
     bad = {k: v for k, v in reasons.items() if v not in REASONS}
     if bad:
         raise UsageError(f"{path}: [reasons] maps onto {bad}; each must be one of {list(REASONS)}")
-    panel = _section(raw, "panel", {"window_months", "not_features", "trailing_sums"}, path)
+    panel = _section(
+        raw, "panel", {"window_months", "not_features", "trailing_sums", "known_future"}, path
+    )
+    from .panel._future import check_known_future
+
+    known_future = check_known_future(panel.get("known_future"))
     spatial = _section(
         raw, "spatial", {"radii_m", "distance_crs", "nearest_area_max_m", "move_rate_months"}, path
     )
@@ -139,6 +149,7 @@ def load_config(path: str | Path | None) -> Config:
             window_months=int(panel.get("window_months", 48)),
             not_features=tuple(panel.get("not_features", PanelSettings.not_features)),
             trailing_sums={str(k): int(v) for k, v in panel.get("trailing_sums", {}).items()},
+            known_future=known_future,
         ),
         spatial=SpatialSettings(
             radii_m=tuple(float(r) for r in spatial.get("radii_m", (400.0,))),

@@ -9,6 +9,7 @@ from sklearn.base import BaseEstimator
 from .._months import categorical_to_index
 from ..errors import UsageError
 from ..panel import PanelLayout, panel_layout
+from ..panel._future import project_known_future
 from ._competing import survival_and_incidence, uptake_incidence, valid_hazards
 
 _SEASON_ANGLE = 2.0 * np.pi * np.arange(12) / 12.0
@@ -42,6 +43,10 @@ class HazardModel(BaseEstimator):
         `future_rows` (customer-major: customer i's month k is row ``i * horizon + k − 1``)."""
         raise NotImplementedError
 
+    def _known_future(self) -> dict[str, str] | None:
+        """The schedule of the features whose future is known (``known_future``), if any."""
+        return getattr(self, "known_future", None)
+
     # -- the shared part ----------------------------------------------------------------------
     @property
     def causes_(self) -> tuple[str, ...]:
@@ -63,8 +68,9 @@ class HazardModel(BaseEstimator):
         """Monthly cause-specific hazards for months 1..``horizon`` after the snapshot.
 
         Month k is the k-th month from the snapshot's ``month`` on (the snapshot row holds the
-        features known at the end of the month before). Tenure and season advance with k;
-        every other covariate is held at its snapshot value.
+        features known at the end of the month before). Tenure and season advance with k, and
+        so do the features of the model's ``known_future`` schedule (`future_rows`); every
+        other covariate is held at its snapshot value.
 
         Returns
         -------
@@ -132,7 +138,7 @@ class HazardModel(BaseEstimator):
         blocks = []
         for lo in range(0, max(len(snapshot), 1), _BLOCK_CUSTOMERS):
             part = snapshot.iloc[lo : lo + _BLOCK_CUSTOMERS]
-            future = future_rows(part, horizon)
+            future = future_rows(part, horizon, self._known_future())
             blocks.append(self._hazard_array(future, len(part), horizon))
         array = valid_hazards(np.concatenate(blocks, axis=0), len(self.terminal_causes_))
         for j, cause in enumerate(self.causes_):
@@ -165,11 +171,14 @@ def incidence_from_hazards(hazards: np.ndarray, n_terminal: int) -> np.ndarray:
     return np.concatenate(parts, axis=-1)
 
 
-def future_rows(snapshot: pd.DataFrame, horizon: int) -> pd.DataFrame:
+def future_rows(
+    snapshot: pd.DataFrame, horizon: int, known_future: dict[str, str] | None = None
+) -> pd.DataFrame:
     """The snapshot repeated for months 1..``horizon``, tenure and season advanced.
 
     Customer-major: customer i's month k is row ``i * horizon + k − 1``. Adds ``month_ahead``.
-    ``month`` becomes the integer month index of each row.
+    ``month`` becomes the integer month index of each row. The columns of ``known_future``
+    (``{column: schedule}``, `lifecycle.panel._future`) are moved ``k − 1`` months on.
     """
     n = len(snapshot)
     repeat = np.repeat(np.arange(n), horizon)
@@ -183,4 +192,5 @@ def future_rows(snapshot: pd.DataFrame, horizon: int) -> pd.DataFrame:
     if "season_sin" in future:
         future["season_sin"] = np.sin(_SEASON_ANGLE).astype(np.float32)[month % 12]
         future["season_cos"] = np.cos(_SEASON_ANGLE).astype(np.float32)[month % 12]
+    project_known_future(future, step, known_future)
     return future

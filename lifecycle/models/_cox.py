@@ -109,6 +109,10 @@ class CauseSpecificCox(HazardModel):
         ``max_rows`` rows are used (`lifecycle.models._sampling`); ``None`` never samples.
     random_state : int or None, default 0
         Seed of the row sampling; the same seed gives the same fit.
+    known_future : dict or None
+        Features whose future path is known, ``{column: schedule}`` (``[panel]
+        known_future``; `lifecycle.panel._future`): projected month by month when predicting
+        months 2..horizon, as tenure and season are. ``None``: held at the snapshot.
 
     Learned attributes
     ------------------
@@ -139,11 +143,13 @@ class CauseSpecificCox(HazardModel):
         sample_fraction: float | None = None,
         max_rows: int | None = 1_500_000,
         random_state: int | None = 0,
+        known_future: dict[str, str] | None = None,
     ) -> None:
         self.penalizer = penalizer
         self.sample_fraction = sample_fraction
         self.max_rows = max_rows
         self.random_state = random_state
+        self.known_future = known_future
 
     # -- fitting ------------------------------------------------------------------------------
     def _fit(self, panel: pd.DataFrame) -> None:

@@ -30,7 +30,9 @@ def make_model(family: str, config: Config | None = None) -> HazardModel:
         [models.boosted]
         max_iter = 200
 
-    Unknown families or hyperparameters raise `UsageError` naming what is allowed.
+    Unknown families or hyperparameters raise `UsageError` naming what is allowed. The
+    families that project features month by month (Cox, boosted) take ``[panel]
+    known_future``.
     """
     families = _families()
     if family not in families:
@@ -39,10 +41,13 @@ def make_model(family: str, config: Config | None = None) -> HazardModel:
     settings = (config.raw if config else {}).get("models", {}).get(family, {})
     if not isinstance(settings, dict):
         raise UsageError(f"[models.{family}] must be a table of hyperparameters")
-    allowed = sorted(cls().get_params())
+    allowed = sorted(set(cls().get_params()) - {"known_future"})
     unknown = sorted(set(settings) - set(allowed))
     if unknown:
         raise UsageError(
             f"[models.{family}] has unknown hyperparameter(s) {unknown}; allowed are {allowed}"
         )
+    if config is not None and config.panel.known_future and "known_future" in cls().get_params():
+        # features whose future is known come from [panel] known_future, for every family
+        settings = {**settings, "known_future": dict(config.panel.known_future)}
     return cls(**settings)
