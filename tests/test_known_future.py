@@ -65,7 +65,8 @@ def test_until_holds_a_status_while_its_countdown_lasts_and_nan_stays_nan():
 @pytest.mark.parametrize(
     "schedule, fragment",
     [
-        ({"a": "countup"}, "is not a schedule"),
+        ({"a": "countsideways"}, "is not a schedule"),
+        ({"a": "upto:b:2"}, 'must itself be declared "countup"'),
         ({"a": "within:b"}, "is not a schedule"),
         ({"a": "within:b:x"}, "is not a schedule"),
         ({"a": 3}, "is not a schedule"),
@@ -84,7 +85,9 @@ def test_the_setting_reaches_the_families(tmp_path):
     )
     config = load_config(path)
     assert config.panel.known_future == {"contract_months_left": "countdown"}
-    assert make_model("cox", config).known_future == {"contract_months_left": "countdown"}
+    assert make_model("cox", config).known_future == {
+        "contract_months_left": "countdown"
+    }  # no offers
     assert make_model("boosted", config).known_future == {"contract_months_left": "countdown"}
     path.write_text('[panel]\nknown_future = { x = "later" }\n', encoding="utf-8")
     with pytest.raises(UsageError, match="known_future"):

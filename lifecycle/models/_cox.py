@@ -20,6 +20,7 @@ from ..panel import PanelLayout
 from ._base import HazardModel
 from ._design import CovariateDesign
 from ._sampling import check_max_rows, non_event_share
+from ._smooth import smoothed_rates
 
 log = logging.getLogger(__name__)
 
@@ -81,15 +82,19 @@ class CauseSpecificCox(HazardModel):
     expressed at the weighted covariate mean ``c_k`` (lifelines centres its own baseline at the
     unweighted mean and leaves the weights out of the denominator; this estimator equals
     lifelines' for unit weights once re-centred). It is summed into tenure months:
-    ``ΔH_{0k}(t) = H_{0k}(t) − H_{0k}(t − 1)`` for month ``t`` = ``(t − 1, t]``. The monthly
-    hazard of a row in tenure month t is
+    ``ΔH_{0k}(t) = H_{0k}(t) − H_{0k}(t − 1)`` for month ``t`` = ``(t − 1, t]``, and then smoothed
+    over tenure where events are few (`lifecycle.models._smooth`: a kernel hazard estimate,
+    Ramlau-Hansen 1983, whose window widens until it holds ``baseline_min_events`` events, so
+    that thinly populated tenures neither spike nor drop to 0; where one month holds that many
+    events it is Breslow's estimate unchanged). The monthly hazard of a row in tenure month t is
 
         h_k(t | x) = 1 − exp(−ΔH_{0k}(t) · exp(β̂_k · (x − c_k)))
 
-    and beyond the last tenure month seen in training the baseline is held at the mean of
-    ``ΔH_{0k}`` over the last 12 months seen. (Should the terminal hazards of a row sum past 1,
-    which takes extreme covariates, the shared `valid_hazards` splits them in continuous time
-    and caps the uptakes, as for every family.)
+    and beyond the last tenure month seen in training the baseline is held at the rate
+    ``Σ d / Σ E`` of the trailing months that span at least 12 months and hold at least
+    ``baseline_min_events`` events. (Should the terminal hazards of a row sum past 1, which
+    takes extreme covariates, the shared `valid_hazards` splits them in continuous time and
+    caps the uptakes, as for every family.)
 
     Parameters
     ----------
@@ -109,6 +114,13 @@ class CauseSpecificCox(HazardModel):
         ``max_rows`` rows are used (`lifecycle.models._sampling`); ``None`` never samples.
     random_state : int or None, default 0
         Seed of the row sampling; the same seed gives the same fit.
+    baseline_min_events : float, default 20
+        Events the smoothing window of each tenure month must hold (see above); 0 keeps
+        Breslow's raw monthly increments. The default was chosen by backtest on the demo
+        (15,000 customers, cutoffs 18 and 12 months before the extract, 12-month horizon: mean
+        Uno C over the four causes 0.5735 raw, 0.5745 at 10, 0.5779 at 20, 0.5772 at 40,
+        0.5775 at 80, churn Brier equal to 10⁻⁴); 20 also keeps the life table within 2 % of
+        Nelson–Aalen where at least 100 are at risk (lifelines' democracy data).
     known_future : dict or None
         Features whose future path is known, ``{column: schedule}`` (``[panel]
         known_future``; `lifecycle.panel._future`): projected month by month when predicting
@@ -131,7 +143,8 @@ class CauseSpecificCox(HazardModel):
         p-values flag covariates whose effect changes with tenure.
     baseline_hazard_ : pandas.DataFrame
         ``ΔH_{0k}(t)`` by tenure month (index ``tenure_start`` = t − 1) and cause, at the
-        weighted covariate mean of that cause's training rows; NaN past a cause's last month.
+        weighted covariate mean of that cause's training rows, smoothed as above; NaN past a
+        cause's last month.
     cause_fits_ : dict
         Per cause, the arrays used for prediction (no training rows are kept).
     """
@@ -144,12 +157,14 @@ class CauseSpecificCox(HazardModel):
         max_rows: int | None = 1_500_000,
         random_state: int | None = 0,
         known_future: dict[str, str] | None = None,
+        baseline_min_events: float = 20,
     ) -> None:
         self.penalizer = penalizer
         self.sample_fraction = sample_fraction
         self.max_rows = max_rows
         self.random_state = random_state
         self.known_future = known_future
+        self.baseline_min_events = baseline_min_events
 
     # -- fitting ------------------------------------------------------------------------------
     def _fit(self, panel: pd.DataFrame) -> None:
@@ -200,6 +215,9 @@ class CauseSpecificCox(HazardModel):
         r = self.random_state
         if r is not None and (isinstance(r, bool) or not isinstance(r, numbers.Integral) or r < 0):
             raise UsageError(f"random_state was {r!r} but is expected to be None or an int >= 0")
+        b = self.baseline_min_events
+        if isinstance(b, bool) or not isinstance(b, numbers.Real) or not b >= 0:
+            raise UsageError(f"baseline_min_events was {b!r} but is expected to be a number >= 0")
 
     def _fit_cause(
         self,
@@ -257,10 +275,7 @@ class CauseSpecificCox(HazardModel):
         se = np.sqrt(np.diag(cov))
         centre = np.average(x, axis=0, weights=weights) if x.shape[1] else np.empty(0)
         phi = weights * np.exp(np.clip((x - centre) @ beta, -_MAX_LOG_RISK, _MAX_LOG_RISK))
-        increments = _monthly(
-            risk.times, breslow_increments(risk, stop, event, weights, phi), months
-        )
-        tail = float(increments[-_TAIL_MONTHS:].mean()) if increments.size else 0.0
+        increments, tail = self._smoothed_baseline(risk, start, stop, event, weights, phi, months)
         fit = _CauseFit(cause, design, beta, se, centre, increments, tail,
                         int(event.size), int(event.sum()))  # fmt: skip
 
@@ -274,6 +289,31 @@ class CauseSpecificCox(HazardModel):
             columns=_PH_COLUMNS,
         )
         return fit, coefs, ph
+
+    def _smoothed_baseline(
+        self,
+        risk: RiskSets,
+        start: np.ndarray,
+        stop: np.ndarray,
+        event: np.ndarray,
+        weights: np.ndarray,
+        phi: np.ndarray,
+        months: int,
+    ) -> tuple[np.ndarray, float]:
+        """ΔH_0 by tenure month, smoothed (`smoothed_rates`), and the rate beyond the last.
+
+        Events ``d(t)`` and exposure ``E(t) = d(t) / ΔĤ_0(t)`` (Breslow's denominator, so that
+        an unsmoothed month is Breslow's exactly); a month without events takes the risk-set
+        sum ``Σ φ`` at its end as its exposure.
+        """
+        raw = _monthly(risk.times, breslow_increments(risk, stop, event, weights, phi), months)
+        events = _monthly(stop[event], weights[event], months)
+        ends = RiskSets(start, stop, np.arange(1, months + 1, dtype=np.float64)).sums(phi)
+        with np.errstate(divide="ignore", invalid="ignore"):
+            exposure = np.where(events > 0, events / raw, ends)
+        return smoothed_rates(
+            events, exposure, min_events=self.baseline_min_events, tail_months=_TAIL_MONTHS
+        )
 
     def _partial_likelihood(
         self,

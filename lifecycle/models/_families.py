@@ -32,7 +32,7 @@ def make_model(family: str, config: Config | None = None) -> HazardModel:
 
     Unknown families or hyperparameters raise `UsageError` naming what is allowed. The
     families that project features month by month (Cox, boosted) take ``[panel]
-    known_future``.
+    known_future`` and the schedules of the past-offer features (`lifecycle.panel._offers`).
     """
     families = _families()
     if family not in families:
@@ -47,7 +47,11 @@ def make_model(family: str, config: Config | None = None) -> HazardModel:
         raise UsageError(
             f"[models.{family}] has unknown hyperparameter(s) {unknown}; allowed are {allowed}"
         )
-    if config is not None and config.panel.known_future and "known_future" in cls().get_params():
-        # features whose future is known come from [panel] known_future, for every family
-        settings = {**settings, "known_future": dict(config.panel.known_future)}
+    if config is not None and "known_future" in cls().get_params():
+        # features whose future is known: past offers' (by themselves) and [panel] known_future
+        from ..panel._offers import offer_schedules
+
+        schedule = {**offer_schedules(config), **config.panel.known_future}
+        if schedule:
+            settings = {**settings, "known_future": schedule}
     return cls(**settings)

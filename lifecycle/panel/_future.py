@@ -23,9 +23,15 @@ snapshot value of the named countdown column:
 ``until:<column>``
     ``v`` while ``L − s > 0``, then ``0``: a status that stays until the countdown in
     ``<column>`` runs out (a promotion until its last month, say).
+``countup``
+    ``v + s``: months since something, one more each month (past offers' months since).
+``upto:<column>:<k>``
+    ``1`` while the count-up ``C + s`` of ``<column>`` is at most ``k``, else ``0`` (``C`` its
+    snapshot value; 0 when C is missing): an offer's effect window.
 
 A missing value (NaN) stays missing. The column named by ``within`` and ``until`` must itself
-be a ``countdown``.
+be a ``countdown``, the one named by ``upto`` a ``countup``. The schedules of the past-offer
+features (`lifecycle.panel._offers`) are added by themselves.
 """
 
 from __future__ import annotations
@@ -39,7 +45,8 @@ from ..errors import UsageError
 
 __all__ = ["check_known_future", "project_known_future"]
 
-_KINDS = ("countdown", "within:<column>:<k>", "until:<column>")
+_KINDS = ("countdown", "within:<column>:<k>", "until:<column>", "countup", "upto:<column>:<k>")
+_NEEDS = {"within": "countdown", "until": "countdown", "upto": "countup"}
 
 
 def check_known_future(schedule: Mapping[str, object] | None) -> dict[str, str]:
@@ -52,8 +59,8 @@ def check_known_future(schedule: Mapping[str, object] | None) -> dict[str, str]:
         text = spec if isinstance(spec, str) else repr(spec)
         parts = text.split(":")
         ok = isinstance(spec, str) and (
-            (parts == ["countdown"])
-            or (parts[0] == "within" and len(parts) == 3 and _whole(parts[2]))
+            (parts in (["countdown"], ["countup"]))
+            or (parts[0] in ("within", "upto") and len(parts) == 3 and _whole(parts[2]))
             or (parts[0] == "until" and len(parts) == 2)
         )
         if not ok:
@@ -94,6 +101,14 @@ def project_known_future(
         parts = spec.split(":")
         if parts[0] == "countdown":
             new = np.maximum(v - steps, 0.0)
+        elif parts[0] == "countup":
+            new = v + steps
+        elif parts[0] == "upto":
+            if parts[1] not in snapshot:
+                continue
+            count = snapshot[parts[1]] + steps
+            on = ~np.isnan(count) & (count <= int(parts[2]))
+            new = np.where(ahead, on.astype(np.float64), v)
         else:
             if parts[1] not in snapshot:
                 continue
