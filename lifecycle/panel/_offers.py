@@ -4,11 +4,15 @@ For each offer of ``[[offers]]`` (its ``name`` and effect ``months``) that the c
 has ``offered`` rows of, the row of customer i in month m gets, from the offers received in
 months ``r ≤ m − 1`` (known at the end of m − 1, like every feature):
 
-- ``offer_<name>_months_since`` = ``m − r*`` with ``r*`` the latest such month (float32;
-  NaN when the customer never received it);
 - ``offer_<name>_active`` = 1 when ``1 ≤ m − r* ≤ months``, else 0: month m lies in the
   offer's effect window, months ``r* + 1 … r* + months`` (the window of the offer's hazard ratio,
-  as `lifecycle.value.campaign_follow_up` follows it up).
+  as `lifecycle.value.campaign_follow_up` follows it up), with ``r*`` the latest such month;
+- ``offer_<name>_months_since`` = ``m − r*`` (float32; NaN when the customer never received
+  it).
+
+The flag comes first: when a campaign lies just before the cutoff, "inside the window" and
+"ever received" are the same in the training rows, and a model that keeps the first of two
+confounded columns (the Cox family) then keeps the one whose future is known.
 
 Held-out customers did not receive the offer and get no feature values from it. With them a
 model no longer credits an offer's effect to other features, nor over-predicts the exits of
@@ -92,6 +96,8 @@ def offer_features(
         hit[hit] = (keys[at[hit]] // _BIG) == row_customer[hit]
         since = np.full(row_key.size, np.nan, dtype=np.float32)
         since[hit] = row_month[hit] - keys[at[hit]] % _BIG
-        out[f"offer_{name}_months_since"] = since
+        # the window flag first: where it and "never received" are confounded in training (a
+        # campaign shortly before the cutoff), a model keeps the flag, whose future is known
         out[f"offer_{name}_active"] = ((since >= 1) & (since <= window)).astype(np.float32)
+        out[f"offer_{name}_months_since"] = since
     return out
