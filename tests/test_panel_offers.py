@@ -57,6 +57,11 @@ def test_offer_features_by_hand():
     assert (two["offer_credit_active"] == 0).all()
     # an offer without campaign rows, or not configured, gives no column
     assert not any("move_help" in c or "unknown" in c for c in panel.columns)
+    # nor does one whose receipts no row can see yet (a panel as of the campaign month)
+    early = build_panel(make_tables([{"customer_id": 1, "start_month": "2026-01"}], campaigns=[
+        {"customer_id": 1, "month": "2026-03", "offer": "credit", "arm": "offered"}
+    ]), "2026-03", config=CONFIG)  # fmt: skip
+    assert not any(c.startswith("offer_") for c in early.columns)
 
 
 def test_the_projection_reproduces_later_rows_when_nothing_new_is_received():

@@ -1,7 +1,7 @@
 """Past offers as panel features: months since an offer was received, and its effect window.
 
 For each offer of ``[[offers]]`` (its ``name`` and effect ``months``) that the campaigns table
-has ``offered`` rows of, the row of customer i in month m gets, from the offers received in
+has ``offered`` rows of, dated before the last month of the rows built, the row of customer i in month m gets, from the offers received in
 months ``r ≤ m − 1`` (known at the end of m − 1, like every feature):
 
 - ``offer_<name>_active`` = 1 when ``1 ≤ m − r* ≤ months``, else 0: month m lies in the
@@ -94,6 +94,8 @@ def offer_features(
         at = np.searchsorted(keys, row_key, side="right") - 1
         hit = at >= 0
         hit[hit] = (keys[at[hit]] // _BIG) == row_customer[hit]
+        if not hit.any():
+            continue  # no row sees a receipt yet (a campaign after these months)
         since = np.full(row_key.size, np.nan, dtype=np.float32)
         since[hit] = row_month[hit] - keys[at[hit]] % _BIG
         # the window flag first: where it and "never received" are confounded in training (a
