@@ -1,8 +1,9 @@
 """Past offers as panel features: months since an offer was received, and its effect window.
 
 For each offer of ``[[offers]]`` (its ``name`` and effect ``months``) that the campaigns table
-has ``offered`` rows of, dated before the last month of the rows built, the row of customer i in month m gets, from the offers received in
-months ``r ≤ m − 1`` (known at the end of m − 1, like every feature):
+has ``offered`` rows of, dated before the last month of the rows built, the row of customer i
+in month m gets, from the offers received in months ``r ≤ m − 1`` (known at the end of m − 1,
+like every feature):
 
 - ``offer_<name>_active`` = 1 when ``1 ≤ m − r* ≤ months``, else 0: month m lies in the
   offer's effect window, months ``r* + 1 … r* + months`` (the window of the offer's hazard ratio,
