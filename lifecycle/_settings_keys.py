@@ -109,6 +109,11 @@ _REASONS = Section(
     examples=('SW = "churn"', 'MV = "move_out"'),
 )
 
+_TEXTS_BY_TEXT = Kind(
+    "a table of text = text",
+    lambda v: isinstance(v, dict) and all(isinstance(x, str) for x in v.values()),
+)
+
 _PANEL = Section("panel", "the customer-month panel", (
     Key("window_months", WHOLE, 48, "months of history in the panel, ending at as_of",
         at_least(1)),
@@ -116,6 +121,9 @@ _PANEL = Section("panel", "the customer-month panel", (
         "customer columns kept out of the models (decision flags)"),
     Key("trailing_sums", WHOLES_BY_TEXT, {}, "activity column = months summed before each "
         "month (lagged), e.g. { complaints = 3 }", each(at_least(1))),
+    Key("known_future", _TEXTS_BY_TEXT, {}, "feature = schedule of its future values when "
+        'predicting months ahead: "countdown", "countup", "within:<countdown column>:<k>", '
+        '"upto:<countdown column>:<k>", "until:<countdown column>"'),
 ))  # fmt: skip
 
 _SPATIAL = Section("spatial", "spatial context", (
@@ -130,11 +138,6 @@ _SPATIAL = Section("spatial", "spatial context", (
     Key("overlaps", TEXT, "refuse", "premises in overlapping areas: refuse, or take the "
         "smallest area, or the first area id", choice(*OVERLAP_RULES)),
 ))  # fmt: skip
-
-_TEXTS_BY_TEXT = Kind(
-    "a table of text = text",
-    lambda v: isinstance(v, dict) and all(isinstance(x, str) for x in v.values()),
-)
 
 _FORMATS = Section(
     "formats",
@@ -160,6 +163,8 @@ _MODELS = (
         Key("max_rows", WHOLE, 1_500_000, "rows fitted per cause at most, about (events all "
             "kept, the others sampled and weighted)", at_least(1000)),
         Key("random_state", WHOLE, 0, "seed of the row sample", _SEED),
+        Key("baseline_min_events", NUMBER, 20, "events the smoothing window of each tenure "
+            "month's baseline hazard must hold (0: raw Breslow steps)", at_least(0)),
     )),
     Section("models.forest", "hyperparameters of the survival-forest family", (
         Key("horizon", WHOLE, None, "months followed after each landmark (default: the "

@@ -33,6 +33,7 @@ class PanelSettings:
     window_months: int = 48
     not_features: tuple[str, ...] = DECISION_FLAGS
     trailing_sums: dict[str, int] = field(default_factory=dict)
+    known_future: dict[str, str] = field(default_factory=dict)
 
     def __post_init__(self) -> None:
         # The decision flags are never model inputs, whatever the setting lists; a single
@@ -160,6 +161,9 @@ def load_config(path: str | Path | None) -> Config:
     data, panel, spatial = raw.get("data", {}), raw.get("panel", {}), raw.get("spatial", {})
     formats = _formats(raw, path)
     campaigns = _campaigns(raw, path)
+    from .panel._future import check_known_future
+
+    known_future = check_known_future(panel.get("known_future"))
     if data.get("extract_month"):
         parse_month(data["extract_month"], what=f"{path}: [data] extract_month")
     config = Config(
@@ -173,6 +177,7 @@ def load_config(path: str | Path | None) -> Config:
             window_months=panel.get("window_months", PanelSettings.window_months),
             not_features=_not_features(raw, panel),
             trailing_sums=dict(panel.get("trailing_sums", {})),
+            known_future=known_future,
         ),
         spatial=SpatialSettings(
             radii_m=tuple(float(r) for r in spatial.get("radii_m", SpatialSettings.radii_m)),

@@ -19,6 +19,7 @@ def make_tables(
     static_columns: tuple[str, ...] = ("monthly_margin",),
     activity_columns: tuple[str, ...] | None = None,
     products: tuple[str, ...] | None = None,
+    campaigns: list[dict] = (),
 ) -> Tables:
     """Checked-form tables from rows with ``YYYY-MM`` months.
 
@@ -52,10 +53,18 @@ def make_tables(
         uptakes=u,
         areas=gpd.GeoDataFrame({"area_id": []}, geometry=[], crs="EPSG:32625"),
         activity=a,
-        campaigns=pd.DataFrame(columns=["customer_id", "month", "offer", "arm"]),
+        campaigns=_campaigns(campaigns),
         premise_crs="EPSG:32625",
         extract_month=parse_month(extract_month),
         products=sorted(u["product"].unique().tolist()) if products is None else list(products),
         static_columns=list(static_columns),
         activity_columns=activity_columns,
     )
+
+
+def _campaigns(rows: list[dict]) -> pd.DataFrame:
+    """Campaign rows (``customer_id``, ``month`` as ``YYYY-MM``, ``offer``, ``arm``)."""
+    frame = pd.DataFrame(list(rows), columns=["customer_id", "month", "offer", "arm"])
+    if len(frame):
+        frame["month"] = frame["month"].map(parse_month).astype(np.int32)
+    return frame

@@ -29,7 +29,7 @@ from lifecycle.evaluation import (
     outcome_for_cause,
 )
 from lifecycle.models import CauseSpecificCox, HazardModel
-from lifecycle.panel import build_panel, build_snapshot
+from lifecycle.panel import build_panel, build_snapshot, life_table
 from lifecycle.spatial import add_spatial_context
 from tests._builders import make_tables
 
@@ -215,7 +215,7 @@ def test_observed_outcomes_cover_the_snapshot_and_match_the_later_panel(portfoli
 # -- the baseline ----------------------------------------------------------------------------
 def test_tenure_life_table_survival_equals_lifelines_kaplan_meier(portfolio):
     panel = build_panel(portfolio, EXTRACT, config=CONFIG)
-    model = TenureLifeTable().fit(panel)
+    model = TenureLifeTable(min_events=0).fit(panel)  # the raw life table, not smoothed
     # one subject per customer: entry at its first tenure in the window, exit at its last
     first = panel.groupby("customer_id", observed=True).agg(
         entry=("tenure_start", "min"),
@@ -242,21 +242,30 @@ def test_tenure_life_table_tail_and_estimator_contract(portfolio):
     panel = build_panel(portfolio, EXTRACT, config=CONFIG)
     model = TenureLifeTable(tail_months=6)
     fitted = clone(model).fit(panel)
-    # past the longest tenure: the mean of the last 6 fitted hazards (the definition)
+    # past the longest tenure: Σ d / Σ n over the trailing months, at least 6 of them and at
+    # least min_events (20) events (the definition), from the life table itself
     longest = fitted.hazard_.shape[0] - 1
-    np.testing.assert_allclose(fitted.tail_hazard_, fitted.hazard_[-6:].mean(axis=0))
+    for j, cause in enumerate(fitted.causes_):
+        table = life_table(panel, cause).iloc[::-1]
+        events, at_risk = table["events"].cumsum(), table["at_risk"].cumsum()
+        span = longest + 1 - table.index.to_numpy()
+        first = np.flatnonzero((span >= 6) & (events.to_numpy() >= 20))[0]
+        expected = events.iloc[first] / at_risk.iloc[first]
+        assert fitted.tail_hazard_[j] == pytest.approx(expected, rel=1e-12), cause
     snapshot = build_snapshot(portfolio, EXTRACT, config=CONFIG).head(3).copy()
     snapshot["tenure_start"] = np.int16(longest + 5)
     hazard = fitted.predict_hazard(snapshot, 2)
     np.testing.assert_allclose(hazard.to_numpy()[:, :3], np.tile(fitted.tail_hazard_[:3], (6, 1)))
     # sklearn's contract: clone round trip, fit keeps hyperparameters, no training data kept
-    assert clone(model).get_params() == {"tail_months": 6}
-    assert fitted.get_params() == {"tail_months": 6}
+    assert clone(model).get_params() == {"tail_months": 6, "min_events": 20}
+    assert fitted.get_params() == {"tail_months": 6, "min_events": 20}
     assert len(pickle.dumps(fitted)) < 20_000 < panel.memory_usage(deep=True).sum()
     again = TenureLifeTable(tail_months=6).fit(panel)
     np.testing.assert_array_equal(again.hazard_, fitted.hazard_)
     with pytest.raises(UsageError, match="tail_months"):
         TenureLifeTable(tail_months=0).fit(panel)
+    with pytest.raises(UsageError, match="min_events"):
+        TenureLifeTable(min_events=-1).fit(panel)
 
 
 # -- backtest end to end ---------------------------------------------------------------------

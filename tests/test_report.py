@@ -738,3 +738,31 @@ def test_hazard_ratios_of_measured_features_are_shown_per_standard_deviation():
     assert out.loc[0, "lower_95"] == pytest.approx(np.exp(20.0 * sd))
     assert out.loc[0, "feature"].startswith("rate (per SD")
     assert out.loc[1].tolist() == hr.loc[1].tolist()
+
+
+def test_proportional_hazards_failures_at_one_percent_are_listed():
+    """The drivers section lists the PH tests with p < 0.01 (the 1 % level the Cox fit logs)."""
+    import pandas as pd
+
+    from lifecycle.report._blocks import Section
+    from lifecycle.report._sections_action import _ph_failures
+
+    ph = pd.DataFrame(
+        {
+            "cause": ["churn", "churn", "move_out"],
+            "feature": ["age", "fin", "contract_months_left"],
+            "statistic": [7.8, 0.1, 12.3],
+            "p_value": [0.0052, 0.75, 0.00045],
+        }
+    )
+    section, key = Section("drivers", "x"), {}
+    _ph_failures(section, ph, key)
+    table = next(b for b in section.blocks if b.kind == "table")
+    assert key["ph_failures"] == 2
+    assert "2 of 3" in table.text
+    text = str(table.rows)
+    assert "contract_months_left" in text and "age" in text and "fin" not in text
+    section, key = Section("drivers", "x"), {}
+    _ph_failures(section, ph.iloc[[1]], key)
+    assert key["ph_failures"] == 0
+    assert any("passes" in b.text for b in section.blocks if b.kind == "note")

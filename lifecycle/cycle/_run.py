@@ -440,6 +440,7 @@ def _report_inputs(
         backtest_metrics=result["metrics"],
         champions=result["champions"],
         hazard_ratios=getattr(model, "coefficients_", None),
+        ph_tests=getattr(model, "ph_tests_", None),
         importances=importances,
         forecast=forecast,
         plan=plan,

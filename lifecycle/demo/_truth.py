@@ -173,6 +173,12 @@ premise_crs = "{P.CRS}"
 window_months = {months}
 trailing_sums = {{ complaints = 3 }}
 
+# Features whose future is known: contract months left count down by one a month; the
+# contract-end flag is on while the term ends within a month (renewals are not known ahead).
+[panel.known_future]
+contract_months_left = "countdown"
+contract_ending = "within:contract_months_left:1"
+
 [spatial]
 radii_m = [{P.RADIUS_M}]
 move_rate_months = {move_rate_months}

@@ -9,7 +9,8 @@ from sklearn.base import BaseEstimator
 from .._months import categorical_to_index
 from ..errors import UsageError
 from ..panel import PanelLayout, panel_layout
-from ._competing import survival_and_incidence
+from ..panel._future import project_known_future
+from ._competing import survival_and_incidence, uptake_incidence, valid_hazards
 
 _SEASON_ANGLE = 2.0 * np.pi * np.arange(12) / 12.0
 _BLOCK_CUSTOMERS = 50_000
@@ -42,6 +43,10 @@ class HazardModel(BaseEstimator):
         `future_rows` (customer-major: customer i's month k is row ``i * horizon + k − 1``)."""
         raise NotImplementedError
 
+    def _known_future(self) -> dict[str, str] | None:
+        """The schedule of the features whose future is known (``known_future``), if any."""
+        return getattr(self, "known_future", None)
+
     # -- the shared part ----------------------------------------------------------------------
     @property
     def causes_(self) -> tuple[str, ...]:
@@ -63,8 +68,9 @@ class HazardModel(BaseEstimator):
         """Monthly cause-specific hazards for months 1..``horizon`` after the snapshot.
 
         Month k is the k-th month from the snapshot's ``month`` on (the snapshot row holds the
-        features known at the end of the month before). Tenure and season advance with k;
-        every other covariate is held at its snapshot value.
+        features known at the end of the month before). Tenure and season advance with k, and
+        so do the features of the model's ``known_future`` schedule (`future_rows`); every
+        other covariate is held at its snapshot value.
 
         Returns
         -------
@@ -132,9 +138,9 @@ class HazardModel(BaseEstimator):
         blocks = []
         for lo in range(0, max(len(snapshot), 1), _BLOCK_CUSTOMERS):
             part = snapshot.iloc[lo : lo + _BLOCK_CUSTOMERS]
-            future = future_rows(part, horizon)
-            blocks.append(np.clip(self._hazard_array(future, len(part), horizon), 0.0, 1.0))
-        array = np.concatenate(blocks, axis=0)
+            future = future_rows(part, horizon, self._known_future())
+            blocks.append(self._hazard_array(future, len(part), horizon))
+        array = valid_hazards(np.concatenate(blocks, axis=0), len(self.terminal_causes_))
         for j, cause in enumerate(self.causes_):
             holds = PanelLayout.at_risk_column(cause)
             if holds is not None and holds in snapshot:
@@ -154,26 +160,25 @@ def incidence_from_hazards(hazards: np.ndarray, n_terminal: int) -> np.ndarray:
     """Cumulative incidence ``(n, T, K)`` of every cause from hazards ``(n, T, K)``.
 
     Terminal causes compete with each other; each uptake cause (after the terminal ones)
-    competes with all terminal causes (see `HazardModel.predict_cumulative_incidence`).
+    competes with all terminal causes (see `HazardModel.predict_cumulative_incidence`). The
+    hazards must be valid (`valid_hazards`), as every model's are.
     """
     k = n_terminal
     _, terminal = survival_and_incidence(hazards[..., :k])
     parts = [terminal]
-    exits = hazards[..., :k].sum(axis=-1, keepdims=True)
     for j in range(k, hazards.shape[-1]):
-        # within a month, uptake and exits share one probability: cap uptake at what is left
-        uptake = np.minimum(hazards[..., j : j + 1], np.clip(1.0 - exits, 0.0, 1.0))
-        stacked = np.concatenate([uptake, hazards[..., :k]], axis=-1)
-        _, incidence = survival_and_incidence(stacked)
-        parts.append(incidence[..., :1])
+        parts.append(uptake_incidence(hazards, range(k), j)[..., None])
     return np.concatenate(parts, axis=-1)
 
 
-def future_rows(snapshot: pd.DataFrame, horizon: int) -> pd.DataFrame:
+def future_rows(
+    snapshot: pd.DataFrame, horizon: int, known_future: dict[str, str] | None = None
+) -> pd.DataFrame:
     """The snapshot repeated for months 1..``horizon``, tenure and season advanced.
 
     Customer-major: customer i's month k is row ``i * horizon + k − 1``. Adds ``month_ahead``.
-    ``month`` becomes the integer month index of each row.
+    ``month`` becomes the integer month index of each row. The columns of ``known_future``
+    (``{column: schedule}``, `lifecycle.panel._future`) are moved ``k − 1`` months on.
     """
     n = len(snapshot)
     repeat = np.repeat(np.arange(n), horizon)
@@ -187,4 +192,5 @@ def future_rows(snapshot: pd.DataFrame, horizon: int) -> pd.DataFrame:
     if "season_sin" in future:
         future["season_sin"] = np.sin(_SEASON_ANGLE).astype(np.float32)[month % 12]
         future["season_cos"] = np.cos(_SEASON_ANGLE).astype(np.float32)[month % 12]
+    project_known_future(future, step, known_future)
     return future

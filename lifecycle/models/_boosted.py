@@ -11,6 +11,7 @@ from sklearn.ensemble import HistGradientBoostingClassifier
 from threadpoolctl import threadpool_limits
 
 from ..errors import InputError, UsageError
+from ..panel._future import project_known_future
 from ._base import HazardModel
 from ._design import finite_numbers
 from ._landmarks import block_first, in_customer_order
@@ -87,6 +88,11 @@ class BoostedHazard(HazardModel):
         core). On a machine shared with other work, 1 avoids threads waiting on each other.
     random_state
         Seed of the lags, the row sample, the validation customers and the classifiers.
+    known_future
+        Features whose future path is known, ``{column: schedule}`` (``[panel]
+        known_future``; `lifecycle.panel._future`): projected month by month when predicting,
+        and, for a lagged training row, projected from its snapshot by ``lag − 1`` months, so
+        that training and prediction see the same inputs. ``None``: held at the snapshot.
 
     Attributes
     ----------
@@ -123,6 +129,7 @@ class BoostedHazard(HazardModel):
         tol: float = 1e-7,
         n_threads: int | None = None,
         random_state: int | None = 0,
+        known_future: dict[str, str] | None = None,
     ) -> None:
         self.horizon = horizon
         self.max_iter = max_iter
@@ -139,6 +146,7 @@ class BoostedHazard(HazardModel):
         self.tol = tol
         self.n_threads = n_threads
         self.random_state = random_state
+        self.known_future = known_future
 
     # -- fitting --------------------------------------------------------------------------------
     def _fit(self, panel: pd.DataFrame) -> None:
@@ -229,7 +237,7 @@ class BoostedHazard(HazardModel):
         first = block_first(pd.factorize(panel["customer_id"])[0])
         reach = np.minimum(position - first + 1, self.horizon)
         lag = 1 + np.floor(rng.random(len(panel)) * reach).astype(np.int64)
-        return _Design(own, position - lag + 1, lag.astype(np.int16))
+        return _Design(own, position - lag + 1, lag.astype(np.int16), self.known_future)
 
     def _validation_rows(self, panel: pd.DataFrame, rng: np.random.Generator) -> np.ndarray:
         """Rows of a random ``validation_fraction`` of the customers."""
@@ -358,11 +366,20 @@ class _Design:
 
     Without lags (``source is None``) a row's inputs are its own columns. With lags, row i
     takes the columns of row ``source[i]`` (its snapshot, ``lag[i] − 1`` months earlier), except
-    tenure and season, which stay row i's own, and ``month_ahead = lag[i]``.
+    tenure and season, which stay row i's own, and ``month_ahead = lag[i]``; the features of
+    ``known_future`` are projected from the snapshot ``lag[i] − 1`` months on, as
+    `future_rows` does when predicting.
     """
 
-    def __init__(self, own: _Columns, source: np.ndarray | None, lag: np.ndarray | None):
+    def __init__(
+        self,
+        own: _Columns,
+        source: np.ndarray | None,
+        lag: np.ndarray | None,
+        known_future: dict[str, str] | None = None,
+    ):
         self.own, self.source, self.lag = own, source, lag
+        self.known_future = known_future
 
     def __len__(self) -> int:
         return len(self.own)
@@ -377,6 +394,7 @@ class _Design:
             if name in out:
                 out[name] = self.own.column(name)[where]
         out["month_ahead"] = self.lag[where]
+        project_known_future(out, self.lag[where] - 1, self.known_future)
         return out
 
 

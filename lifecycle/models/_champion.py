@@ -60,8 +60,22 @@ class ChampionModel(HazardModel):
             out[..., j] = parts[self.cause_family_[cause]][..., model.causes_.index(cause)]
         return out
 
+    def _known_future(self) -> dict[str, str] | None:
+        """The fitted families' schedule of features whose future is known (they share one)."""
+        for model in getattr(self, "fitted_", {}).values():
+            schedule = model._known_future()
+            if schedule:
+                return schedule
+        return None
+
     @property
     def coefficients_(self) -> pd.DataFrame | None:
         """The Cox family's coefficients, when it is one of the fitted families."""
         cox = getattr(self, "fitted_", {}).get("cox")
         return getattr(cox, "coefficients_", None)
+
+    @property
+    def ph_tests_(self) -> pd.DataFrame | None:
+        """The Cox family's proportional-hazards tests, when it is one of the fitted families."""
+        cox = getattr(self, "fitted_", {}).get("cox")
+        return getattr(cox, "ph_tests_", None)

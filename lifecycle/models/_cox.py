@@ -21,6 +21,7 @@ from ._base import HazardModel
 from ._cox_stats import CoxLikelihoodMixin, cause_likelihood
 from ._design import CovariateDesign
 from ._sampling import check_max_rows, non_event_share
+from ._smooth import smoothed_rates
 
 log = logging.getLogger(__name__)
 
@@ -82,16 +83,19 @@ class CauseSpecificCox(CoxLikelihoodMixin, HazardModel):
     expressed at the weighted covariate mean ``c_k`` (lifelines centres its own baseline at the
     unweighted mean and leaves the weights out of the denominator; this estimator equals
     lifelines' for unit weights once re-centred). It is summed into tenure months:
-    ``ΔH_{0k}(t) = H_{0k}(t) − H_{0k}(t − 1)`` for month ``t`` = ``(t − 1, t]``. The monthly
-    hazard of a row in tenure month t is
+    ``ΔH_{0k}(t) = H_{0k}(t) − H_{0k}(t − 1)`` for month ``t`` = ``(t − 1, t]``, and then smoothed
+    over tenure where events are few (`lifecycle.models._smooth`: a kernel hazard estimate,
+    Ramlau-Hansen 1983, whose window widens until it holds ``baseline_min_events`` events, so
+    that thinly populated tenures neither spike nor drop to 0; where one month holds that many
+    events it is Breslow's estimate unchanged). The monthly hazard of a row in tenure month t is
 
         h_k(t | x) = 1 − exp(−ΔH_{0k}(t) · exp(β̂_k · (x − c_k)))
 
-    and beyond the last tenure month seen in training the baseline is held at the mean of
-    ``ΔH_{0k}`` over the last 12 months seen. (Should the terminal hazards of a row sum past 1,
-    which takes extreme covariates, they are replaced by the continuous-time split
-    ``Λ_k/ΣΛ · (1 − exp(−ΣΛ))`` with ``Λ_k = ΔH_{0k} exp(β̂_k·(x − c_k))``, and an uptake hazard
-    is capped at 1 minus the terminal ones, so that survival stays a probability.)
+    and beyond the last tenure month seen in training the baseline is held at the rate
+    ``Σ d / Σ E`` of the trailing months that span at least 12 months and hold at least
+    ``baseline_min_events`` events. (Should the terminal hazards of a row sum past 1, which
+    takes extreme covariates, the shared `valid_hazards` splits them in continuous time and
+    caps the uptakes, as for every family.)
 
     Parameters
     ----------
@@ -111,13 +115,25 @@ class CauseSpecificCox(CoxLikelihoodMixin, HazardModel):
         ``max_rows`` rows are used (`lifecycle.models._sampling`); ``None`` never samples.
     random_state : int or None, default 0
         Seed of the row sampling; the same seed gives the same fit.
+    baseline_min_events : float, default 20
+        Events the smoothing window of each tenure month must hold (see above); 0 keeps
+        Breslow's raw monthly increments. The default was chosen by backtest on the demo
+        (15,000 customers, cutoffs 18 and 12 months before the extract, 12-month horizon: mean
+        Uno C over the four causes 0.5735 raw, 0.5745 at 10, 0.5779 at 20, 0.5772 at 40,
+        0.5775 at 80, churn Brier equal to 10⁻⁴); 20 also keeps the life table within 2 % of
+        Nelson–Aalen where at least 100 are at risk (lifelines' democracy data).
+    known_future : dict or None
+        Features whose future path is known, ``{column: schedule}`` (``[panel]
+        known_future``; `lifecycle.panel._future`): projected month by month when predicting
+        months 2..horizon, as tenure and season are. ``None``: held at the snapshot.
 
     Learned attributes
     ------------------
     coefficients_ : pandas.DataFrame
-        ``cause``, ``feature``, ``coef`` (β̂, log hazard ratio per unit), ``se``,
-        ``hazard_ratio`` (exp β̂), ``lower_95``, ``upper_95`` (the 95 % Wald interval of the
-        hazard ratio, ``exp(β̂ ∓ 1.96 se)``).
+        ``cause``, ``feature``, ``coef`` (β̂, log hazard ratio per unit), ``se``, ``z``
+        (``β̂ / se``), ``p`` (two-sided Wald p-value, ``2 · (1 − Φ(|z|))``), ``hazard_ratio``
+        (exp β̂), ``lower_95``, ``upper_95`` (the 95 % Wald interval of the hazard ratio,
+        ``exp(β̂ ∓ 1.96 se)``).
     ph_tests_ : pandas.DataFrame
         ``cause``, ``feature``, ``statistic``, ``p_value``: the proportional-hazards test of
         each covariate (Grambsch & Therneau 1994, Biometrika 81, 515–526) — the correlation of
@@ -128,7 +144,8 @@ class CauseSpecificCox(CoxLikelihoodMixin, HazardModel):
         p-values flag covariates whose effect changes with tenure.
     baseline_hazard_ : pandas.DataFrame
         ``ΔH_{0k}(t)`` by tenure month (index ``tenure_start`` = t − 1) and cause, at the
-        weighted covariate mean of that cause's training rows; NaN past a cause's last month.
+        weighted covariate mean of that cause's training rows, smoothed as above; NaN past a
+        cause's last month.
     cause_fits_ : dict
         Per cause, the arrays used for prediction (no training rows are kept).
     log_likelihood_ : dict
@@ -143,11 +160,15 @@ class CauseSpecificCox(CoxLikelihoodMixin, HazardModel):
         sample_fraction: float | None = None,
         max_rows: int | None = 1_500_000,
         random_state: int | None = 0,
+        known_future: dict[str, str] | None = None,
+        baseline_min_events: float = 20,
     ) -> None:
         self.penalizer = penalizer
         self.sample_fraction = sample_fraction
         self.max_rows = max_rows
         self.random_state = random_state
+        self.known_future = known_future
+        self.baseline_min_events = baseline_min_events
 
     # -- fitting ------------------------------------------------------------------------------
     def _fit(self, panel: pd.DataFrame) -> None:
@@ -199,6 +220,9 @@ class CauseSpecificCox(CoxLikelihoodMixin, HazardModel):
         r = self.random_state
         if r is not None and (isinstance(r, bool) or not isinstance(r, numbers.Integral) or r < 0):
             raise UsageError(f"random_state was {r!r} but is expected to be None or an int >= 0")
+        b = self.baseline_min_events
+        if isinstance(b, bool) or not isinstance(b, numbers.Real) or not b >= 0:
+            raise UsageError(f"baseline_min_events was {b!r} but is expected to be a number >= 0")
 
     def _fit_cause(
         self,
@@ -259,10 +283,7 @@ class CauseSpecificCox(CoxLikelihoodMixin, HazardModel):
         se = np.sqrt(np.diag(cov))
         centre = np.average(x, axis=0, weights=weights) if x.shape[1] else np.empty(0)
         phi = weights * np.exp(np.clip((x - centre) @ beta, -_MAX_LOG_RISK, _MAX_LOG_RISK))
-        increments = _monthly(
-            risk.times, breslow_increments(risk, stop, event, weights, phi), months
-        )
-        tail = float(increments[-_TAIL_MONTHS:].mean()) if increments.size else 0.0
+        increments, tail = self._smoothed_baseline(risk, start, stop, event, weights, phi, months)
         fit = _CauseFit(cause, design, beta, se, centre, increments, tail,
                         int(event.size), int(event.sum()))  # fmt: skip
 
@@ -276,6 +297,31 @@ class CauseSpecificCox(CoxLikelihoodMixin, HazardModel):
             columns=_PH_COLUMNS,
         )
         return fit, coefs, ph
+
+    def _smoothed_baseline(
+        self,
+        risk: RiskSets,
+        start: np.ndarray,
+        stop: np.ndarray,
+        event: np.ndarray,
+        weights: np.ndarray,
+        phi: np.ndarray,
+        months: int,
+    ) -> tuple[np.ndarray, float]:
+        """ΔH_0 by tenure month, smoothed (`smoothed_rates`), and the rate beyond the last.
+
+        Events ``d(t)`` and exposure ``E(t) = d(t) / ΔĤ_0(t)`` (Breslow's denominator, so that
+        an unsmoothed month is Breslow's exactly); a month without events takes the risk-set
+        sum ``Σ φ`` at its end as its exposure.
+        """
+        raw = _monthly(risk.times, breslow_increments(risk, stop, event, weights, phi), months)
+        events = _monthly(stop[event], weights[event], months)
+        ends = RiskSets(start, stop, np.arange(1, months + 1, dtype=np.float64)).sums(phi)
+        with np.errstate(divide="ignore", invalid="ignore"):
+            exposure = np.where(events > 0, events / raw, ends)
+        return smoothed_rates(
+            events, exposure, min_events=self.baseline_min_events, tail_months=_TAIL_MONTHS
+        )
 
     def _partial_likelihood(
         self,
@@ -332,30 +378,15 @@ class CauseSpecificCox(CoxLikelihoodMixin, HazardModel):
 
     # -- prediction ---------------------------------------------------------------------------
     def _hazard_array(self, future: pd.DataFrame, n: int, horizon: int) -> np.ndarray:
-        k = len(self.terminal_causes_)
         cumulative = np.column_stack(
             [self.cause_fits_[c].cumulative_hazards(future) for c in self.causes_]
         )
-        hazards = -np.expm1(-cumulative)
-        terminal_total = hazards[:, :k].sum(axis=1)
-        over = terminal_total > 1.0
-        if over.any():
-            lam = cumulative[over, :k]
-            total = lam.sum(axis=1, keepdims=True)
-            hazards[over, :k] = lam / total * -np.expm1(-total)
-            terminal_total[over] = hazards[over, :k].sum(axis=1)
-            log.warning(
-                "cox: %d customer-months had terminal hazards summing past 1 (extreme "
-                "covariates); split by the continuous-time rule",
-                int(over.sum()),
-            )
-        if hazards.shape[1] > k:
-            room = np.maximum(1.0 - terminal_total, 0.0)[:, None]
-            hazards[:, k:] = np.minimum(hazards[:, k:], room)
-        return hazards.reshape(n, horizon, -1)
+        return -np.expm1(-cumulative).reshape(n, horizon, -1)
 
 
-_COEF_COLUMNS = ["cause", "feature", "coef", "se", "hazard_ratio", "lower_95", "upper_95"]
+_COEF_COLUMNS = [
+    "cause", "feature", "coef", "se", "z", "p", "hazard_ratio", "lower_95", "upper_95"
+]  # fmt: skip
 _PH_COLUMNS = ["cause", "feature", "statistic", "p_value"]
 
 
@@ -586,14 +617,20 @@ def _monthly(times: np.ndarray, jumps: np.ndarray, months: int) -> np.ndarray:
 def _coefficient_table(
     cause: str, names: list[str], beta: np.ndarray, se: np.ndarray
 ) -> pd.DataFrame:
-    """``coefficients_`` rows of one cause; a separated covariate may give an infinite bound."""
-    with np.errstate(over="ignore"):
+    """``coefficients_`` rows of one cause; a separated covariate may give an infinite bound.
+
+    ``z = β̂ / se`` and ``p = 2 · (1 − Φ(|z|))``, the two-sided Wald test of β = 0.
+    """
+    with np.errstate(over="ignore", divide="ignore", invalid="ignore"):
+        z = beta / se
         return pd.DataFrame(
             {
                 "cause": cause,
                 "feature": names,
                 "coef": beta,
                 "se": se,
+                "z": z,
+                "p": 2.0 * stats.norm.sf(np.abs(z)),
                 "hazard_ratio": np.exp(beta),
                 "lower_95": np.exp(beta - _Z95 * se),
                 "upper_95": np.exp(beta + _Z95 * se),

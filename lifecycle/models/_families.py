@@ -41,7 +41,9 @@ def make_model(
     longest the caller will ask for, when it is longer), so that scoring, lifetime value and
     the forecast can use it as fitted.
 
-    Unknown families or hyperparameters raise `UsageError` naming what is allowed.
+    Unknown families or hyperparameters raise `UsageError` naming what is allowed. The
+    families that project features month by month (Cox, boosted) take ``[panel]
+    known_future`` and the schedules of the past-offer features (`lifecycle.panel._offers`).
     """
     families = _families()
     if family not in families:
@@ -50,4 +52,11 @@ def make_model(
     settings = section(config, f"models.{family}")
     if family == "forest" and "horizon" not in settings:
         settings["horizon"] = needed_horizon(config, max(SCORE_HORIZON, horizon or 0))
+    if config is not None and "known_future" in cls().get_params():
+        # features whose future is known: past offers' (by themselves) and [panel] known_future
+        from ..panel._offers import offer_schedules
+
+        schedule = {**offer_schedules(config), **config.panel.known_future}
+        if schedule:
+            settings = {**settings, "known_future": schedule}
     return cls(**settings)

@@ -31,13 +31,12 @@ class SurvivalForest(HazardModel):
     (an exit censors). Each forest's cumulative hazard ``Λ_k(t)`` at whole months gives
     the monthly hazards: with ``ΔΛ_k(t) = Λ_k(t) − Λ_k(t − 1)``,
 
-        h_uptake(t) = 1 − exp(−ΔΛ_uptake(t))
-        h_k(t)      = (1 − exp(−Σ_j ΔΛ_j(t))) · ΔΛ_k(t) / Σ_j ΔΛ_j(t)     (terminal causes)
+        h_k(t) = 1 − exp(−ΔΛ_k(t))
 
-    the terminal form being ``1 − exp(−ΔΛ_k(t))`` to first order, but never summing above 1
-    where risk sets are small (the hazard within a month is taken as constant). Survival and
-    incidence follow through the shared `survival_and_incidence`. Predictions use the snapshot
-    row alone: the forest's time axis carries tenure and season forward.
+    for every cause; where small risk sets make the terminal ones sum past 1, the shared
+    `valid_hazards` splits them in continuous time and caps the uptakes, as for every family.
+    Survival and incidence follow through the shared `survival_and_incidence`. Predictions use
+    the snapshot row alone: the forest's time axis carries tenure and season forward.
 
     Sampling, to keep time and memory sane on a monthly grid: landmarks are every
     ``landmark_every``-th month only, and each forest is grown on at most ``max_rows`` rows:
@@ -247,14 +246,7 @@ class SurvivalForest(HazardModel):
             at = np.searchsorted(forest.unique_times_, grid, side="right") - 1
             curve = np.where(at >= 0, chf[:, np.maximum(at, 0)], 0.0)
             increments[:, :, j] = np.maximum(np.diff(curve, axis=1), 0.0)
-        k = len(self.terminal_causes_)
-        hazards = 1.0 - np.exp(-increments)
-        total = increments[..., :k].sum(axis=-1, keepdims=True)
-        share = np.divide(
-            increments[..., :k], total, out=np.zeros_like(increments[..., :k]), where=total > 0
-        )
-        hazards[..., :k] = (1.0 - np.exp(-total)) * share
-        return hazards
+        return -np.expm1(-increments)
 
 
 def _outcome(landmarks: pd.DataFrame, cause: str) -> tuple[np.ndarray, np.ndarray, np.ndarray]:

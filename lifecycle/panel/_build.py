@@ -13,6 +13,7 @@ from ..config import Config
 from ..data import Tables
 from ..errors import InputError, UsageError
 from ._layout import HOLDS_PREFIX, REASON_TO_CAUSE, UPTAKE_PREFIX
+from ._offers import offer_features, offer_windows
 
 log = logging.getLogger(__name__)
 
@@ -40,7 +41,9 @@ def build_panel(tables: Tables, as_of: str | int, *, config: Config | None = Non
         The last month of the panel, ``YYYY-MM`` (or a month index). It may not be later than
         the extract month.
     config
-        Settings; ``[panel] window_months``, ``not_features`` and ``trailing_sums`` are used.
+        Settings; ``[panel] window_months``, ``not_features`` and ``trailing_sums`` are used,
+        and the ``name`` and ``months`` of each ``[[offers]]`` entry with campaign rows
+        (past offers as features, `lifecycle.panel._offers`).
 
     Returns
     -------
@@ -111,6 +114,12 @@ def _assemble(
     columns["season_cos"] = np.cos(_SEASON_ANGLE).astype(np.float32)[month_of_year]
     columns.update(_static_features(tables, rows, config))
     columns.update(_activity_features(tables, rows, config))
+    campaigns = tables.campaigns
+    if campaigns is not None and len(campaigns):
+        position = pd.Index(tables.customers["customer_id"]).get_indexer(campaigns["customer_id"])
+        columns.update(
+            offer_features(campaigns, position, rows.customer, rows.month, offer_windows(config))
+        )
     return pd.DataFrame(columns, copy=False)
 
 

@@ -39,6 +39,7 @@ REQUIRED: dict[str, tuple[str, ...]] = {
     "champions": ("cause", "family", "horizon"),
     "decile_check": ("decile", "n", "predicted", "realised"),
     "hazard_ratios": ("cause", "feature", "hazard_ratio", "lower_95", "upper_95"),
+    "ph_tests": ("cause", "feature", "statistic", "p_value"),
     "importances": ("cause", "feature", "importance"),
     "drift": ("variable", "kind", "psi"),
     "forecast": ("month", "area_id", "product", "expected"),
@@ -48,6 +49,7 @@ REQUIRED: dict[str, tuple[str, ...]] = {
 OPTIONAL = (
     "decile_check",
     "hazard_ratios",
+    "ph_tests",
     "importances",
     "drift",
     "forecast",
@@ -103,6 +105,9 @@ class ReportInputs:
     hazard_ratios
         Cox coefficients: ``cause``, ``feature``, ``hazard_ratio``, ``lower_95``,
         ``upper_95`` (hazard-ratio scale).
+    ph_tests
+        Cox proportional-hazards tests (``CauseSpecificCox.ph_tests_``): ``cause``,
+        ``feature``, ``statistic``, ``p_value``.
     importances
         Forest importances: ``cause``, ``feature``, ``importance``.
     drift
@@ -136,6 +141,7 @@ class ReportInputs:
     decile_check: pd.DataFrame | None = None
     decile_summary: dict[str, Any] | None = None
     hazard_ratios: pd.DataFrame | None = None
+    ph_tests: pd.DataFrame | None = None
     importances: pd.DataFrame | None = None
     drift: pd.DataFrame | None = None
     forecast: pd.DataFrame | None = None
@@ -197,6 +203,7 @@ def build_report_inputs(
     champions: pd.DataFrame,
     segment_column: str | None = None,
     hazard_ratios: pd.DataFrame | None = None,
+    ph_tests: pd.DataFrame | None = None,
     importances: pd.DataFrame | None = None,
     forecast: pd.DataFrame | None = None,
     plan: Any = None,
@@ -229,8 +236,9 @@ def build_report_inputs(
     segment_column
         Customer attribute for the incidence curves; default ``plan_speed`` if the panel has
         it, else ``contract_ending``, else no segments (one curve, "all customers").
-    hazard_ratios, importances
-        ``CauseSpecificCox.coefficients_`` and ``SurvivalForest.feature_importances_``.
+    hazard_ratios, ph_tests, importances
+        ``CauseSpecificCox.coefficients_``, ``CauseSpecificCox.ph_tests_`` and
+        ``SurvivalForest.feature_importances_``.
     forecast
         `lifecycle.forecast.forecast_uptake` output.
     plan
@@ -290,6 +298,7 @@ def build_report_inputs(
         decile_check=decile_check,
         decile_summary=decile_summary,
         hazard_ratios=per_standard_deviation(hazard_ratios, panel),
+        ph_tests=ph_tests,
         importances=importances,
         drift=drift,
         forecast=forecast,

@@ -29,6 +29,40 @@ RATE_COLUMNS = (
 
 
 # -- drivers ---------------------------------------------------------------------------------
+PH_LEVEL = 0.01
+
+
+def _ph_failures(section: Section, ph: pd.DataFrame | None, key: dict[str, Any]) -> None:
+    """The covariates whose proportional-hazards test fails at 1 % (Grambsch–Therneau)."""
+    if ph is None or len(ph) == 0:
+        return
+    failed = ph[ph["p_value"] < PH_LEVEL].sort_values(["p_value", "cause", "feature"])
+    key["ph_failures"] = len(failed)
+    if not len(failed):
+        section.note(
+            f"Every covariate passes the proportional-hazards test at {PH_LEVEL:.0%} "
+            f"({len(ph)} tested)."
+        )
+        return
+    section.table(
+        ["cause", "feature", "χ²(1)", "p"],
+        [
+            [
+                Cell(fig.label_of(r.cause)),
+                Cell(str(r.feature)),
+                number(r.statistic, 1),
+                Cell(f"{r.p_value:.1e}", number=True),
+            ]
+            for r in failed.itertuples(index=False)
+        ],
+        caption=(
+            f"Proportional-hazards tests that fail at {PH_LEVEL:.0%} ({len(failed)} of "
+            f"{len(ph)}): the effect of these covariates changes with tenure, so their hazard "
+            "ratio is an average over tenure"
+        ),
+    )
+
+
 def drivers_section(inputs: ReportInputs) -> tuple[Section, dict[str, Any]]:
     """Hazard ratios with intervals, and forest importances."""
     section = Section("drivers", "What drives the hazards")
@@ -73,6 +107,7 @@ def drivers_section(inputs: ReportInputs) -> tuple[Section, dict[str, Any]]:
             )
         else:
             section.note("No hazard ratio has an interval that excludes 1.")
+        _ph_failures(section, inputs.ph_tests, key)
     imp = inputs.importances
     section.heading("Forest importances")
     if imp is None or len(imp) == 0:

@@ -2,7 +2,9 @@
 
 Either the DataFrame of `HazardModel.predict_hazard` (index ``customer_id``, ``month_ahead``;
 one column per cause) or a plain array ``(n, T, K)`` with the cause names beside it. Causes
-whose name starts with ``uptake_`` are product uptakes; every other cause is terminal.
+whose name starts with ``uptake_`` are product uptakes; every other cause is terminal. A model's
+hazards are valid already (`lifecycle.models._competing.valid_hazards`); hazards given by hand
+are checked, not repaired. The uptake incidence is the models' own `uptake_incidence`.
 """
 
 from __future__ import annotations
@@ -14,8 +16,10 @@ import numpy as np
 import pandas as pd
 
 from ..errors import UsageError
-from ..models._competing import survival_and_incidence
+from ..models._competing import uptake_incidence
 from ..panel._layout import UPTAKE_PREFIX
+
+__all__ = ["HazardInput", "read_hazards", "uptake_incidence"]
 
 _TOLERANCE = 1e-9
 
@@ -102,21 +106,6 @@ def read_hazards(
     out = HazardInput(array=array, causes=names, customer_ids=ids)
     _check_values(out, what)
     return out
-
-
-def uptake_incidence(array: np.ndarray, terminal: Sequence[int], j: int) -> np.ndarray:
-    """F_u(t), ``(n, T)``: the probability of taking product u up by month t before leaving.
-
-    From `survival_and_incidence` with u competing with the terminal causes:
-    F_u(t) = Σ_{s ≤ t} S_u(s−1)·h_u(s), S_u(t) = Π_{s ≤ t} (1 − h_u(s) − Σ_k h_k(s)). The
-    terminal causes enter as one competing cause (any exit): F_u depends on them only through
-    their sum, and two columns halve the work.
-    """
-    exits = np.zeros(array.shape[:-1])
-    for k in terminal:
-        exits += array[..., k]
-    _, incidence = survival_and_incidence(np.stack([array[..., j], exits], axis=-1))
-    return incidence[..., 0]
 
 
 def _from_frame(frame: pd.DataFrame, what: str) -> tuple[np.ndarray, tuple[str, ...], np.ndarray]:

@@ -20,7 +20,7 @@ import numpy as np
 import pandas as pd
 
 from ..errors import UsageError
-from ..models._competing import survival_and_incidence
+from ..models._competing import survival_and_incidence, valid_hazards
 from ..panel._layout import UPTAKE_PREFIX
 from ._hazards import HazardInput, read_hazards, uptake_incidence
 from ._lifetime import DEFAULT_ANNUAL_DISCOUNT, check_horizon, discount_factors, margin_matrix
@@ -205,21 +205,19 @@ def _value(
 
 
 def _with_offer(block: np.ndarray, h: HazardInput, spec: _OfferSpec) -> np.ndarray:
-    """The hazards with the offer: the target's hazard times θ in months 1..M."""
+    """The hazards with the offer: the target's hazard times θ in months 1..M.
+
+    A raised hazard (θ > 1) is made valid again by the models' one rule (`valid_hazards`):
+    terminal hazards summing past 1 are split in continuous time, and each uptake is capped
+    at 1 minus the terminal ones.
+    """
     out = block.copy()
     months = min(spec.months, block.shape[1])
-    k = spec.column
-    changed = block[:, :months, k] * spec.hazard_ratio
+    out[:, :months, spec.column] *= spec.hazard_ratio
     if spec.hazard_ratio > 1.0:
-        # every month's competing hazards must still add up to at most 1: an uptake competes
-        # with the terminal causes; a terminal cause with the other terminal causes and with
-        # each uptake
-        others = [j for j in h.terminal if j != k]
-        cap = 1.0 - block[:, :months, others].sum(axis=-1)
-        if k in h.terminal and h.uptakes:
-            cap = cap - block[:, :months, h.uptakes].max(axis=-1)
-        changed = np.minimum(changed, np.clip(cap, 0.0, 1.0))
-    out[:, :months, k] = changed
+        order = h.terminal + h.uptakes
+        back = np.argsort(order)
+        out = valid_hazards(out[..., order], len(h.terminal))[..., back]
     return out
 
 
