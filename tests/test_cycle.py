@@ -67,6 +67,16 @@ def test_a_run_writes_its_month_folder_whole(demo, two_months):
     assert not set(plan["customer_id"]) & set(flagged)
 
 
+def test_every_planned_contact_has_a_reason_and_none_names_an_area(demo, two_months):
+    _, _, second = two_months
+    plan = pd.read_csv(second.files["plan"], keep_default_na=False)
+    assert len(plan) > 0
+    assert (plan["reasons"].str.strip() != "").all()
+    # the area features' built-in phrases and names (rental share, local move rate)
+    area_words = r"renters|move-outs nearby|rental_share|local_move_rate"
+    assert not plan["reasons"].str.contains(area_words).any()
+
+
 def test_an_earlier_month_is_not_rewritten_without_force(demo, two_months):
     folder, config = demo
     reports, first, _ = two_months

@@ -277,6 +277,7 @@ def test_public_surface_is_pinned():
 
     assert sorted(decisions.__all__) == sorted(
         [
+            "AREA_FEATURES",
             "DEFAULT_PHRASES",
             "PLAN_COLUMNS",
             "Allocation",
@@ -286,6 +287,7 @@ def test_public_surface_is_pinned():
             "Plan",
             "PlanSettings",
             "allocate",
+            "cause_words",
             "cooldown_ok",
             "eligible_mask",
             "excluded_mask",
@@ -296,6 +298,8 @@ def test_public_surface_is_pinned():
             "offers_from_config",
             "phrases_from_config",
             "plan_settings_from_config",
+            "reason_concept",
+            "risk_reason",
             "schedule_weeks",
             "top_reasons",
         ]

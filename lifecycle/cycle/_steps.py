@@ -188,7 +188,26 @@ def plan_contacts(
         model=model,
         snapshot=snapshot,
         phrases=phrases_from_config(config),
+        area_features=area_feature_names(tables),
     )
+
+
+def area_feature_names(tables: Tables) -> tuple[str, ...]:
+    """The area-level features: every numeric attribute of the areas table and the local move
+    rate (not given to staff as reasons unless ``[plan] area_reasons = true``)."""
+    from ..decisions import AREA_FEATURES
+
+    areas = getattr(tables, "areas", None)
+    own: list[str] = []
+    if areas is not None:
+        geometry = getattr(areas, "geometry", None)
+        name = getattr(geometry, "name", "geometry")
+        own = [
+            str(c)
+            for c in areas.columns
+            if c not in ("area_id", name) and pd.api.types.is_numeric_dtype(areas[c])
+        ]
+    return tuple(dict.fromkeys([*AREA_FEATURES, *own]))
 
 
 def _with_estimated_effects(offers, effects: pd.DataFrame):

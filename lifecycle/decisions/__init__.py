@@ -17,12 +17,22 @@ from ._offers import (
     offers_from_config,
     plan_settings_from_config,
 )
-from ._plan import PLAN_COLUMNS, Plan, expected_value_matrix, make_plan
-from ._reasons import DEFAULT_PHRASES, Phrase, join_reasons, phrases_from_config, top_reasons
+from ._plan import AREA_FEATURES, PLAN_COLUMNS, Plan, expected_value_matrix, make_plan
+from ._reasons import (
+    DEFAULT_PHRASES,
+    Phrase,
+    cause_words,
+    join_reasons,
+    phrases_from_config,
+    reason_concept,
+    risk_reason,
+    top_reasons,
+)
 from ._schedule import schedule_weeks
 from ._solve import Allocation, allocate
 
 __all__ = [
+    "AREA_FEATURES",
     "DEFAULT_PHRASES",
     "PLAN_COLUMNS",
     "Allocation",
@@ -32,6 +42,7 @@ __all__ = [
     "Plan",
     "PlanSettings",
     "allocate",
+    "cause_words",
     "cooldown_ok",
     "eligible_mask",
     "excluded_mask",
@@ -42,6 +53,8 @@ __all__ = [
     "offers_from_config",
     "phrases_from_config",
     "plan_settings_from_config",
+    "reason_concept",
+    "risk_reason",
     "schedule_weeks",
     "top_reasons",
 ]

@@ -44,6 +44,10 @@ The format, section by section (every ``[[offers]]`` table is one offer)::
                                  # {target} is replaced by the offer's target cause
     exclude = ["do_not_contact", "hardship"]   # flag columns: a flagged customer is never selected
     reasons = 3                  # reasons per plan row (0: none)
+    area_reasons = false         # true: area attributes (the areas table's columns, the local
+                                 # move rate) may be given to staff as reasons; by default they
+                                 # are not, as they can act as proxies for protected
+                                 # characteristics (they still count in every hazard)
 
 Phrases for reasons live in ``[reason_phrases]`` (see `lifecycle.decisions._reasons`).
 Malformed settings raise `UsageError` naming the setting, the value and what is allowed.
@@ -101,6 +105,7 @@ _PLAN_KEYS = {
     "urgency",
     "exclude",
     "reasons",
+    "area_reasons",
 }
 _TRUE = {"1", "true", "yes", "y", "t"}
 _FALSE = {"", "0", "false", "no", "n", "f"}
@@ -198,6 +203,7 @@ class PlanSettings:
     urgency: str = "cif_{target}_3m"
     exclude: tuple[str, ...] = ("do_not_contact", "hardship")
     reasons: int = 3
+    area_reasons: bool = False
 
     def __post_init__(self) -> None:
         where = "[plan]"
@@ -263,6 +269,12 @@ def plan_settings_from_config(config: Config) -> PlanSettings:
     for key in ("solver", "urgency"):
         if key in raw:
             kwargs[key] = _text(raw[key], f"{src}: [plan] {key}")
+    if "area_reasons" in raw:
+        if not isinstance(raw["area_reasons"], bool):
+            raise UsageError(
+                f"{src}: [plan] area_reasons was {raw['area_reasons']!r} but must be true or false"
+            )
+        kwargs["area_reasons"] = raw["area_reasons"]
     if "exclude" in raw:
         kwargs["exclude"] = _texts(raw["exclude"], f"{src}: [plan] exclude")
     try:

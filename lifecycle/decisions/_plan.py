@@ -19,7 +19,7 @@ import pandas as pd
 from .._months import categorical_to_index, format_month, parse_month
 from ..errors import InputError, UsageError
 from ._offers import Offer, PlanSettings, _numbers, cooldown_ok, eligible_mask, excluded_mask
-from ._reasons import DEFAULT_PHRASES, Phrase, join_reasons, top_reasons
+from ._reasons import DEFAULT_PHRASES, Phrase, join_reasons, risk_reason, top_reasons
 from ._schedule import schedule_weeks
 from ._solve import Allocation, allocate
 
@@ -28,6 +28,8 @@ log = logging.getLogger(__name__)
 __all__ = ["Plan", "expected_value_matrix", "make_plan"]
 
 PLAN_COLUMNS = ["customer_id", "offer", "week", "expected_value", "cost", "reasons"]
+#: features that are area-level in every panel (the areas table's attributes are added by the run)
+AREA_FEATURES = ("local_move_rate", "rental_share")
 
 
 @dataclass(frozen=True)
@@ -112,6 +114,7 @@ def make_plan(
     model: Any = None,
     snapshot: pd.DataFrame | None = None,
     phrases: Sequence[Phrase] = DEFAULT_PHRASES,
+    area_features: Sequence[str] = AREA_FEATURES,
 ) -> Plan:
     """The contact plan for one month.
 
@@ -139,6 +142,12 @@ def make_plan(
         model the ``reasons`` column is empty.
     phrases
         The phrase table for reasons (`phrases_from_config`).
+    area_features
+        Area-level features (the areas table's attributes and the local move rate): not
+        given as reasons unless ``settings.area_reasons``.
+
+    Every planned row gets at least one reason: its top reasons (`top_reasons`), else its
+    urgency against the portfolio's median (`risk_reason`).
     """
     offers = tuple(offers)
     if not offers:
@@ -232,10 +241,13 @@ def make_plan(
         else:
             position = rows_sorted
         causes = [offers[o].target for o in allocation.choice[rows_sorted]]
+        hidden = () if settings.area_reasons else tuple(area_features)
         reasons = top_reasons(
-            model, source.iloc[position], causes, settings.reasons, phrases=phrases
+            model, source.iloc[position], causes, settings.reasons, phrases=phrases, hidden=hidden
         )
         table["reasons"] = join_reasons(reasons, table["customer_id"].tolist())
+    if settings.reasons > 0 and len(table):
+        _risk_reasons(table, urgency_all, urgency_columns, chosen[order], urgency[order])
     log.info(
         "plan: %d contacts, expected value %.2f (bound %.2f, gap %.3g%%), %s solver",
         len(table),
@@ -251,6 +263,27 @@ def make_plan(
         budget=float(settings.budget),
         excluded=int(excluded.sum()),
     )
+
+
+def _risk_reasons(
+    table: pd.DataFrame,
+    urgency_all: np.ndarray,
+    columns: Sequence[str],
+    chosen: np.ndarray,
+    urgency: np.ndarray,
+) -> None:
+    """Rows without a reason get their urgency against the portfolio's median, in words
+    (``chosen`` and ``urgency`` in the order of the table's rows)."""
+    empty = np.flatnonzero(table["reasons"].to_numpy(dtype=object) == "")
+    at = table.columns.get_loc("reasons")
+    typical: dict[int, float] = {}
+    for row in empty:
+        j = int(chosen[row])
+        if j not in typical:
+            everyone = urgency_all[:, j]
+            finite = np.isfinite(everyone).any()
+            typical[j] = float(np.nanmedian(everyone)) if finite else np.nan
+        table.iat[row, at] = risk_reason(columns[j], float(urgency[row]), typical[j])
 
 
 def _plan_month(frame: pd.DataFrame, plan_month: str | int | None) -> int:
