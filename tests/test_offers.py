@@ -279,6 +279,7 @@ def test_public_surface_is_pinned():
         [
             "AREA_FEATURES",
             "DEFAULT_PHRASES",
+            "LIMITS",
             "PLAN_COLUMNS",
             "Allocation",
             "Eligibility",
@@ -295,6 +296,7 @@ def test_public_surface_is_pinned():
             "join_reasons",
             "last_contact_months",
             "make_plan",
+            "offer_figures",
             "offers_from_config",
             "phrases_from_config",
             "plan_settings_from_config",

@@ -583,3 +583,61 @@ def test_area_attributes_are_not_reasons_unless_allowed():
     assert not hidden.table.reasons.str.contains("renters").any()
     allowed = make_plan(frame, ev, offers, PlanSettings(budget=1e3, area_reasons=True), model=model)
     assert allowed.table.reasons.str.contains("renters").any()
+
+
+# -- why each offer got what it got ---------------------------------------------------------
+def test_offer_figures_say_what_held_each_offer_back():
+    """Five offers built so that each limit holds by construction (worked by hand)."""
+    n = 10
+    frame = pd.DataFrame(
+        {
+            "customer_id": np.arange(n),
+            "tenure": np.arange(n, dtype=float),
+            "cif_churn_3m": np.linspace(0.01, 0.1, n),
+            "cif_move_out_3m": np.linspace(0.01, 0.1, n),
+        }
+    )
+    offers = (
+        # nobody has 100 months of tenure: eligibility
+        Offer("far", "churn", cost=1.0, hazard_ratio=0.9, months=3, eligible=_min_tenure(100)),
+        # everyone eligible, nobody worth it: no positive value
+        Offer("dear", "churn", cost=1.0, hazard_ratio=0.9, months=3),
+        # worth it for all, 2 a week for one week: capacity
+        Offer("small", "move_out", cost=1.0, hazard_ratio=0.9, months=3, weekly_capacity=2),
+        # worth it for customers 0-4 only, after the capacity-bound offer
+        Offer("rest", "churn", cost=3.0, hazard_ratio=0.9, months=3),
+    )
+    ev = np.full((n, 4), np.nan)
+    ev[:, 0] = 5.0
+    ev[:, 1] = -1.0
+    ev[:, 2] = 10.0
+    ev[:, 3] = np.where(np.arange(n) < 5, 4.0, -1.0)
+    plan = make_plan(frame, ev, offers, PlanSettings(budget=8.0, weeks=1))
+    figures = plan.summary()["offers"]
+    assert figures["far"]["limited_by"] == "eligibility" and figures["far"]["eligible"] == 0
+    assert figures["dear"]["limited_by"] == "no positive value"
+    assert figures["dear"]["eligible"] == n and figures["dear"]["positive_value"] == 0
+    assert figures["small"]["chosen"] == 2 and figures["small"]["limited_by"] == "capacity"
+    # 8 of budget: 2 × 1 for "small", then two of "rest" at 3 each; a third would pass it
+    assert figures["rest"]["chosen"] == 2 and figures["rest"]["limited_by"] == "budget"
+    assert figures["rest"]["spend"] == 6.0 and figures["rest"]["positive_value"] == 5
+    assert set(figures) == {"far", "dear", "small", "rest"}
+    assert all(f["candidates"] == n for f in figures.values())
+    # nothing held back: everyone worth it was planned
+    easy = make_plan(frame, ev[:, 3:], offers[3:], PlanSettings(budget=1e6))
+    assert easy.summary()["offers"]["rest"] == {
+        "candidates": n,
+        "eligible": n,
+        "allowed": n,
+        "positive_value": 5,
+        "chosen": 5,
+        "spend": 15.0,
+        "capacity": None,
+        "limited_by": "none",
+    }
+
+
+def _min_tenure(months):
+    from lifecycle.decisions import Eligibility
+
+    return Eligibility(minimum={"tenure": float(months)})

@@ -738,3 +738,20 @@ def test_hazard_ratios_of_measured_features_are_shown_per_standard_deviation():
     assert out.loc[0, "lower_95"] == pytest.approx(np.exp(20.0 * sd))
     assert out.loc[0, "feature"].startswith("rate (per SD")
     assert out.loc[1].tolist() == hr.loc[1].tolist()
+
+
+def test_key_figures_explain_each_offer(report_case):
+    from lifecycle.decisions import LIMITS
+
+    offers = report_case.key["offers"]
+    plan = report_case.plan
+    assert sorted(offers) == sorted(o.name for o in plan.offers)
+    for offer in plan.offers:
+        f = offers[offer.name]
+        chosen = int((plan.table["offer"] == offer.name).sum())
+        assert f["chosen"] == chosen and f["limited_by"] in LIMITS
+        assert f["spend"] == pytest.approx(round(chosen * offer.cost, 2))
+        assert f["chosen"] <= f["positive_value"] <= f["allowed"] <= f["eligible"]
+        assert f["eligible"] <= f["candidates"] == len(report_case.scores)
+    text = _page(report_case.html).sections["plan"]["text"]
+    assert "Why each offer got the contacts it did" in text

@@ -324,7 +324,9 @@ def _check_table_path(path: Path, *, csv_only: bool = False) -> None:
 
 def _write_table(path: Path, frame) -> None:
     from .._files import write_csv_atomic, write_parquet_atomic
+    from ..value import round_money
 
+    frame = round_money(frame)  # money to cents
     if path.suffix.lower() == ".parquet":
         write_parquet_atomic(path, frame)
     else:

@@ -156,6 +156,7 @@ def run_cycle(
     from ..history import ScoreHistory
     from ..models._families import make_model
     from ..report import write_report
+    from ..value import round_money
     from ._steps import (
         default_cutoffs,
         forecast_portfolio,
@@ -224,8 +225,8 @@ def run_cycle(
         if client is None:
             forecast = forecast_portfolio(tables, scored, config)
         files = {
-            "scores": write_csv_atomic(staging / "scores.csv", scored.scores),
-            "plan": write_csv_atomic(staging / "contact_plan.csv", plan.table),
+            "scores": write_csv_atomic(staging / "scores.csv", round_money(scored.scores)),
+            "plan": write_csv_atomic(staging / "contact_plan.csv", round_money(plan.table)),
             "forecast": write_csv_atomic(staging / "uptake_forecast.csv", forecast),
             "backtest": write_csv_atomic(staging / "backtest_metrics.csv", result["metrics"]),
         }
@@ -377,6 +378,7 @@ def _report_inputs(
     from ..history import compare_with_outcomes
     from ..report import build_report_inputs
     from ..spatial import premise_areas
+    from ..value import value_settings
     from ._steps import snapshot_with_context
 
     decile_check = decile_summary = previous_snapshot = previous_scores = None
@@ -407,5 +409,6 @@ def _report_inputs(
         previous_scores=previous_scores,
         decile_check=decile_check,
         decile_summary=decile_summary,
+        currency=value_settings(config).currency,
         notes=notes,
     )

@@ -17,7 +17,15 @@ from ._offers import (
     offers_from_config,
     plan_settings_from_config,
 )
-from ._plan import AREA_FEATURES, PLAN_COLUMNS, Plan, expected_value_matrix, make_plan
+from ._plan import (
+    AREA_FEATURES,
+    LIMITS,
+    PLAN_COLUMNS,
+    Plan,
+    expected_value_matrix,
+    make_plan,
+    offer_figures,
+)
 from ._reasons import (
     DEFAULT_PHRASES,
     Phrase,
@@ -34,6 +42,7 @@ from ._solve import Allocation, allocate
 __all__ = [
     "AREA_FEATURES",
     "DEFAULT_PHRASES",
+    "LIMITS",
     "PLAN_COLUMNS",
     "Allocation",
     "Eligibility",
@@ -50,6 +59,7 @@ __all__ = [
     "join_reasons",
     "last_contact_months",
     "make_plan",
+    "offer_figures",
     "offers_from_config",
     "phrases_from_config",
     "plan_settings_from_config",

@@ -10,7 +10,7 @@ from __future__ import annotations
 
 import logging
 from collections.abc import Sequence
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from typing import Any
 
 import numpy as np
@@ -25,7 +25,7 @@ from ._solve import Allocation, allocate
 
 log = logging.getLogger(__name__)
 
-__all__ = ["Plan", "expected_value_matrix", "make_plan"]
+__all__ = ["LIMITS", "Plan", "expected_value_matrix", "make_plan", "offer_figures"]
 
 PLAN_COLUMNS = ["customer_id", "offer", "week", "expected_value", "cost", "reasons"]
 #: features that are area-level in every panel (the areas table's attributes are added by the run)
@@ -49,6 +49,8 @@ class Plan:
         The budget the plan had.
     excluded
         Customers never considered because of an exclusion flag.
+    offer_figures
+        Per offer name, why it got the contacts it did (`offer_figures`).
     """
 
     table: pd.DataFrame
@@ -56,6 +58,7 @@ class Plan:
     offers: tuple[Offer, ...]
     budget: float
     excluded: int
+    offer_figures: dict[str, dict[str, Any]] = field(default_factory=dict)
 
     def summary(self) -> dict[str, Any]:
         """The key figures as plain values (for the report's JSON)."""
@@ -73,6 +76,7 @@ class Plan:
             "counts": {o.name: c for o, c in zip(self.offers, a.counts, strict=True)},
             "candidate_pairs": a.candidates,
             "excluded_customers": self.excluded,
+            "offers": self.offer_figures,
         }
 
 
@@ -183,6 +187,7 @@ def make_plan(
         )
 
     allowed = np.column_stack([eligible_mask(frame, o) for o in offers])
+    rules = allowed.copy()
     for flag in settings.exclude:
         if flag not in frame:
             log.warning("plan: no %r column, so no customer is excluded by it", flag)
@@ -256,13 +261,78 @@ def make_plan(
         100 * allocation.relative_gap,
         allocation.solver,
     )
+    eligible = rules & ~excluded[:, None]
     return Plan(
         table=table[PLAN_COLUMNS],
         allocation=allocation,
         offers=offers,
         budget=float(settings.budget),
         excluded=int(excluded.sum()),
+        offer_figures=offer_figures(
+            ev, eligible, allowed, allocation, offers, settings.weeks, float(settings.budget)
+        ),
     )
+
+
+LIMITS = ("no positive value", "eligibility", "capacity", "budget", "none")
+
+
+def offer_figures(
+    ev: np.ndarray,
+    eligible: np.ndarray,
+    allowed: np.ndarray,
+    allocation: Allocation,
+    offers: Sequence[Offer],
+    weeks: int,
+    budget: float,
+) -> dict[str, dict[str, Any]]:
+    """Per offer, why it got the contacts it did.
+
+    ``candidates``: customers in the plan's frame; ``eligible``: those meeting the offer's
+    rules and not excluded by a flag; ``allowed``: of those, outside the contact cooldown;
+    ``positive_value``: allowed with a positive expected value; ``chosen``: contacts planned;
+    ``spend``: their cost (to cents); ``capacity``: ``weekly_capacity × weeks`` (``None``: no
+    limit); ``limited_by``, the first that holds of:
+
+    - ``"eligibility"``: nobody is allowed (eligibility, flags or cooldown);
+    - ``"no positive value"``: nobody allowed has a positive expected value;
+    - ``"none"``: every allowed customer with a positive value is planned (this offer or a
+      better one for the same customer);
+    - ``"capacity"``: the offer's contacts reached its capacity;
+    - ``"budget"``: one more contact of this offer would pass the budget;
+    - ``"none"`` otherwise (the solver found no better use).
+    """
+    choice = allocation.choice
+    spent = float(allocation.budget_used)
+    out: dict[str, dict[str, Any]] = {}
+    for j, offer in enumerate(offers):
+        positive = allowed[:, j] & (np.nan_to_num(ev[:, j], nan=-np.inf) > 0)
+        chosen = int(np.sum(choice == j))
+        left_out = int(np.sum(positive & (choice < 0)))
+        capacity = offer.capacity(weeks)
+        if not allowed[:, j].any():
+            limit = "eligibility"
+        elif not positive.any():
+            limit = "no positive value"
+        elif left_out == 0:
+            limit = "none"
+        elif chosen >= capacity:
+            limit = "capacity"
+        elif spent + offer.cost > budget + 1e-9:
+            limit = "budget"
+        else:
+            limit = "none"
+        out[offer.name] = {
+            "candidates": len(ev),
+            "eligible": int(eligible[:, j].sum()),
+            "allowed": int(allowed[:, j].sum()),
+            "positive_value": int(positive.sum()),
+            "chosen": chosen,
+            "spend": round(chosen * offer.cost, 2),
+            "capacity": None if not np.isfinite(capacity) else int(capacity),
+            "limited_by": limit,
+        }
+    return out
 
 
 def _risk_reasons(

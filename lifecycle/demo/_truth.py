@@ -187,6 +187,7 @@ sample_fraction = 0.1
 [value]
 annual_discount = 0.08
 horizon_months = 24
+currency = "EUR"
 
 [forecast]
 horizon_months = 12

@@ -118,6 +118,8 @@ class ReportInputs:
         `Plan.summary()`: ``budget``, ``budget_used``, ``gap``, ``solver``, …
     offer_rates
         Contacts per area next to the area's share of customers (`offer_rates_by_area`).
+    currency
+        The currency of the amounts (``[value] currency``; "" when not named).
     title
         Heading of the page.
     notes
@@ -142,6 +144,7 @@ class ReportInputs:
     plan: pd.DataFrame | None = None
     plan_summary: dict[str, Any] | None = None
     offer_rates: pd.DataFrame | None = None
+    currency: str = ""
     title: str = DEFAULT_TITLE
     notes: list[str] = field(default_factory=list)
 
@@ -206,6 +209,7 @@ def build_report_inputs(
     decile_check: pd.DataFrame | None = None,
     decile_summary: dict[str, Any] | None = None,
     risk_columns: tuple[str, ...] = ("cif_churn_3m", "cif_move_out_3m"),
+    currency: str = "",
     title: str = DEFAULT_TITLE,
     notes: list[str] | None = None,
 ) -> ReportInputs:
@@ -242,6 +246,8 @@ def build_report_inputs(
         Last month's scores (from the score history): score drift.
     decile_check, decile_summary
         How last month's predictions did (from the score history); ``None`` the first month.
+    currency
+        The currency of the amounts (``[value] currency``).
     """
     parse_month(month, what="report month")
     if segment_column is None:
@@ -296,6 +302,7 @@ def build_report_inputs(
         plan=plan_table,
         plan_summary=plan_summary,
         offer_rates=offer_rates,
+        currency=currency,
         title=title,
         notes=list(notes or []),
     )

@@ -1,11 +1,14 @@
 """Lifetime value: the discounted margin a customer is expected to bring while still a customer.
 
-Settings in ``lifecycle.toml`` (both optional)::
+Settings in ``lifecycle.toml`` (all optional)::
 
     [value]
     annual_discount = 0.08     # yearly discount rate a, >= 0 and < 1; the monthly rate is
                                # d = (1 + a)^(1/12) − 1 (compounding: 12 months of d make a)
     horizon_months = 36        # months of margin counted, whole number >= 1
+    currency = "EUR"           # the currency of monthly_margin and the offers' costs and
+                               # values, named in the report and key figures (default "":
+                               # amounts are in the unit of monthly_margin, unnamed)
 
 Timing: the margin of month t is received at the end of month t, and only if the customer is
 still a customer then, so it is weighted by S(t) and discounted by (1 + d)^−t, t = 1..H. This is
@@ -36,6 +39,7 @@ class ValueSettings:
 
     annual_discount: float = DEFAULT_ANNUAL_DISCOUNT
     horizon_months: int = DEFAULT_HORIZON_MONTHS
+    currency: str = ""
 
 
 def value_settings(config: Config) -> ValueSettings:
@@ -44,11 +48,17 @@ def value_settings(config: Config) -> ValueSettings:
     raw = config.raw.get("value", {})
     if not isinstance(raw, dict):
         raise UsageError(f"{src}: [value] must be a table of settings")
-    unknown = sorted(set(raw) - {"annual_discount", "horizon_months"})
+    unknown = sorted(set(raw) - {"annual_discount", "horizon_months", "currency"})
     if unknown:
         raise UsageError(
             f"{src}: [value] has unknown setting(s) {unknown}; allowed are "
-            "['annual_discount', 'horizon_months']"
+            "['annual_discount', 'currency', 'horizon_months']"
+        )
+    currency = raw.get("currency", "")
+    if not isinstance(currency, str) or len(currency.strip()) > 8 or currency != currency.strip():
+        raise UsageError(
+            f"{src}: [value] currency was {currency!r} but must be a short text such as "
+            '"EUR" (at most 8 characters, no surrounding spaces)'
         )
     annual = raw.get("annual_discount", DEFAULT_ANNUAL_DISCOUNT)
     _check_annual(annual, f"{src}: [value] annual_discount")
@@ -58,7 +68,9 @@ def value_settings(config: Config) -> ValueSettings:
             f"{src}: [value] horizon_months was {horizon!r} but is expected to be a whole "
             "number of months >= 1"
         )
-    return ValueSettings(annual_discount=float(annual), horizon_months=int(horizon))
+    return ValueSettings(
+        annual_discount=float(annual), horizon_months=int(horizon), currency=currency
+    )
 
 
 def monthly_discount_rate(annual_discount: float) -> float:
