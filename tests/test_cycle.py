@@ -153,3 +153,53 @@ def test_same_seed_fresh_runs_give_byte_identical_outputs(tmp_path):
             {k: result.files[k].read_bytes() for k in ("key_figures", "plan", "forecast", "scores")}
         )
     assert outputs[0] == outputs[1]
+
+
+# -- lifecycle explain -----------------------------------------------------------------------
+def test_explain_agrees_with_the_run_for_a_planned_customer(demo, two_months, capsys):
+    """One customer taken apart: the same scores, expected value and reasons as the run's
+    files (the run and `explain_customer` share the scoring, valuing and reasons)."""
+    from lifecycle.cli import main
+    from lifecycle.cycle import explain_customer
+    from lifecycle.models import load_model
+
+    folder, config = demo
+    reports, _, second = two_months
+    model_dir = next((folder.parent / ".lifecycle-work" / "models").iterdir())
+    plan = pd.read_csv(second.files["plan"], dtype={"customer_id": str})
+    scores = pd.read_csv(second.files["scores"], dtype={"customer_id": str})
+    row = plan.iloc[0]
+    found = explain_customer(
+        load_tables(folder, config),
+        load_model(model_dir),
+        "2026-10",
+        row["customer_id"],
+        config,
+        history=reports / "history.duckdb",
+    )
+    assert found["customer_id"] == row["customer_id"]
+    mine = scores.set_index("customer_id").loc[row["customer_id"]]
+    assert found["incidence"]["churn"][2] == pytest.approx(mine["cif_churn_3m"], rel=1e-5)
+    assert found["survival"][11] == pytest.approx(mine["survival_12m"], rel=1e-5)
+    assert found["lifetime_value"] == pytest.approx(mine["lifetime_value"], abs=0.006)
+    offers = {o["offer"]: o for o in found["offers"]}
+    assert set(offers) == {"loyalty_credit", "moving_home_transfer", "backup_line_trial"}
+    chosen = offers[row["offer"]]
+    assert chosen["eligible"] and chosen["exclusions"] == []
+    assert chosen["expected_value"] == pytest.approx(row["expected_value"], abs=0.006)
+    assert "; ".join(chosen["reasons"]) == row["reasons"]
+    for o in offers.values():
+        terms = o["value_saved"] + o["uptake_value"] - o["cost"]
+        assert o["expected_value"] == pytest.approx(terms, abs=0.011)  # each term to cents
+    assert [h["month"] for h in found["history"]] == ["2026-09", "2026-10"]
+    assert found["history"][-1]["planned_offer"] == row["offer"]
+
+    args = ["explain", str(folder), "--model", str(model_dir), "--as-of", "2026-10"]
+    assert main([*args, "--customer", row["customer_id"], "--json"]) == 0
+    printed = json.loads(capsys.readouterr().out)
+    assert printed["customer_id"] == row["customer_id"] and len(printed["offers"]) == 3
+    assert main([*args, "--customer", row["customer_id"]]) == 0
+    assert "expected value" in capsys.readouterr().out
+    assert main([*args, "--customer", "NO-SUCH-ID"]) == 2
+    err = capsys.readouterr().err
+    assert "'NO-SUCH-ID' is not in the customers table" in err

@@ -300,6 +300,7 @@ def test_public_surface_is_pinned():
             "offers_from_config",
             "phrases_from_config",
             "plan_settings_from_config",
+            "portfolio_reference",
             "reason_concept",
             "risk_reason",
             "schedule_weeks",

@@ -172,13 +172,7 @@ def plan_contacts(
             horizon=values.horizon_months,
             customer_ids=snapshot["customer_id"].to_numpy(),
         )
-    frame = snapshot.merge(scored.scores, on="customer_id", how="left")
-    flags = [c for c in settings.exclude if c in tables.customers.columns]
-    if flags:
-        frame = frame.merge(tables.customers[["customer_id", *flags]], on="customer_id", how="left")
-    frame = frame.rename(columns={"tenure_start": "tenure"}).assign(
-        tenure_start=frame["tenure_start"]
-    )
+    frame = planning_frame(tables, scored, settings.exclude)
     return make_plan(
         frame,
         ev[["customer_id", "offer", "expected_value"]],
@@ -189,6 +183,19 @@ def plan_contacts(
         snapshot=snapshot,
         phrases=phrases_from_config(config),
         area_features=area_feature_names(tables),
+    )
+
+
+def planning_frame(tables: Tables, scored: Scored, flags: Sequence[str]) -> pd.DataFrame:
+    """One row per scored customer, as the plan reads it: the snapshot's features with the
+    scores, the exclusion ``flags`` from the customers table and ``tenure`` (the snapshot's
+    ``tenure_start``) for the eligibility rules."""
+    frame = scored.snapshot.merge(scored.scores, on="customer_id", how="left")
+    flags = [c for c in flags if c in tables.customers.columns]
+    if flags:
+        frame = frame.merge(tables.customers[["customer_id", *flags]], on="customer_id", how="left")
+    return frame.rename(columns={"tenure_start": "tenure"}).assign(
+        tenure_start=frame["tenure_start"]
     )
 
 

@@ -19,7 +19,14 @@ import pandas as pd
 from .._months import categorical_to_index, format_month, parse_month
 from ..errors import InputError, UsageError
 from ._offers import Offer, PlanSettings, _numbers, cooldown_ok, eligible_mask, excluded_mask
-from ._reasons import DEFAULT_PHRASES, Phrase, join_reasons, risk_reason, top_reasons
+from ._reasons import (
+    DEFAULT_PHRASES,
+    Phrase,
+    join_reasons,
+    portfolio_reference,
+    risk_reason,
+    top_reasons,
+)
 from ._schedule import schedule_weeks
 from ._solve import Allocation, allocate
 
@@ -248,7 +255,13 @@ def make_plan(
         causes = [offers[o].target for o in allocation.choice[rows_sorted]]
         hidden = () if settings.area_reasons else tuple(area_features)
         reasons = top_reasons(
-            model, source.iloc[position], causes, settings.reasons, phrases=phrases, hidden=hidden
+            model,
+            source.iloc[position],
+            causes,
+            settings.reasons,
+            reference=portfolio_reference(model, source),  # against everyone, not the planned
+            phrases=phrases,
+            hidden=hidden,
         )
         table["reasons"] = join_reasons(reasons, table["customer_id"].tolist())
     if settings.reasons > 0 and len(table):

@@ -62,6 +62,7 @@ __all__ = [
     "cause_words",
     "join_reasons",
     "phrases_from_config",
+    "portfolio_reference",
     "reason_concept",
     "risk_reason",
     "top_reasons",
@@ -340,6 +341,17 @@ def top_reasons(
         for f, v, ref, c in zip(out["feature"], values, out["reference"], out["cause"], strict=True)
     ]
     return out
+
+
+def portfolio_reference(model: Any, snapshot: pd.DataFrame) -> dict[str, Any]:
+    """The reference of every candidate feature over the whole portfolio: the model's stored
+    ``feature_reference_`` where it has one, else the median (numbers) or most common value
+    (categories) of ``snapshot`` (every customer scored, not only those planned)."""
+    stored = dict(getattr(model, "feature_reference_", None) or {})
+    columns = [*model.features_, TENURE]
+    return {
+        f: stored[f] if f in stored else _typical(snapshot[f]) for f in columns if f in snapshot
+    }
 
 
 def risk_reason(column: str, value: float, typical: float) -> str:
