@@ -203,3 +203,19 @@ def test_explain_agrees_with_the_run_for_a_planned_customer(demo, two_months, ca
     assert main([*args, "--customer", "NO-SUCH-ID"]) == 2
     err = capsys.readouterr().err
     assert "'NO-SUCH-ID' is not in the customers table" in err
+
+
+def test_champions_are_scored_on_a_held_out_cutoff_and_repeats_are_counted(two_months):
+    _, first, second = two_months
+    key = json.loads((second.folder / "key_figures.json").read_text())
+    for cause, champion in key["champions"].items():
+        # the demo backtests two cutoffs: chosen on the earlier, scored on the later
+        assert champion["held_out_cutoff"] is not None, cause
+        assert "why" in champion and champion["previous_family"] == champion["family"]
+        assert champion["changed"] is False
+    again = key["plan"]["planned_again"]
+    previous = pd.read_csv(first.files["plan"])
+    assert again["previous_contacts"] == previous["customer_id"].nunique()
+    assert again["planned_again"] <= again["still_eligible"] <= again["previous_contacts"]
+    now = set(pd.read_csv(second.files["plan"])["customer_id"])
+    assert again["planned_again"] <= len(now & set(previous["customer_id"]))

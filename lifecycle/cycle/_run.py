@@ -4,7 +4,13 @@ Settings come from the ``[run]`` section of ``lifecycle.toml``::
 
     [run]
     families = ["cox", "boosted"]   # compared in the backtest (the tenure life table always is)
-    cutoffs = 2                     # past cutoffs in the backtest, 3 months apart
+    cutoffs = 2                     # past cutoffs in the backtest, 3 months apart; the champion
+                                    # of each cause is chosen on all but the latest and its
+                                    # score reported on the latest (held out); >= 2 for an
+                                    # honest score (with 1 no held-out score is reported)
+    switch_margin = 0.005           # a cause's champion changes from last month's family only
+                                    # when another family's mean Uno's C is higher by more
+                                    # than this (`lifecycle.evaluation.choose_champions`)
     refit_months = 1                # refit when the newest saved model is this many months old
     backtest_months = 1             # redo the backtest (and the champion choice) this often
     reports = "reports"             # month folders go to <reports>/<YYYY-MM>/ (relative to
@@ -40,6 +46,7 @@ log = logging.getLogger(__name__)
 
 _RUN_KEYS = {
     "families", "cutoffs", "refit_months", "backtest_months", "reports", "history", "work",
+    "switch_margin",
 }  # fmt: skip
 
 
@@ -54,6 +61,7 @@ class RunSettings:
     reports: Path = Path("reports")
     history: Path | None = None
     work: Path = Path(".lifecycle-work")
+    switch_margin: float = 0.005
 
     @property
     def history_path(self) -> Path:
@@ -82,6 +90,11 @@ def run_settings(config: Config, *, reports: str | Path | None = None) -> RunSet
         value = raw.get(key, 1)
         if isinstance(value, bool) or not isinstance(value, int) or value < 1:
             raise UsageError(f"[run] {key} was {value!r} but must be a whole number >= 1")
+    margin = raw.get("switch_margin", 0.005)
+    if isinstance(margin, bool) or not isinstance(margin, int | float) or not 0 <= margin < 1:
+        raise UsageError(
+            f"[run] switch_margin was {margin!r} but must be a number >= 0 and < 1 (in Uno's C)"
+        )
     reports_path = (
         Path(reports).resolve() if reports is not None else path(raw.get("reports"), "reports")
     )
@@ -93,6 +106,7 @@ def run_settings(config: Config, *, reports: str | Path | None = None) -> RunSet
         reports=reports_path,
         history=path(raw["history"], "") if raw.get("history") else None,
         work=path(raw.get("work"), ".lifecycle-work"),
+        switch_margin=float(margin),
     )
 
 
@@ -152,7 +166,7 @@ def run_cycle(
     same up to floating-point rounding.
     """
     from ..data import load_tables, tables_as_of
-    from ..evaluation import TenureLifeTable, backtest
+    from ..evaluation import TenureLifeTable, backtest, choose_champions
     from ..history import ScoreHistory
     from ..models._families import make_model
     from ..report import write_report
@@ -202,9 +216,15 @@ def run_cycle(
                 config=config,
             ),
         )  # fmt: skip
-        champions = dict(
-            zip(result["champions"]["cause"], result["champions"]["family"], strict=True)
+        history = ScoreHistory(settings.history_path)
+        previous = history.previous_month(month)
+        choice = choose_champions(
+            result["metrics"],
+            previous=_previous_champions(history, previous),
+            margin=settings.switch_margin,
         )
+        result = {**result, "champions": choice}
+        champions = dict(zip(choice["cause"], choice["family"], strict=True))
         tick("fit")
         panel = panel_with_context(tables, month, config)
         model = _champion_model(
@@ -242,8 +262,6 @@ def run_cycle(
             staging / "run_summary.json", json.dumps(summary, indent=2, sort_keys=True, default=str)
         )
         tick("report")
-        history = ScoreHistory(settings.history_path)
-        previous = history.previous_month(month)
         inputs = _report_inputs(
             tables, config, month, panel, scored, model, result, plan, forecast, history, previous
         )
@@ -274,6 +292,14 @@ def run_cycle(
         files={k: folder / v.name for k, v in files.items()},
         summary=summary,
     )
+
+
+def _previous_champions(history, previous: str | None) -> dict[str, str] | None:
+    """Last month's champion family per cause, from the score history (``None``: none)."""
+    if previous is None:
+        return None
+    families = history.run(previous).families
+    return {str(k): str(v) for k, v in families.items()} if isinstance(families, dict) else None
 
 
 def _scheduled(folder: Path, prefix: str, month: str, fingerprint: str, every: int) -> list[Path]:
@@ -331,6 +357,12 @@ def _champion_model(work, fingerprint, month, panel, families, champions, refit_
             except ModelFileError as exc:
                 log.warning("not reusing %s: %s", candidate, exc)
                 continue
+            kept = getattr(model, "cause_family_", {})
+            if any(kept.get(c, f) != f for c, f in champions.items()):
+                log.info(
+                    "model: not reusing %s: its families %s are not the champions", candidate, kept
+                )
+                continue
             log.info("model: reusing %s (refit every %d months)", candidate, refit_months)
             return model
     model = ChampionModel(families=families, champions=champions).fit(panel)
@@ -381,13 +413,14 @@ def _report_inputs(
     from ..value import value_settings
     from ._steps import snapshot_with_context
 
-    decile_check = decile_summary = previous_snapshot = previous_scores = None
+    decile_check = decile_summary = previous_snapshot = previous_scores = previous_plan = None
     notes = []
     if previous is not None:
         outcomes = observed_outcomes(tables, parse_month(previous))
         comparison = compare_with_outcomes(history, previous, outcomes, cause="churn", horizon=1)
         decile_check, decile_summary = comparison.deciles, comparison.summary
         previous_scores = history.scores(previous)
+        previous_plan = history.plan(previous)
         previous_snapshot = snapshot_with_context(tables, previous, config)
         notes.append(f"Compared with the run of {previous} (score history).")
     fitted = getattr(model, "fitted_", {})
@@ -409,6 +442,7 @@ def _report_inputs(
         previous_scores=previous_scores,
         decile_check=decile_check,
         decile_summary=decile_summary,
+        previous_plan=previous_plan,
         currency=value_settings(config).currency,
         notes=notes,
     )

@@ -58,6 +58,9 @@ class Plan:
         Customers never considered because of an exclusion flag.
     offer_figures
         Per offer name, why it got the contacts it did (`offer_figures`).
+    allowed
+        Customer × offer: True where the customer may receive the offer this month
+        (eligibility, flags and cooldown), indexed by ``customer_id``.
     """
 
     table: pd.DataFrame
@@ -66,6 +69,30 @@ class Plan:
     budget: float
     excluded: int
     offer_figures: dict[str, dict[str, Any]] = field(default_factory=dict)
+    allowed: pd.DataFrame | None = None
+
+    def planned_again(self, previous: pd.DataFrame | None) -> dict[str, Any] | None:
+        """How many of last month's planned customers are planned again.
+
+        ``previous_contacts``: customers in last month's plan; ``still_eligible``: of those,
+        customers still scored who may receive at least one offer now; ``planned_again``: of
+        those, customers in this plan; ``share`` = planned_again / still_eligible (``None``
+        when nobody is still eligible). ``None`` without a previous plan.
+        """
+        if previous is None or self.allowed is None:
+            return None
+        before = pd.Index(previous["customer_id"].astype(str).unique())
+        allowed = self.allowed.any(axis=1)
+        allowed.index = allowed.index.astype(str)
+        still = before[before.isin(allowed.index[allowed.to_numpy()])]
+        now = set(self.table["customer_id"].astype(str))
+        again = int(sum(c in now for c in still))
+        return {
+            "previous_contacts": len(before),
+            "still_eligible": len(still),
+            "planned_again": again,
+            "share": again / len(still) if len(still) else None,
+        }
 
     def summary(self) -> dict[str, Any]:
         """The key figures as plain values (for the report's JSON)."""
@@ -283,6 +310,9 @@ def make_plan(
         excluded=int(excluded.sum()),
         offer_figures=offer_figures(
             ev, eligible, allowed, allocation, offers, settings.weeks, float(settings.budget)
+        ),
+        allowed=pd.DataFrame(
+            allowed, index=pd.Index(ids.to_numpy()), columns=[o.name for o in offers]
         ),
     )
 

@@ -235,7 +235,7 @@ weeks = 4
 # The backtest and the models are redone every third month; between, the last ones are reused.
 [run]
 families = ["cox", "boosted"]
-cutoffs = 1
+cutoffs = 2
 refit_months = 3
 backtest_months = 3
 reports = "../reports"

@@ -3,10 +3,13 @@
 from ._backtest import BacktestResult, backtest, champions
 from ._baseline import TenureLifeTable
 from ._calibration import calibration_table, lift_and_capture
+from ._choice import CHOICE_COLUMNS, DEFAULT_SWITCH_MARGIN, choose_champions
 from ._metrics import CensoringCurve, brier_score, time_dependent_auc, uno_concordance
 from ._outcomes import observed_outcomes, outcome_for_cause
 
 __all__ = [
+    "CHOICE_COLUMNS",
+    "DEFAULT_SWITCH_MARGIN",
     "BacktestResult",
     "CensoringCurve",
     "TenureLifeTable",
@@ -14,6 +17,7 @@ __all__ = [
     "brier_score",
     "calibration_table",
     "champions",
+    "choose_champions",
     "lift_and_capture",
     "observed_outcomes",
     "outcome_for_cause",

@@ -118,6 +118,9 @@ class ReportInputs:
         `Plan.summary()`: ``budget``, ``budget_used``, ``gap``, ``solver``, …
     offer_rates
         Contacts per area next to the area's share of customers (`offer_rates_by_area`).
+    planned_again
+        `Plan.planned_again` of last month's plan: ``previous_contacts``, ``still_eligible``,
+        ``planned_again``, ``share`` (``None`` the first month).
     currency
         The currency of the amounts (``[value] currency``; "" when not named).
     title
@@ -144,6 +147,7 @@ class ReportInputs:
     plan: pd.DataFrame | None = None
     plan_summary: dict[str, Any] | None = None
     offer_rates: pd.DataFrame | None = None
+    planned_again: dict[str, Any] | None = None
     currency: str = ""
     title: str = DEFAULT_TITLE
     notes: list[str] = field(default_factory=list)
@@ -177,7 +181,7 @@ def check_inputs(inputs: ReportInputs) -> ReportInputs:
             )
     if getattr(values["areas"], "crs", None) is None:
         raise InputError(table="report input areas", column="geometry", problem="has no CRS")
-    for name in ("decile_summary", "plan_summary"):
+    for name in ("decile_summary", "plan_summary", "planned_again"):
         if values[name] is not None and not isinstance(values[name], dict):
             raise UsageError(f"report input {name} must be a dict or None")
     return ReportInputs(**values)
@@ -209,6 +213,7 @@ def build_report_inputs(
     decile_check: pd.DataFrame | None = None,
     decile_summary: dict[str, Any] | None = None,
     risk_columns: tuple[str, ...] = ("cif_churn_3m", "cif_move_out_3m"),
+    previous_plan: pd.DataFrame | None = None,
     currency: str = "",
     title: str = DEFAULT_TITLE,
     notes: list[str] | None = None,
@@ -246,6 +251,8 @@ def build_report_inputs(
         Last month's scores (from the score history): score drift.
     decile_check, decile_summary
         How last month's predictions did (from the score history); ``None`` the first month.
+    previous_plan
+        Last month's plan table (from the score history): how many are planned again.
     currency
         The currency of the amounts (``[value] currency``).
     """
@@ -302,6 +309,9 @@ def build_report_inputs(
         plan=plan_table,
         plan_summary=plan_summary,
         offer_rates=offer_rates,
+        planned_again=(
+            plan.planned_again(previous_plan) if hasattr(plan, "planned_again") else None
+        ),
         currency=currency,
         title=title,
         notes=list(notes or []),

@@ -24,6 +24,7 @@ __all__ = ["load_report_inputs", "save_report_inputs"]
 INDEX_FILE = "inputs.json"
 _SCALARS = (
     "month", "title", "notes", "segment_column", "decile_summary", "plan_summary", "currency",
+    "planned_again",
 )  # fmt: skip
 
 

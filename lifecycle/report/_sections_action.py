@@ -302,8 +302,25 @@ def plan_section(inputs: ReportInputs) -> tuple[Section, dict[str, Any]]:
         if extra in summary:
             key[extra] = summary[extra]
     key["currency"] = inputs.currency or None
+    key["planned_again"] = _planned_again(section, inputs.planned_again)
     rate_key = _offer_rates(section, inputs.offer_rates)
     return section, {"plan": key, "offer_rates": rate_key, "offers": summary.get("offers")}
+
+
+def _planned_again(section: Section, again: dict[str, Any] | None) -> dict[str, Any] | None:
+    """How many of last month's planned customers are planned again, in words."""
+    if not again:
+        return None
+    share = again.get("share")
+    section.text(
+        f"Of last month's {again['previous_contacts']:,} planned customers, "
+        f"{again['still_eligible']:,} may still receive an offer; "
+        f"{again['planned_again']:,} of them are planned again"
+        + (f" ({pct_text(share, 0)})." if share is not None else ".")
+        + " A low share with an unchanged portfolio means the ranking moved: see the "
+        "champions and their changes above."
+    )
+    return again
 
 
 _LIMIT_WORDS = {
