@@ -82,7 +82,8 @@ class ReportInputs:
     segment_column
         The customer attribute the segments are values of (for the captions).
     areas
-        ``area_id`` and polygons (``geometry``) with a CRS, for the risk map.
+        ``area_id`` and polygons (``geometry``) with a CRS, for the risk map; optional
+        ``area_name`` labels the areas on the map and in the tables.
     area_risk
         ``area_id``, ``customers`` and mean predicted probabilities per area, e.g.
         ``cif_churn_3m``, ``cif_move_out_3m`` (`area_risk`).
@@ -285,11 +286,10 @@ def build_report_inputs(
     drift = pd.concat(drift_parts, ignore_index=True) if drift_parts else None
     if drift is not None:
         drift = drift[DRIFT_COLUMNS]
-    map_areas = gpd.GeoDataFrame(
-        {"area_id": areas["area_id"].astype(str).to_numpy()},
-        geometry=areas.geometry.to_numpy(),
-        crs=areas.crs,
-    )
+    names = {"area_id": areas["area_id"].astype(str).to_numpy()}
+    if "area_name" in areas.columns:  # maps and tables label areas by name where given
+        names["area_name"] = areas["area_name"].astype(str).to_numpy()
+    map_areas = gpd.GeoDataFrame(names, geometry=areas.geometry.to_numpy(), crs=areas.crs)
     inputs = ReportInputs(
         month=month,
         portfolio=monthly_counts(panel),

@@ -172,7 +172,7 @@ def tenure_section(inputs: ReportInputs) -> tuple[Section, dict[str, Any]]:
         caption="Monthly hazard by tenure band (95 % interval)",
     )
     incidence = inputs.incidence
-    section.heading(f"Cumulative incidence by {inputs.segment_column}")
+    section.heading(fig.incidence_title(inputs.segment_column))
     if len(incidence) == 0:
         section.note(
             f"No segment of {inputs.segment_column} has enough customers at risk to draw a curve."
@@ -185,7 +185,7 @@ def tenure_section(inputs: ReportInputs) -> tuple[Section, dict[str, Any]]:
         )
         section.figure(
             fig.incidence_chart(incidence, inputs.segment_column),
-            alt=f"Cumulative incidence of each exit cause by {inputs.segment_column}",
+            alt=f"{fig.incidence_title(inputs.segment_column)}, each exit cause",
         )
     return section, {"hazard_by_tenure_band": key}
 
@@ -221,10 +221,14 @@ def risk_map_section(inputs: ReportInputs) -> tuple[Section, dict[str, Any]]:
     )
     key: dict[str, Any] = {"portfolio_mean": overall, "highest_area": {}}
     header = ["area", "customers", *[fig.risk_title(c) for c in columns]]
+    named = (
+        dict(zip(areas["area_id"], areas["area_name"], strict=True)) if "area_name" in areas else {}
+    )
     for column in columns:
         top = risk.sort_values([column, "area_id"], ascending=[False, True]).head(5)
         rows = [
-            [Cell(a), count(n), *[percent(top.loc[i, c]) for c in columns]]
+            [Cell(f"{named[a]} ({a})" if a in named else a), count(n)]
+            + [percent(top.loc[i, c]) for c in columns]
             for i, a, n in zip(top.index, top["area_id"], top["customers"], strict=True)
         ]
         section.table(header, rows, caption=f"Areas with the highest {fig.risk_title(column)}")

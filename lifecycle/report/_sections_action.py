@@ -74,10 +74,8 @@ def drivers_section(inputs: ReportInputs) -> tuple[Section, dict[str, Any]]:
         else:
             section.note("No hazard ratio has an interval that excludes 1.")
     imp = inputs.importances
-    section.heading("Forest importances")
-    if imp is None or len(imp) == 0:
-        section.note("No survival forest was fitted, so there are no importances.")
-    else:
+    if imp is not None and len(imp) > 0:  # no heading without a forest: no empty part
+        section.heading("Forest importances")
         section.text(
             "How much the forest's accuracy drops when one feature's values are shuffled "
             "among customers: a larger drop means the forest leans on it more. Importances "
