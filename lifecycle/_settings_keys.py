@@ -273,6 +273,9 @@ _OFFERS = (
         Key("consent_column", TEXT, None, "a marketing opt-in flag column: only opted-in "
             "customers are eligible", example="marketing_opt_in"),
         Key("reasons", WHOLE, 3, "reasons per plan row (0: none)", at_least(0)),
+        Key("area_reasons", FLAG, False, "give area attributes (rental share, local move "
+            "rate, ...) to staff as reasons; off by default, as they can act as proxies for "
+            "protected characteristics"),
     )),
     Section("reason_phrases", "words for reasons: feature pattern (regular expression) = phrase",
             open=(Key("<pattern>", PHRASE, None, "the phrase when the value is high, or both "
@@ -285,6 +288,10 @@ _STAGES = (
         Key("annual_discount", NUMBER, 0.08, "yearly discount rate a (monthly d = (1 + "
             "a)^(1/12) - 1)", between(0, 1, high_open=True)),
         Key("horizon_months", WHOLE, 36, "months of margin counted", _HORIZON),
+        Key("currency", TEXT, "", "currency of monthly_margin and the offers' costs, named in "
+            "the report, key figures and CSV headers (blank: unnamed)", Check(
+                "of at most 8 characters without surrounding spaces",
+                lambda v: len(v) <= 8 and v == v.strip())),
     )),
     Section("forecast", "the uptake forecast", (
         Key("horizon_months", WHOLE, 12, "months forecast", _HORIZON),
@@ -299,7 +306,12 @@ _STAGES = (
         Key("families", TEXTS, ["cox", "boosted", "forest"], "families compared in the "
             "backtest (the tenure life table always is)", both(Check("non-empty", bool),
                                                   each(choice(*FAMILIES)))),
-        Key("cutoffs", WHOLE, 2, "past cutoffs in the backtest, 3 months apart", at_least(1)),
+        Key("cutoffs", WHOLE, 2, "past cutoffs in the backtest, 3 months apart; champions "
+            "are chosen on all but the latest, whose score is reported (held out)",
+            at_least(1)),
+        Key("switch_margin", NUMBER, 0.005, "a cause's champion changes from last month's "
+            "family only when another's mean Uno's C is higher by more than this",
+            between(0, 1, high_open=True)),
         Key("refit_months", WHOLE, 1, "refit when the saved model is this many months old",
             at_least(1)),
         Key("backtest_months", WHOLE, 1, "redo the backtest this often, months", at_least(1)),

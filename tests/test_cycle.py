@@ -67,6 +67,16 @@ def test_a_run_writes_its_month_folder_whole(demo, two_months):
     assert not set(plan["customer_id"]) & set(flagged)
 
 
+def test_every_planned_contact_has_a_reason_and_none_names_an_area(demo, two_months):
+    _, _, second = two_months
+    plan = pd.read_csv(second.files["plan"], keep_default_na=False)
+    assert len(plan) > 0
+    assert (plan["reasons"].str.strip() != "").all()
+    # the area features' built-in phrases and names (rental share, local move rate)
+    area_words = r"renters|move-outs nearby|rental_share|local_move_rate"
+    assert not plan["reasons"].str.contains(area_words).any()
+
+
 def test_an_earlier_month_is_not_rewritten_without_force(demo, two_months):
     folder, config = demo
     reports, first, _ = two_months
@@ -143,3 +153,69 @@ def test_same_seed_fresh_runs_give_byte_identical_outputs(tmp_path):
             {k: result.files[k].read_bytes() for k in ("key_figures", "plan", "forecast", "scores")}
         )
     assert outputs[0] == outputs[1]
+
+
+# -- lifecycle explain -----------------------------------------------------------------------
+def test_explain_agrees_with_the_run_for_a_planned_customer(demo, two_months, capsys):
+    """One customer taken apart: the same scores, expected value and reasons as the run's
+    files (the run and `explain_customer` share the scoring, valuing and reasons)."""
+    from lifecycle.cli import main
+    from lifecycle.cycle import explain_customer
+    from lifecycle.models import load_model
+
+    folder, config = demo
+    reports, _, second = two_months
+    model_dir = next((folder.parent / ".lifecycle-work" / "models").iterdir())
+    plan = pd.read_csv(second.files["plan"], dtype={"customer_id": str})
+    scores = pd.read_csv(second.files["scores"], dtype={"customer_id": str})
+    row = plan.iloc[0]
+    found = explain_customer(
+        load_tables(folder, config),
+        load_model(model_dir),
+        "2026-10",
+        row["customer_id"],
+        config,
+        history=reports / "history.duckdb",
+    )
+    assert found["customer_id"] == row["customer_id"]
+    mine = scores.set_index("customer_id").loc[row["customer_id"]]
+    assert found["incidence"]["churn"][2] == pytest.approx(mine["cif_churn_3m"], rel=1e-5)
+    assert found["survival"][11] == pytest.approx(mine["survival_12m"], rel=1e-5)
+    assert found["lifetime_value"] == pytest.approx(mine["lifetime_value"], abs=0.006)
+    offers = {o["offer"]: o for o in found["offers"]}
+    assert set(offers) == {"loyalty_credit", "moving_home_transfer", "backup_line_trial"}
+    chosen = offers[row["offer"]]
+    assert chosen["eligible"] and chosen["exclusions"] == []
+    assert chosen["expected_value"] == pytest.approx(row["expected_value"], abs=0.006)
+    assert "; ".join(chosen["reasons"]) == row["reasons"]
+    for o in offers.values():
+        terms = o["value_saved"] + o["uptake_value"] - o["cost"]
+        assert o["expected_value"] == pytest.approx(terms, abs=0.011)  # each term to cents
+    assert [h["month"] for h in found["history"]] == ["2026-09", "2026-10"]
+    assert found["history"][-1]["planned_offer"] == row["offer"]
+
+    args = ["explain", str(folder), "--model", str(model_dir), "--as-of", "2026-10"]
+    assert main([*args, "--customer", row["customer_id"], "--json"]) == 0
+    printed = json.loads(capsys.readouterr().out)
+    assert printed["customer_id"] == row["customer_id"] and len(printed["offers"]) == 3
+    assert main([*args, "--customer", row["customer_id"]]) == 0
+    assert "expected value" in capsys.readouterr().out
+    assert main([*args, "--customer", "NO-SUCH-ID"]) == 2
+    err = capsys.readouterr().err
+    assert "'NO-SUCH-ID' is not in the customers table" in err
+
+
+def test_champions_are_scored_on_a_held_out_cutoff_and_repeats_are_counted(two_months):
+    _, first, second = two_months
+    key = json.loads((second.folder / "key_figures.json").read_text())
+    for cause, champion in key["champions"].items():
+        # the demo backtests two cutoffs: chosen on the earlier, scored on the later
+        assert champion["held_out_cutoff"] is not None, cause
+        assert "why" in champion and champion["previous_family"] == champion["family"]
+        assert champion["changed"] is False
+    again = key["plan"]["planned_again"]
+    previous = pd.read_csv(first.files["plan"])
+    assert again["previous_contacts"] == previous["customer_id"].nunique()
+    assert again["planned_again"] <= again["still_eligible"] <= again["previous_contacts"]
+    now = set(pd.read_csv(second.files["plan"])["customer_id"])
+    assert again["planned_again"] <= len(now & set(previous["customer_id"]))

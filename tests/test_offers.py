@@ -278,7 +278,9 @@ def test_public_surface_is_pinned():
 
     assert sorted(decisions.__all__) == sorted(
         [
+            "AREA_FEATURES",
             "DEFAULT_PHRASES",
+            "LIMITS",
             "PLAN_COLUMNS",
             "Allocation",
             "Eligibility",
@@ -287,6 +289,7 @@ def test_public_surface_is_pinned():
             "Plan",
             "PlanSettings",
             "allocate",
+            "cause_words",
             "cooldown_ok",
             "eligible_mask",
             "excluded_mask",
@@ -294,9 +297,13 @@ def test_public_surface_is_pinned():
             "join_reasons",
             "last_contact_months",
             "make_plan",
+            "offer_figures",
             "offers_from_config",
             "phrases_from_config",
             "plan_settings_from_config",
+            "portfolio_reference",
+            "reason_concept",
+            "risk_reason",
             "schedule_weeks",
             "top_reasons",
         ]

@@ -26,6 +26,7 @@ from lifecycle.decisions import (
     PlanSettings,
     allocate,
     make_plan,
+    reason_concept,
     schedule_weeks,
     top_reasons,
 )
@@ -468,11 +469,15 @@ def test_plan_rows_carry_reasons_from_the_model():
     plan = make_plan(frame, ev, offers, PlanSettings(budget=1e3), model=model)
     table = plan.table.set_index("customer_id")
     median = float(np.median(snap.complaints_3m))
+    typical = float(np.median(frame.cif_churn_3m))
     for cid, value in zip(snap.customer_id, snap.complaints_3m, strict=True):
         if value > median:
             assert table.at[cid, "reasons"].endswith("in the last quarter")
-        else:
-            assert table.at[cid, "reasons"] == ""
+        else:  # nothing raises its hazard: its risk against the portfolio is the reason
+            risk = 0.03 * value
+            assert table.at[cid, "reasons"] == (
+                f"churn risk {risk:.0%} within 3 months (portfolio median {typical:.0%})"
+            )
 
 
 def test_reasons_leave_out_features_that_barely_move_the_hazard():
@@ -485,3 +490,154 @@ def test_reasons_leave_out_features_that_barely_move_the_hazard():
     )
     assert set(reasons.customer_id) == set(snap.customer_id[snap.complaints_3m >= 2])
     assert set(snap.customer_id[snap.complaints_3m == 1])  # the case left out does occur
+
+
+class ConceptModel(HazardModel):
+    """Known truth: churn rises with the neighbours' count and falls with their share (as a
+    boosted model can learn), rises with the area's rental share and with tenure past 30."""
+
+    def __init__(self):
+        pass
+
+    def _hazard_array(self, future, n, horizon):
+        count = future["nearby_adopters_leak_cover_400m"].to_numpy(float)
+        share = future["nearby_adoption_leak_cover_400m"].to_numpy(float)
+        rental = future["rental_share"].to_numpy(float)
+        tenure = future["tenure_start"].to_numpy(float)
+        h = 0.01 * np.exp(0.05 * count - 2.0 * share + 1.5 * rental + 0.8 * (tenure > 30))
+        out = np.empty((n, horizon, 3))
+        out[..., 0] = h.reshape(n, horizon)
+        out[..., 1] = 0.004
+        out[..., 2] = 0.001
+        return out
+
+
+def concept_case(n=60, seed=4):
+    rng = np.random.default_rng(seed)
+    model = ConceptModel()
+    model.terminal_causes_ = ("churn", "move_out", "other_exit")
+    model.uptake_causes_ = ()
+    model.features_ = (
+        "nearby_adopters_leak_cover_400m",
+        "nearby_adoption_leak_cover_400m",
+        "rental_share",
+    )
+    snap = pd.DataFrame(
+        {
+            "customer_id": np.arange(n),
+            "month": pd.Categorical(["2026-11"] * n),
+            "tenure_start": rng.integers(1, 48, n).astype(np.int16),
+            "nearby_adopters_leak_cover_400m": rng.integers(0, 40, n).astype(np.float32),
+            "nearby_adoption_leak_cover_400m": rng.uniform(0, 0.5, n).astype(np.float32),
+            "rental_share": rng.uniform(0, 1, n).astype(np.float32),
+        }
+    )
+    return model, snap
+
+
+def test_reasons_of_one_concept_never_contradict_each_other():
+    model, snap = concept_case()
+    reasons = top_reasons(model, snap, "churn", k=3, hidden=())
+    per = reasons.assign(concept=reasons.feature.map(reason_concept))
+    assert not per.duplicated(["customer_id", "concept"]).any()
+    assert (per.concept == "nearby leak_cover").any()
+    # the one kept is the stronger of the two: recompute both effects by hand
+    for row in reasons[reasons.feature.str.startswith("nearby_")].itertuples():
+        x = snap.set_index("customer_id").loc[row.customer_id]
+        h = 0.01 * np.exp(
+            0.05 * x.nearby_adopters_leak_cover_400m
+            - 2.0 * x.nearby_adoption_leak_cover_400m
+            + 1.5 * x.rental_share
+            + 0.8 * (x.tenure_start > 30)
+        )
+        med_count = float(np.median(snap.nearby_adopters_leak_cover_400m))
+        med_share = float(np.median(snap.nearby_adoption_leak_cover_400m))
+        e_count = h * (1 - np.exp(0.05 * (med_count - x.nearby_adopters_leak_cover_400m)))
+        e_share = h * (1 - np.exp(-2.0 * (med_share - x.nearby_adoption_leak_cover_400m)))
+        assert row.effect == pytest.approx(max(e_count, e_share), rel=1e-5)
+    # ranks are ordered by size
+    for _, part in reasons.groupby("customer_id"):
+        assert list(part.sort_values("rank").effect) == sorted(part.effect, reverse=True)
+
+
+def test_tenure_that_drives_the_risk_is_said_in_words():
+    model, snap = concept_case()
+    reasons = top_reasons(model, snap, "churn", k=3, hidden=("rental_share",))
+    median = float(np.median(snap.tenure_start))
+    assert median <= 30  # so tenure above 30 raises the hazard against the portfolio
+    long = set(snap.customer_id[snap.tenure_start > 30])
+    tenure = reasons[reasons.feature == "tenure_start"]
+    assert set(tenure.customer_id) == long
+    for row in tenure.itertuples():
+        assert row.phrase.startswith(f"{int(row.value)} months as a customer, a tenure at which")
+        assert "switching away is more common" in row.phrase
+
+
+def test_area_attributes_are_not_reasons_unless_allowed():
+    model, snap = concept_case()
+    frame = snap.assign(cif_churn_3m=0.05, do_not_contact=0, hardship=0)
+    ev = np.full((len(snap), 1), 10.0)
+    offers = (Offer("loyalty_credit", "churn", cost=5.0, hazard_ratio=0.7, months=6),)
+    hidden = make_plan(frame, ev, offers, PlanSettings(budget=1e3), model=model)
+    assert (hidden.table.reasons != "").all()
+    assert not hidden.table.reasons.str.contains("renters").any()
+    allowed = make_plan(frame, ev, offers, PlanSettings(budget=1e3, area_reasons=True), model=model)
+    assert allowed.table.reasons.str.contains("renters").any()
+
+
+# -- why each offer got what it got ---------------------------------------------------------
+def test_offer_figures_say_what_held_each_offer_back():
+    """Five offers built so that each limit holds by construction (worked by hand)."""
+    n = 10
+    frame = pd.DataFrame(
+        {
+            "customer_id": np.arange(n),
+            "tenure": np.arange(n, dtype=float),
+            "cif_churn_3m": np.linspace(0.01, 0.1, n),
+            "cif_move_out_3m": np.linspace(0.01, 0.1, n),
+        }
+    )
+    offers = (
+        # nobody has 100 months of tenure: eligibility
+        Offer("far", "churn", cost=1.0, hazard_ratio=0.9, months=3, eligible=_min_tenure(100)),
+        # everyone eligible, nobody worth it: no positive value
+        Offer("dear", "churn", cost=1.0, hazard_ratio=0.9, months=3),
+        # worth it for all, 2 a week for one week: capacity
+        Offer("small", "move_out", cost=1.0, hazard_ratio=0.9, months=3, weekly_capacity=2),
+        # worth it for customers 0-4 only, after the capacity-bound offer
+        Offer("rest", "churn", cost=3.0, hazard_ratio=0.9, months=3),
+    )
+    ev = np.full((n, 4), np.nan)
+    ev[:, 0] = 5.0
+    ev[:, 1] = -1.0
+    ev[:, 2] = 10.0
+    ev[:, 3] = np.where(np.arange(n) < 5, 4.0, -1.0)
+    plan = make_plan(frame, ev, offers, PlanSettings(budget=8.0, weeks=1))
+    figures = plan.summary()["offers"]
+    assert figures["far"]["limited_by"] == "eligibility" and figures["far"]["eligible"] == 0
+    assert figures["dear"]["limited_by"] == "no positive value"
+    assert figures["dear"]["eligible"] == n and figures["dear"]["positive_value"] == 0
+    assert figures["small"]["chosen"] == 2 and figures["small"]["limited_by"] == "capacity"
+    # 8 of budget: 2 × 1 for "small", then two of "rest" at 3 each; a third would pass it
+    assert figures["rest"]["chosen"] == 2 and figures["rest"]["limited_by"] == "budget"
+    assert figures["rest"]["spend"] == 6.0 and figures["rest"]["positive_value"] == 5
+    assert set(figures) == {"far", "dear", "small", "rest"}
+    assert all(f["candidates"] == n for f in figures.values())
+    # nothing held back: everyone worth it was planned
+    easy = make_plan(frame, ev[:, 3:], offers[3:], PlanSettings(budget=1e6))
+    assert easy.summary()["offers"]["rest"] == {
+        "candidates": n,
+        "eligible": n,
+        "allowed": n,
+        "positive_value": 5,
+        "chosen": 5,
+        "spend": 15.0,
+        "capacity": None,
+        "limited_by": "none",
+    }
+
+
+def _min_tenure(months):
+    from lifecycle.decisions import Eligibility
+
+    return Eligibility(minimum={"tenure": float(months)})

@@ -766,3 +766,20 @@ def test_proportional_hazards_failures_at_one_percent_are_listed():
     _ph_failures(section, ph.iloc[[1]], key)
     assert key["ph_failures"] == 0
     assert any("passes" in b.text for b in section.blocks if b.kind == "note")
+
+
+def test_key_figures_explain_each_offer(report_case):
+    from lifecycle.decisions import LIMITS
+
+    offers = report_case.key["offers"]
+    plan = report_case.plan
+    assert sorted(offers) == sorted(o.name for o in plan.offers)
+    for offer in plan.offers:
+        f = offers[offer.name]
+        chosen = int((plan.table["offer"] == offer.name).sum())
+        assert f["chosen"] == chosen and f["limited_by"] in LIMITS
+        assert f["spend"] == pytest.approx(round(chosen * offer.cost, 2))
+        assert f["chosen"] <= f["positive_value"] <= f["allowed"] <= f["eligible"]
+        assert f["eligible"] <= f["candidates"] == len(report_case.scores)
+    text = _page(report_case.html).sections["plan"]["text"]
+    assert "Why each offer got the contacts it did" in text

@@ -24,7 +24,7 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 
 import lifecycle.value
-from lifecycle.config import Config
+from lifecycle.config import Config, load_config
 from lifecycle.errors import UsageError
 from lifecycle.models import HazardModel
 from lifecycle.panel import build_panel, build_snapshot
@@ -425,6 +425,7 @@ def test_a_fitted_model_feeds_lifetime_value_and_offer_values_consistently():
 
 def test_the_public_surface_of_value():
     assert sorted(lifecycle.value.__all__) == [
+        "MONEY_COLUMNS",
         "ValueSettings",
         "campaign_follow_up",
         "discount_factors",
@@ -432,5 +433,26 @@ def test_the_public_surface_of_value():
         "lifetime_value",
         "monthly_discount_rate",
         "offer_values",
+        "round_money",
         "value_settings",
     ]
+
+
+def test_money_is_written_to_cents_and_the_currency_is_read(tmp_path):
+    frame = pd.DataFrame(
+        {
+            "customer_id": ["A", "B"],
+            "expected_value": [14.602410109760967, -0.005001],
+            "week": [1, 2],
+        }
+    )
+    rounded = lifecycle.value.round_money(frame)
+    assert rounded["expected_value"].tolist() == [14.6, -0.01]  # two decimals (common practice)
+    assert rounded["week"].tolist() == [1, 2] and frame["expected_value"][0] != 14.6
+    path = tmp_path / "lifecycle.toml"
+    path.write_text('[value]\ncurrency = "EUR"\n')
+    assert value_settings(load_config(path)).currency == "EUR"
+    assert value_settings(Config()).currency == ""
+    path.write_text("[value]\ncurrency = 978\n")
+    with pytest.raises(UsageError, match="currency was 978"):
+        value_settings(load_config(path))

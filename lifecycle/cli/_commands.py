@@ -244,7 +244,7 @@ def _backtest_arguments(p: argparse.ArgumentParser) -> None:
 
 def _backtest_run(args: argparse.Namespace) -> None:
     from ..cycle import default_cutoffs
-    from ..evaluation import TenureLifeTable, backtest
+    from ..evaluation import TenureLifeTable, backtest, choose_champions
     from ..models._families import make_model
 
     parse_month(args.as_of, what="--as-of")
@@ -263,8 +263,13 @@ def _backtest_run(args: argparse.Namespace) -> None:
     result = backtest(tables, families=families, cutoffs=cutoffs, horizons=horizons, config=config)
     _write_table(args.out, result.metrics)
     print(f"wrote {args.out}: {len(result.metrics):,} rows; champions:")
-    for row in result.champions.itertuples():
-        print(f"  {row.cause}: {row.family} (Uno C {row.uno_c:.3f} at {row.horizon} months)")
+    for row in choose_champions(result.metrics).itertuples():
+        held = (
+            f"held-out Uno C {row.held_out_uno_c:.3f} at {row.held_out_cutoff}"
+            if row.held_out_cutoff
+            else f"Uno C {row.uno_c:.3f} on the only cutoff, no held-out score"
+        )
+        print(f"  {row.cause}: {row.family} ({held}, {row.horizon} months)")
 
 
 BACKTEST = Command(
@@ -336,7 +341,9 @@ def _check_table_path(path: Path, *, csv_only: bool = False) -> None:
 
 def _write_table(path: Path, frame) -> None:
     from .._files import write_csv_atomic, write_parquet_atomic
+    from ..value import round_money
 
+    frame = round_money(frame)  # money to cents
     if path.suffix.lower() == ".parquet":
         write_parquet_atomic(path, frame)
     else:

@@ -13,7 +13,7 @@ import traceback
 from collections.abc import Sequence
 
 from ..errors import InputError, LifecycleError, ModelFileError, UsageError
-from . import _commands
+from . import _commands, _explain
 
 log = logging.getLogger("lifecycle")
 
@@ -27,7 +27,7 @@ def _parser() -> argparse.ArgumentParser:
         "-v", "--verbose", action="count", default=0, help="log each step (-vv: and details)"
     )
     sub = parser.add_subparsers(dest="command", required=True, metavar="COMMAND")
-    for command in _commands.COMMANDS:
+    for command in (*_commands.COMMANDS, _explain.EXPLAIN):
         p = sub.add_parser(command.name, help=command.help, description=command.help)
         command.arguments(p)
         p.set_defaults(run=command.run)

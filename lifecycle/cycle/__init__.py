@@ -1,5 +1,6 @@
 """The monthly cycle: its steps as functions, and the whole cycle in one call."""
 
+from ._explain import explain_customer
 from ._run import RunResult, RunSettings, run_cycle, run_settings
 from ._steps import (
     Scored,
@@ -8,6 +9,7 @@ from ._steps import (
     forecast_portfolio,
     panel_with_context,
     plan_contacts,
+    planning_frame,
     score_portfolio,
     snapshot_with_context,
 )
@@ -17,10 +19,12 @@ __all__ = [
     "RunSettings",
     "Scored",
     "default_cutoffs",
+    "explain_customer",
     "fit_model",
     "forecast_portfolio",
     "panel_with_context",
     "plan_contacts",
+    "planning_frame",
     "run_cycle",
     "run_settings",
     "score_portfolio",

@@ -6,7 +6,13 @@ every setting)::
     [run]
     families = ["cox", "boosted", "forest"]  # compared in the backtest (the tenure life
                                     # table always is); each a champion candidate per cause
-    cutoffs = 2                     # past cutoffs in the backtest, 3 months apart
+    cutoffs = 2                     # past cutoffs in the backtest, 3 months apart; the champion
+                                    # of each cause is chosen on all but the latest and its
+                                    # score reported on the latest (held out); >= 2 for an
+                                    # honest score (with 1 no held-out score is reported)
+    switch_margin = 0.005           # a cause's champion changes from last month's family only
+                                    # when another family's mean Uno's C is higher by more
+                                    # than this (`lifecycle.evaluation.choose_champions`)
     refit_months = 1                # refit when the newest saved model is this many months old
     backtest_months = 1             # redo the backtest (and the champion choice) this often
     reports = "reports"             # month folders go to <reports>/<YYYY-MM>/ (relative to
@@ -52,6 +58,7 @@ log = logging.getLogger(__name__)
 
 _RUN_KEYS = {
     "families", "cutoffs", "refit_months", "backtest_months", "reports", "history", "work",
+    "switch_margin",
 }  # fmt: skip
 
 
@@ -66,6 +73,7 @@ class RunSettings:
     reports: Path = Path("reports")
     history: Path | None = None
     work: Path = Path(".lifecycle-work")
+    switch_margin: float = 0.005
 
     @property
     def history_path(self) -> Path:
@@ -94,6 +102,11 @@ def run_settings(config: Config, *, reports: str | Path | None = None) -> RunSet
         value = raw.get(key, 1)
         if isinstance(value, bool) or not isinstance(value, int) or value < 1:
             raise UsageError(f"[run] {key} was {value!r} but must be a whole number >= 1")
+    margin = raw.get("switch_margin", 0.005)
+    if isinstance(margin, bool) or not isinstance(margin, int | float) or not 0 <= margin < 1:
+        raise UsageError(
+            f"[run] switch_margin was {margin!r} but must be a number >= 0 and < 1 (in Uno's C)"
+        )
     reports_path = (
         Path(reports).resolve() if reports is not None else path(raw.get("reports"), "reports")
     )
@@ -105,6 +118,7 @@ def run_settings(config: Config, *, reports: str | Path | None = None) -> RunSet
         reports=reports_path,
         history=path(raw["history"], "") if raw.get("history") else None,
         work=path(raw.get("work"), ".lifecycle-work"),
+        switch_margin=float(margin),
     )
 
 
@@ -189,10 +203,11 @@ def _locked_run(source, config, settings, as_of, force, tick, client, history) -
     """`run_cycle` once the reports folder is locked: every check, then the computation, then
     the month folder and its history rows together, then the work folder's saved steps."""
     from ..data import load_tables, tables_as_of
-    from ..evaluation import TenureLifeTable, backtest
+    from ..evaluation import TenureLifeTable, backtest, choose_champions
     from ..models._families import make_model
     from ..report import write_report
     from ..spatial import premise_areas
+    from ..value import round_money
     from ._steps import (
         default_cutoffs,
         forecast_portfolio,
@@ -238,9 +253,14 @@ def _locked_run(source, config, settings, as_of, force, tick, client, history) -
                 config=config,
             ),
         )  # fmt: skip
-        champions = dict(
-            zip(result["champions"]["cause"], result["champions"]["family"], strict=True)
+        previous = history.previous_month(month)
+        choice = choose_champions(
+            result["metrics"],
+            previous=_previous_champions(history, previous),
+            margin=settings.switch_margin,
         )
+        result = {**result, "champions": choice}
+        champions = dict(zip(choice["cause"], choice["family"], strict=True))
         tick("fit")
         panel = panel_with_context(tables, month, config)
         model = _champion_model(
@@ -260,8 +280,8 @@ def _locked_run(source, config, settings, as_of, force, tick, client, history) -
         if client is None:
             forecast = forecast_portfolio(tables, scored, config)
         files = {
-            "scores": write_csv_atomic(staging / "scores.csv", scored.scores),
-            "plan": write_csv_atomic(staging / "contact_plan.csv", plan.table),
+            "scores": write_csv_atomic(staging / "scores.csv", round_money(scored.scores)),
+            "plan": write_csv_atomic(staging / "contact_plan.csv", round_money(plan.table)),
             "forecast": write_csv_atomic(staging / "uptake_forecast.csv", forecast),
             "backtest": write_csv_atomic(staging / "backtest_metrics.csv", result["metrics"]),
         }
@@ -277,7 +297,6 @@ def _locked_run(source, config, settings, as_of, force, tick, client, history) -
             staging / "run_summary.json", json.dumps(summary, indent=2, sort_keys=True, default=str)
         )
         tick("report")
-        previous = history.previous_month(month)
         inputs = _report_inputs(
             tables, config, month, panel, scored, model, result, plan, forecast, history, previous
         )
@@ -314,6 +333,14 @@ def _check_plan_inputs(tables, config: Config) -> None:
 
     plan = plan_settings_from_config(config)
     require_flag_columns(tables.customers, plan.exclusions, plan.flags_absent, plan.consent_column)
+
+
+def _previous_champions(history, previous: str | None) -> dict[str, str] | None:
+    """Last month's champion family per cause, from the score history (``None``: none)."""
+    if previous is None:
+        return None
+    families = history.run(previous).families
+    return {str(k): str(v) for k, v in families.items()} if isinstance(families, dict) else None
 
 
 def _save_steps(saves) -> None:
@@ -368,6 +395,12 @@ def _champion_model(work, keys, panel, families, champions, refit_months, force,
         if missing:
             log.warning("not reusing %s: the panel lacks %s; refitting", candidate, missing)
             continue
+        kept = getattr(model, "cause_family_", {})
+        if any(kept.get(c, f) != f for c, f in champions.items()):
+            log.info(
+                "model: not reusing %s: its families %s are not the champions", candidate, kept
+            )
+            continue
         log.info("model: reusing %s (refit every %d months)", candidate, refit_months)
         return model
     model = ChampionModel(families=families, champions=champions).fit(panel)
@@ -419,15 +452,17 @@ def _report_inputs(
     from ..history import compare_with_outcomes
     from ..report import build_report_inputs
     from ..spatial import premise_areas
+    from ..value import value_settings
     from ._steps import snapshot_with_context
 
-    decile_check = decile_summary = previous_snapshot = previous_scores = None
+    decile_check = decile_summary = previous_snapshot = previous_scores = previous_plan = None
     notes = []
     if previous is not None:
         outcomes = observed_outcomes(tables, parse_month(previous))
         comparison = compare_with_outcomes(history, previous, outcomes, cause="churn", horizon=1)
         decile_check, decile_summary = comparison.deciles, comparison.summary
         previous_scores = history.scores(previous)
+        previous_plan = history.plan(previous)
         previous_snapshot = snapshot_with_context(tables, previous, config)
         notes.append(f"Compared with the run of {previous} (score history).")
     importances = _forest_importances(model, result, notes)
@@ -449,5 +484,7 @@ def _report_inputs(
         previous_scores=previous_scores,
         decile_check=decile_check,
         decile_summary=decile_summary,
+        previous_plan=previous_plan,
+        currency=value_settings(config).currency,
         notes=notes,
     )

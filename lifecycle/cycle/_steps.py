@@ -173,17 +173,11 @@ def plan_contacts(
             horizon=values.horizon_months,
             customer_ids=snapshot["customer_id"].to_numpy(),
         )
-    frame = snapshot.merge(scored.scores, on="customer_id", how="left")
     customers = tables.customers
     flags = list(settings.exclusions)
     consent = settings.consent_column
     require_flag_columns(customers, flags, settings.flags_absent, consent)
-    wanted = [c for c in [*flags, consent] if c and c in customers and c not in frame]
-    if wanted:
-        frame = frame.merge(customers[["customer_id", *wanted]], on="customer_id", how="left")
-    frame = frame.rename(columns={"tenure_start": "tenure"}).assign(
-        tenure_start=frame["tenure_start"]
-    )
+    frame = planning_frame(tables, scored, [*flags, *([consent] if consent else [])])
     plan = make_plan(
         frame,
         ev[["customer_id", "offer", "expected_value"]],
@@ -193,9 +187,41 @@ def plan_contacts(
         model=model,
         snapshot=snapshot,
         phrases=phrases_from_config(config),
+        area_features=area_feature_names(tables),
     )
     guard_plan(plan.table, customers, flags, consent)
     return plan
+
+
+def planning_frame(tables: Tables, scored: Scored, flags: Sequence[str]) -> pd.DataFrame:
+    """One row per scored customer, as the plan reads it: the snapshot's features with the
+    scores, the exclusion ``flags`` from the customers table and ``tenure`` (the snapshot's
+    ``tenure_start``) for the eligibility rules."""
+    frame = scored.snapshot.merge(scored.scores, on="customer_id", how="left")
+    flags = [c for c in dict.fromkeys(flags) if c in tables.customers.columns and c not in frame]
+    if flags:
+        frame = frame.merge(tables.customers[["customer_id", *flags]], on="customer_id", how="left")
+    return frame.rename(columns={"tenure_start": "tenure"}).assign(
+        tenure_start=frame["tenure_start"]
+    )
+
+
+def area_feature_names(tables: Tables) -> tuple[str, ...]:
+    """The area-level features: every numeric attribute of the areas table and the local move
+    rate (not given to staff as reasons unless ``[plan] area_reasons = true``)."""
+    from ..decisions import AREA_FEATURES
+
+    areas = getattr(tables, "areas", None)
+    own: list[str] = []
+    if areas is not None:
+        geometry = getattr(areas, "geometry", None)
+        name = getattr(geometry, "name", "geometry")
+        own = [
+            str(c)
+            for c in areas.columns
+            if c not in ("area_id", name) and pd.api.types.is_numeric_dtype(areas[c])
+        ]
+    return tuple(dict.fromkeys([*AREA_FEATURES, *own]))
 
 
 def _with_estimated_effects(offers, effects: pd.DataFrame):

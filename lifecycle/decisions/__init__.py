@@ -18,13 +18,33 @@ from ._offers import (
     offers_from_config,
     plan_settings_from_config,
 )
-from ._plan import PLAN_COLUMNS, Plan, expected_value_matrix, make_plan
-from ._reasons import DEFAULT_PHRASES, Phrase, join_reasons, phrases_from_config, top_reasons
+from ._plan import (
+    AREA_FEATURES,
+    LIMITS,
+    PLAN_COLUMNS,
+    Plan,
+    expected_value_matrix,
+    make_plan,
+    offer_figures,
+)
+from ._reasons import (
+    DEFAULT_PHRASES,
+    Phrase,
+    cause_words,
+    join_reasons,
+    phrases_from_config,
+    portfolio_reference,
+    reason_concept,
+    risk_reason,
+    top_reasons,
+)
 from ._schedule import schedule_weeks
 from ._solve import Allocation, allocate
 
 __all__ = [
+    "AREA_FEATURES",
     "DEFAULT_PHRASES",
+    "LIMITS",
     "PLAN_COLUMNS",
     "Allocation",
     "Eligibility",
@@ -33,6 +53,7 @@ __all__ = [
     "Plan",
     "PlanSettings",
     "allocate",
+    "cause_words",
     "cooldown_ok",
     "eligible_mask",
     "excluded_mask",
@@ -40,9 +61,13 @@ __all__ = [
     "join_reasons",
     "last_contact_months",
     "make_plan",
+    "offer_figures",
     "offers_from_config",
     "phrases_from_config",
     "plan_settings_from_config",
+    "portfolio_reference",
+    "reason_concept",
+    "risk_reason",
     "schedule_weeks",
     "top_reasons",
 ]

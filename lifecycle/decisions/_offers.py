@@ -50,6 +50,10 @@ prints every setting)::
     consent_column = ""          # e.g. "marketing_opt_in": only customers with it set (1, true,
                                  # yes) may be planned; blank: no consent column
     reasons = 3                  # reasons per plan row (0: none)
+    area_reasons = false         # true: area attributes (the areas table's columns, the local
+                                 # move rate) may be given to staff as reasons; by default they
+                                 # are not, as they can act as proxies for protected
+                                 # characteristics (they still count in every hazard)
 
 Phrases for reasons live in ``[reason_phrases]`` (see `lifecycle.decisions._reasons`).
 Malformed settings raise `UsageError` naming the setting, the value and what is allowed.
@@ -109,6 +113,7 @@ _PLAN_KEYS = {
     "flags_absent",
     "consent_column",
     "reasons",
+    "area_reasons",
 }
 _TRUE = {"1", "true", "yes", "y", "t"}
 _FALSE = {"", "0", "false", "no", "n", "f"}
@@ -211,6 +216,7 @@ class PlanSettings:
     reasons: int = 3
     flags_absent: tuple[str, ...] = ()
     consent_column: str | None = None
+    area_reasons: bool = False
 
     def __post_init__(self) -> None:
         where = "[plan]"
@@ -302,6 +308,12 @@ def plan_settings_from_config(config: Config) -> PlanSettings:
     for key in ("solver", "urgency"):
         if key in raw:
             kwargs[key] = _text(raw[key], f"{src}: [plan] {key}")
+    if "area_reasons" in raw:
+        if not isinstance(raw["area_reasons"], bool):
+            raise UsageError(
+                f"{src}: [plan] area_reasons was {raw['area_reasons']!r} but must be true or false"
+            )
+        kwargs["area_reasons"] = raw["area_reasons"]
     if "exclude" in raw:
         kwargs["exclude"] = _texts(raw["exclude"], f"{src}: [plan] exclude")
     if "flags_absent" in raw:

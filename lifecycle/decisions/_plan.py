@@ -10,7 +10,7 @@ from __future__ import annotations
 
 import logging
 from collections.abc import Sequence
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from typing import Any
 
 import numpy as np
@@ -20,15 +20,24 @@ from .._months import categorical_to_index, format_month, parse_month
 from ..errors import InputError, UsageError
 from ._exclusions import consent_mask, require_flag_columns
 from ._offers import Offer, PlanSettings, _numbers, cooldown_ok, eligible_mask, excluded_mask
-from ._reasons import DEFAULT_PHRASES, Phrase, join_reasons, top_reasons
+from ._reasons import (
+    DEFAULT_PHRASES,
+    Phrase,
+    join_reasons,
+    portfolio_reference,
+    risk_reason,
+    top_reasons,
+)
 from ._schedule import schedule_weeks
 from ._solve import Allocation, allocate
 
 log = logging.getLogger(__name__)
 
-__all__ = ["Plan", "expected_value_matrix", "make_plan"]
+__all__ = ["LIMITS", "Plan", "expected_value_matrix", "make_plan", "offer_figures"]
 
 PLAN_COLUMNS = ["customer_id", "offer", "week", "expected_value", "cost", "reasons"]
+#: features that are area-level in every panel (the areas table's attributes are added by the run)
+AREA_FEATURES = ("local_move_rate", "rental_share")
 
 
 @dataclass(frozen=True)
@@ -48,6 +57,11 @@ class Plan:
         The budget the plan had.
     excluded
         Customers never considered because of an exclusion flag.
+    offer_figures
+        Per offer name, why it got the contacts it did (`offer_figures`).
+    allowed
+        Customer × offer: True where the customer may receive the offer this month
+        (eligibility, flags and cooldown), indexed by ``customer_id``.
     """
 
     table: pd.DataFrame
@@ -55,6 +69,31 @@ class Plan:
     offers: tuple[Offer, ...]
     budget: float
     excluded: int
+    offer_figures: dict[str, dict[str, Any]] = field(default_factory=dict)
+    allowed: pd.DataFrame | None = None
+
+    def planned_again(self, previous: pd.DataFrame | None) -> dict[str, Any] | None:
+        """How many of last month's planned customers are planned again.
+
+        ``previous_contacts``: customers in last month's plan; ``still_eligible``: of those,
+        customers still scored who may receive at least one offer now; ``planned_again``: of
+        those, customers in this plan; ``share`` = planned_again / still_eligible (``None``
+        when nobody is still eligible). ``None`` without a previous plan.
+        """
+        if previous is None or self.allowed is None:
+            return None
+        before = pd.Index(previous["customer_id"].astype(str).unique())
+        allowed = self.allowed.any(axis=1)
+        allowed.index = allowed.index.astype(str)
+        still = before[before.isin(allowed.index[allowed.to_numpy()])]
+        now = set(self.table["customer_id"].astype(str))
+        again = int(sum(c in now for c in still))
+        return {
+            "previous_contacts": len(before),
+            "still_eligible": len(still),
+            "planned_again": again,
+            "share": again / len(still) if len(still) else None,
+        }
 
     def summary(self) -> dict[str, Any]:
         """The key figures as plain values (for the report's JSON)."""
@@ -81,6 +120,7 @@ class Plan:
             },
             "candidate_pairs": a.candidates,
             "excluded_customers": self.excluded,
+            "offers": self.offer_figures,
         }
 
 
@@ -122,6 +162,7 @@ def make_plan(
     model: Any = None,
     snapshot: pd.DataFrame | None = None,
     phrases: Sequence[Phrase] = DEFAULT_PHRASES,
+    area_features: Sequence[str] = AREA_FEATURES,
 ) -> Plan:
     """The contact plan for one month.
 
@@ -151,6 +192,12 @@ def make_plan(
         model the ``reasons`` column is empty.
     phrases
         The phrase table for reasons (`phrases_from_config`).
+    area_features
+        Area-level features (the areas table's attributes and the local move rate): not
+        given as reasons unless ``settings.area_reasons``.
+
+    Every planned row gets at least one reason: its top reasons (`top_reasons`), else its
+    urgency against the portfolio's median (`risk_reason`).
     """
     offers = tuple(offers)
     if not offers:
@@ -191,6 +238,7 @@ def make_plan(
         frame, flags, settings.flags_absent, settings.consent_column, table="planning frame"
     )
     excluded = excluded_mask(frame, flags) | ~consent_mask(frame, settings.consent_column)
+    rules = allowed.copy()
     allowed &= ~excluded[:, None]
     if last_contact is not None:
         month = _plan_month(frame, plan_month)
@@ -245,10 +293,19 @@ def make_plan(
         else:
             position = rows_sorted
         causes = [offers[o].target for o in allocation.choice[rows_sorted]]
+        hidden = () if settings.area_reasons else tuple(area_features)
         reasons = top_reasons(
-            model, source.iloc[position], causes, settings.reasons, phrases=phrases
+            model,
+            source.iloc[position],
+            causes,
+            settings.reasons,
+            reference=portfolio_reference(model, source),  # against everyone, not the planned
+            phrases=phrases,
+            hidden=hidden,
         )
         table["reasons"] = join_reasons(reasons, table["customer_id"].tolist())
+    if settings.reasons > 0 and len(table):
+        _risk_reasons(table, urgency_all, urgency_columns, chosen[order], urgency[order])
     log.info(
         "plan: %d contacts, expected value %.2f (bound %.2f, gap %.3g%%), %s solver",
         len(table),
@@ -257,13 +314,102 @@ def make_plan(
         100 * allocation.relative_gap,
         allocation.solver,
     )
+    eligible = rules & ~excluded[:, None]
     return Plan(
         table=table[PLAN_COLUMNS],
         allocation=allocation,
         offers=offers,
         budget=float(settings.budget),
         excluded=int(excluded.sum()),
+        offer_figures=offer_figures(
+            ev, eligible, allowed, allocation, offers, settings.weeks, float(settings.budget)
+        ),
+        allowed=pd.DataFrame(
+            allowed, index=pd.Index(ids.to_numpy()), columns=[o.name for o in offers]
+        ),
     )
+
+
+LIMITS = ("no positive value", "eligibility", "capacity", "budget", "none")
+
+
+def offer_figures(
+    ev: np.ndarray,
+    eligible: np.ndarray,
+    allowed: np.ndarray,
+    allocation: Allocation,
+    offers: Sequence[Offer],
+    weeks: int,
+    budget: float,
+) -> dict[str, dict[str, Any]]:
+    """Per offer, why it got the contacts it did.
+
+    ``candidates``: customers in the plan's frame; ``eligible``: those meeting the offer's
+    rules and not excluded by a flag; ``allowed``: of those, outside the contact cooldown;
+    ``positive_value``: allowed with a positive expected value; ``chosen``: contacts planned;
+    ``spend``: their cost (to cents); ``capacity``: ``weekly_capacity × weeks`` (``None``: no
+    limit); ``limited_by``, the first that holds of:
+
+    - ``"eligibility"``: nobody is allowed (eligibility, flags or cooldown);
+    - ``"no positive value"``: nobody allowed has a positive expected value;
+    - ``"none"``: every allowed customer with a positive value is planned (this offer or a
+      better one for the same customer);
+    - ``"capacity"``: the offer's contacts reached its capacity;
+    - ``"budget"``: one more contact of this offer would pass the budget;
+    - ``"none"`` otherwise (the solver found no better use).
+    """
+    choice = allocation.choice
+    spent = float(allocation.budget_used)
+    out: dict[str, dict[str, Any]] = {}
+    for j, offer in enumerate(offers):
+        positive = allowed[:, j] & (np.nan_to_num(ev[:, j], nan=-np.inf) > 0)
+        chosen = int(np.sum(choice == j))
+        left_out = int(np.sum(positive & (choice < 0)))
+        capacity = offer.capacity(weeks)
+        if not allowed[:, j].any():
+            limit = "eligibility"
+        elif not positive.any():
+            limit = "no positive value"
+        elif left_out == 0:
+            limit = "none"
+        elif chosen >= capacity:
+            limit = "capacity"
+        elif spent + offer.cost > budget + 1e-9:
+            limit = "budget"
+        else:
+            limit = "none"
+        out[offer.name] = {
+            "candidates": len(ev),
+            "eligible": int(eligible[:, j].sum()),
+            "allowed": int(allowed[:, j].sum()),
+            "positive_value": int(positive.sum()),
+            "chosen": chosen,
+            "spend": round(chosen * offer.cost, 2),
+            "capacity": None if not np.isfinite(capacity) else int(capacity),
+            "limited_by": limit,
+        }
+    return out
+
+
+def _risk_reasons(
+    table: pd.DataFrame,
+    urgency_all: np.ndarray,
+    columns: Sequence[str],
+    chosen: np.ndarray,
+    urgency: np.ndarray,
+) -> None:
+    """Rows without a reason get their urgency against the portfolio's median, in words
+    (``chosen`` and ``urgency`` in the order of the table's rows)."""
+    empty = np.flatnonzero(table["reasons"].to_numpy(dtype=object) == "")
+    at = table.columns.get_loc("reasons")
+    typical: dict[int, float] = {}
+    for row in empty:
+        j = int(chosen[row])
+        if j not in typical:
+            everyone = urgency_all[:, j]
+            finite = np.isfinite(everyone).any()
+            typical[j] = float(np.nanmedian(everyone)) if finite else np.nan
+        table.iat[row, at] = risk_reason(columns[j], float(urgency[row]), typical[j])
 
 
 def _plan_month(frame: pd.DataFrame, plan_month: str | int | None) -> int:

@@ -1,29 +1,42 @@
 """Reasons in plain words: the features that push a customer's hazard up most.
 
 For customer i, cause c and feature f with reference value r_f (the training median or mode
-the model stored at fit as ``feature_reference_``, else the snapshot's median or mode), the
-effect of f is
+the model stored at fit as ``feature_reference_``, else the snapshot's median or mode: the
+portfolio's typical value), the effect of f is
 
     effect_if = h_c(x_i) − h_c(x_i with f set to r_f)
 
-where h_c is the model's 1-month hazard of c from its public `predict_hazard`. Only the model's
-output is used, so this works for every family. A positive effect means the customer's own
-value of f raises the hazard above what it would be at the reference; the top k positive
-effects are the customer's reasons.
+where h_c is the model's 1-month hazard of c from its public `predict_hazard` (for a
+`ChampionModel`, the hazard of the family chosen for c). Only the model's output is used, so
+this works for every family. A positive effect means the customer's own value of f raises the
+hazard above what it would be at the reference; the largest positive effects are the
+customer's reasons, largest first. Tenure is a candidate too (its effect is that of moving
+the customer's ``tenure_start`` to the portfolio's median), so that a baseline hazard that is
+high at the customer's tenure is said in words.
+
+Reasons never contradict each other: features that describe one thing (the count and the
+share of neighbours holding a product, at any radius; a trailing sum and its monthly value;
+the contract columns) form one *concept*, and only the concept's strongest feature is given.
+Features named in ``hidden`` (the run passes the area attributes and the local move rate,
+unless ``[plan] area_reasons = true``) are never given as reasons, though they still count in
+the hazard: area features can act as proxies for protected characteristics.
 
 Each reason is put in words by the first phrase whose pattern matches the feature name in
 full (a Python regular expression; named groups become placeholders). The phrase used is
 ``high`` when the value is above the reference and ``low`` when below; placeholders are
-``{value}``, ``{reference}``, ``{feature}``, ``{s}`` ("" when the value is 1, else "s") and
-the pattern's named groups (underscores shown as spaces). Phrases from ``[reason_phrases]``
-come before the built-in ones (`DEFAULT_PHRASES`; ``lifecycle settings`` prints every setting)::
+``{value}``, ``{reference}``, ``{feature}``, ``{s}`` ("" when the value is 1, else "s"),
+``{cause}`` (the cause in words, e.g. "switching away") and the pattern's named groups
+(underscores shown as spaces). Phrases from ``[reason_phrases]`` come before the built-in
+ones (`DEFAULT_PHRASES`)::
 
     [reason_phrases]
     "contract_ending" = "contract ends within 2 months"   # a text: the phrase when high
     "discount_(?P<kind>.+)" = { high = "a large {kind} discount", low = "a small {kind} discount" }
 
 A feature without a phrase for its direction gets "<feature> is high (value)" or
-"<feature> is low (value)" ("<feature> is <value>" for a category).
+"<feature> is low (value)" ("<feature> is <value>" for a category). A planned contact for
+whom no feature adds at least ``min_relative_effect`` of its hazard is given its risk against
+the portfolio instead (`risk_reason`), so that no row goes without a reason.
 """
 
 from __future__ import annotations
@@ -31,7 +44,7 @@ from __future__ import annotations
 import logging
 import re
 import string
-from collections.abc import Mapping, Sequence
+from collections.abc import Collection, Mapping, Sequence
 from dataclasses import dataclass
 from typing import Any
 
@@ -43,10 +56,56 @@ from ..errors import UsageError
 
 log = logging.getLogger(__name__)
 
-__all__ = ["DEFAULT_PHRASES", "Phrase", "join_reasons", "phrases_from_config", "top_reasons"]
+__all__ = [
+    "DEFAULT_PHRASES",
+    "Phrase",
+    "cause_words",
+    "join_reasons",
+    "phrases_from_config",
+    "portfolio_reference",
+    "reason_concept",
+    "risk_reason",
+    "top_reasons",
+]
 
 # features a snapshot cannot move: future months recompute them from the calendar
 _NOT_REASONS = re.compile(r"season_(sin|cos)")
+TENURE = "tenure_start"
+
+# features that describe one thing: (pattern, concept) — the first full match names the concept
+_CONCEPTS: tuple[tuple[re.Pattern[str], str], ...] = (
+    (re.compile(r"nearby_adopt(?:ers|ion)_(?P<x>.+)_\d+(?:_\d+)?m"), "nearby {x}"),
+    (re.compile(r"contract_(?:ending|months_left)"), "contract"),
+    (re.compile(r"(?P<x>.+)_\d+m"), "{x}"),
+    (re.compile(r"tenure|tenure_start"), "tenure"),
+)
+
+
+def reason_concept(feature: str) -> str:
+    """The concept a feature describes: features of one concept never give two reasons.
+
+    ``nearby_adopters_<p>_<r>m`` and ``nearby_adoption_<p>_<r>m`` (any radius) are "nearby
+    <p>"; ``contract_ending`` and ``contract_months_left`` are "contract"; a trailing sum
+    ``<x>_<k>m`` is ``<x>`` (as is the monthly ``<x>``); every other feature is its own.
+    """
+    for pattern, concept in _CONCEPTS:
+        match = pattern.fullmatch(feature)
+        if match:
+            return concept.format(**match.groupdict())
+    return feature
+
+
+def cause_words(cause: str | None) -> str:
+    """A cause in words: churn → "switching away", move_out → "moving out", other_exit →
+    "leaving", uptake_<p> → "taking up <p>"."""
+    if cause is None:
+        return "the event"
+    words = {"churn": "switching away", "move_out": "moving out", "other_exit": "leaving"}
+    if cause in words:
+        return words[cause]
+    if cause.startswith("uptake_"):
+        return "taking up " + cause.removeprefix("uptake_").replace("_", " ")
+    return cause.replace("_", " ")
 
 
 @dataclass(frozen=True)
@@ -65,7 +124,7 @@ class Phrase:
             raise UsageError(
                 f"[reason_phrases] pattern {self.pattern!r} is not a regular expression: {exc}"
             ) from None
-        allowed = {"value", "reference", "feature", "s", *compiled.groupindex}
+        allowed = {"value", "reference", "feature", "s", "cause", *compiled.groupindex}
         for template in (self.high, self.low):
             if template is None:
                 continue
@@ -82,9 +141,11 @@ class Phrase:
                     f"the placeholders allowed are {sorted(allowed)}"
                 )
 
-    def words(self, feature: str, value: Any, reference: Any, high: bool) -> str | None:
+    def words(
+        self, feature: str, value: Any, reference: Any, high: bool, cause: str | None = None
+    ) -> str | None:
         """The phrase for ``feature`` at ``value``, or ``None`` when this phrase has no words
-        for the direction or does not match."""
+        for the direction or does not match (``cause``: the cause explained)."""
         match = re.fullmatch(self.pattern, feature)
         template = self.high if high else self.low
         if match is None or template is None:
@@ -93,7 +154,12 @@ class Phrase:
         plural = "" if _is_one(value) else "s"
         try:
             return template.format(
-                value=value, reference=reference, feature=feature, s=plural, **groups
+                value=value,
+                reference=reference,
+                feature=feature,
+                s=plural,
+                cause=cause_words(cause),
+                **groups,
             )
         except (ValueError, TypeError, KeyError, IndexError):
             return None
@@ -126,10 +192,13 @@ DEFAULT_PHRASES: tuple[Phrase, ...] = (
         "only {value:.0f} neighbour{s} within {radius} m have {product}",
     ),
     Phrase("holds_(?P<product>.+)", "already has {product}", "does not have {product}"),
+    # a reason is always a term that raises the hazard: at this tenure, the cause is likelier
     Phrase(
         "tenure|tenure_start",
-        "{value:.0f} month{s} as a customer",
-        "only {value:.0f} month{s} as a customer",
+        "{value:.0f} month{s} as a customer, a tenure at which {cause} is more common than "
+        "at {reference:.0f} months",
+        "only {value:.0f} month{s} as a customer, a tenure at which {cause} is more common "
+        "than at {reference:.0f} months",
     ),
     Phrase(
         "monthly_margin",
@@ -174,12 +243,15 @@ def top_reasons(
     reference: Mapping[str, Any] | None = None,
     phrases: Sequence[Phrase] = DEFAULT_PHRASES,
     min_relative_effect: float = 0.05,
+    hidden: Collection[str] = (),
 ) -> pd.DataFrame:
     """Each customer's top ``k`` reasons: the features that raise its 1-month hazard most.
 
     A feature's effect is ``h(x) − h(x with the feature at its reference)``; it is a reason
     only when that is at least ``min_relative_effect`` of the customer's hazard ``h(x)``
-    (default 5 %), so that a row does not cite features that barely move its risk.
+    (default 5 %), so that a row does not cite features that barely move its risk. Tenure
+    (``tenure_start``) is a candidate like a feature. Of the features of one concept
+    (`reason_concept`) only the strongest is given, so reasons never contradict each other.
 
     Parameters
     ----------
@@ -196,13 +268,17 @@ def top_reasons(
         one at fit), else the snapshot's median (numbers) or most common value (categories).
     phrases
         Phrase table, first match wins (see the module docstring).
+    min_relative_effect
+        The smallest share of the customer's hazard a reason must add.
+    hidden
+        Features never given as reasons (e.g. area attributes); they still count in ``h``.
 
     Returns
     -------
     pandas.DataFrame
         One row per reason: ``customer_id``, ``rank`` (1 = strongest), ``feature``, ``value``,
-        ``reference``, ``effect`` (the 1-month hazard it adds, ``effect_if`` above), ``phrase``.
-        Sorted by customer (snapshot order) then rank.
+        ``reference``, ``effect`` (the 1-month hazard it adds, ``effect_if`` above),
+        ``cause``, ``phrase``. Sorted by customer (snapshot order) then rank.
     """
     n = len(snapshot)
     causes = [cause] * n if isinstance(cause, str) else list(cause)
@@ -219,7 +295,7 @@ def top_reasons(
     snapshot = snapshot.reset_index(drop=True)
     base = _one_month(model, snapshot)[rows, at]
     stored = reference if reference is not None else getattr(model, "feature_reference_", None)
-    features = [f for f in model.features_ if not _NOT_REASONS.fullmatch(f)]
+    features = _candidates(model, snapshot, hidden)
     effects = np.zeros((n, len(features)))
     refs = []
     for j, feature in enumerate(features):
@@ -234,6 +310,7 @@ def top_reasons(
         if feature.startswith("holds_"):
             # holding a product makes its own uptake hazard 0 by construction: not a reason
             effects[np.array(causes) == "uptake_" + feature.removeprefix("holds_"), j] = 0.0
+    effects = _strongest_of_each_concept(effects, features)
     order = np.argsort(-effects, axis=1, kind="stable")[:, :k]
     top = np.take_along_axis(effects, order, axis=1)
     floor = np.maximum(1e-12, min_relative_effect * base)[:, None]
@@ -256,12 +333,65 @@ def top_reasons(
             "value": values,
             "reference": ref_of[j],
             "effect": top[i, r],
+            "cause": np.array(causes, dtype=object)[i],
         }
     )
     out["phrase"] = [
-        _phrase(f, v, ref, phrases)
-        for f, v, ref in zip(out["feature"], values, out["reference"], strict=True)
+        _phrase(f, v, ref, phrases, c)
+        for f, v, ref, c in zip(out["feature"], values, out["reference"], out["cause"], strict=True)
     ]
+    return out
+
+
+def portfolio_reference(model: Any, snapshot: pd.DataFrame) -> dict[str, Any]:
+    """The reference of every candidate feature over the whole portfolio: the model's stored
+    ``feature_reference_`` where it has one, else the median (numbers) or most common value
+    (categories) of ``snapshot`` (every customer scored, not only those planned)."""
+    stored = dict(getattr(model, "feature_reference_", None) or {})
+    columns = [*model.features_, TENURE]
+    return {
+        f: stored[f] if f in stored else _typical(snapshot[f]) for f in columns if f in snapshot
+    }
+
+
+def risk_reason(column: str, value: float, typical: float) -> str:
+    """A customer's risk against the portfolio, in words: the reason of last resort.
+
+    ``cif_<cause>_<h>m`` reads "<cause> risk 12 % within 3 months (portfolio median 4 %)";
+    any other column "<column> 0.12 (portfolio median 0.04)".
+    """
+    match = re.fullmatch(r"cif_(?P<cause>.+)_(?P<h>\d+)m", column)
+    if match is None:
+        return f"{column} {value:.3g} (portfolio median {typical:.3g})"
+    cause = match["cause"]
+    what = "chance of " + cause_words(cause) if cause.startswith("uptake_") else None
+    what = what or {"churn": "churn risk", "move_out": "move-out risk"}.get(
+        cause, f"{cause_words(cause)} risk"
+    )
+    return f"{what} {value:.0%} within {match['h']} months (portfolio median {typical:.0%})"
+
+
+def _candidates(model: Any, snapshot: pd.DataFrame, hidden: Collection[str]) -> list[str]:
+    """The features that may be reasons: the model's, tenure, never the season or ``hidden``."""
+    hidden = set(hidden)
+    features = [f for f in model.features_ if not _NOT_REASONS.fullmatch(f) and f not in hidden]
+    if TENURE in snapshot and TENURE not in features and TENURE not in hidden:
+        features.append(TENURE)
+    return features
+
+
+def _strongest_of_each_concept(effects: np.ndarray, features: Sequence[str]) -> np.ndarray:
+    """``effects`` with every feature but the strongest of its concept set to −inf per row."""
+    concepts = np.array([reason_concept(f) for f in features], dtype=object)
+    out = effects.copy()
+    for concept in pd.unique(concepts):
+        columns = np.flatnonzero(concepts == concept)
+        if len(columns) < 2:
+            continue
+        part = effects[:, columns]
+        best = columns[np.argmax(part, axis=1)]
+        for column in columns:
+            out[best != column, column] = -np.inf
     return out
 
 
@@ -276,7 +406,7 @@ def join_reasons(reasons: pd.DataFrame, customer_ids: Sequence[Any], sep: str = 
     return [joined.get(c, "") for c in customer_ids]
 
 
-_COLUMNS = ["customer_id", "rank", "feature", "value", "reference", "effect", "phrase"]
+_COLUMNS = ["customer_id", "rank", "feature", "value", "reference", "effect", "cause", "phrase"]
 
 
 def _empty() -> pd.DataFrame:
@@ -309,7 +439,9 @@ def _filled(values: pd.Series, ref: Any) -> pd.Series:
         return filled
 
 
-def _phrase(feature: str, value: Any, ref: Any, phrases: Sequence[Phrase]) -> str:
+def _phrase(
+    feature: str, value: Any, ref: Any, phrases: Sequence[Phrase], cause: str | None = None
+) -> str:
     try:
         high = bool(float(value) > float(ref))
         numeric = True
@@ -318,7 +450,7 @@ def _phrase(feature: str, value: Any, ref: Any, phrases: Sequence[Phrase]) -> st
     if numeric:
         value = float(value)
     for phrase in phrases:
-        words = phrase.words(feature, value, ref, high)
+        words = phrase.words(feature, value, ref, high, cause)
         if words is not None:
             return words
         if re.fullmatch(phrase.pattern, feature):

@@ -193,6 +193,7 @@ sample_fraction = 0.1
 [value]
 annual_discount = 0.08
 horizon_months = 24
+currency = "EUR"
 
 [forecast]
 horizon_months = 12
@@ -240,7 +241,7 @@ weeks = 4
 # The backtest and the models are redone every third month; between, the last ones are reused.
 [run]
 families = ["cox", "boosted", "forest"]
-cutoffs = 1
+cutoffs = 2
 refit_months = 3
 backtest_months = 3
 reports = "../reports"

@@ -3,6 +3,7 @@
 from ._backtest import BacktestResult, backtest, champions
 from ._baseline import TenureLifeTable
 from ._calibration import calibration_table, lift_and_capture
+from ._choice import CHOICE_COLUMNS, DEFAULT_SWITCH_MARGIN, choose_champions
 from ._metrics import CensoringCurve, brier_score, time_dependent_auc, uno_concordance
 from ._outcomes import observed_outcomes, outcome_for_cause
 from ._statistics import (
@@ -13,6 +14,8 @@ from ._statistics import (
 )
 
 __all__ = [
+    "CHOICE_COLUMNS",
+    "DEFAULT_SWITCH_MARGIN",
     "BacktestResult",
     "CensoringCurve",
     "LogrankResult",
@@ -21,6 +24,7 @@ __all__ = [
     "brier_score",
     "calibration_table",
     "champions",
+    "choose_champions",
     "harrell_concordance",
     "integrated_brier_score",
     "lift_and_capture",

@@ -31,6 +31,10 @@ CAUSE_COLOURS = {
 }
 UPTAKE_COLOUR = "#1e8449"
 SERIES = ["#1f618d", "#b03a2e", "#1e8449", "#b9770e", "#6c3483", "#148f77", "#7b7d7d", "#2e4053"]
+#: Line styles and markers, so that series differ by more than colour (k-th series: k-th style).
+LINE_STYLES = ["-", "--", ":", "-."]
+MARKERS = ["o", "s", "^", "D", "v", "P", "X", "*"]
+HATCHES = ["", "//", "..", "xx", "\\\\", "++", "oo", "--"]
 MAX_POINTS = 40
 """Tenure hazards are grouped into bands so that a curve has at most this many points."""
 MIN_BAND_AT_RISK = 100
@@ -78,10 +82,21 @@ def portfolio_trend(portfolio: pd.DataFrame, causes: list[str], months: int = 25
     fig = new_figure(9.0, 3.6)
     ax = fig.add_subplot()
     x = np.arange(len(recent))
-    for cause in causes:
+    uptakes = [c for c in causes if c.startswith("uptake_")]
+    for k, cause in enumerate(causes):
         rate = recent[cause].to_numpy(float) / recent["customers"].to_numpy(float)
-        style = "--" if cause.startswith("uptake_") else "-"
-        ax.plot(x, rate, style, color=colour_of(cause), marker="o", ms=3, label=label_of(cause))
+        colour = colour_of(cause)
+        if cause in uptakes:  # each product its own colour too
+            colour = [UPTAKE_COLOUR, *SERIES[3:]][uptakes.index(cause) % (len(SERIES) - 2)]
+        ax.plot(
+            x,
+            rate,
+            LINE_STYLES[k % len(LINE_STYLES)],
+            color=colour,
+            marker=MARKERS[k % len(MARKERS)],
+            ms=3.5,
+            label=label_of(cause),
+        )
     step = max(1, len(x) // 12)
     ticks = x[::-1][::step][::-1]
     ax.set_xticks(ticks, recent["month"].to_numpy()[ticks], rotation=45, ha="right")
@@ -165,6 +180,7 @@ def incidence_chart(incidence: pd.DataFrame, segment_column: str) -> bytes:
                 np.r_[0.0, line["incidence"].to_numpy(float)],
                 where="post",
                 color=SERIES[k % len(SERIES)],
+                ls=LINE_STYLES[k % len(LINE_STYLES)],
                 lw=1.5,
                 label=segment,
             )
@@ -174,17 +190,30 @@ def incidence_chart(incidence: pd.DataFrame, segment_column: str) -> bytes:
         ax.set_ylim(bottom=0)
         _tidy(ax)
     axes[0].set_ylabel("cumulative incidence")
-    axes[-1].legend(title=segment_column, frameon=False, fontsize=8, title_fontsize=8)
-    fig.suptitle(f"Cumulative incidence by {segment_column}", x=0.01, ha="left")
+    if len(segments) > 1:
+        axes[-1].legend(title=segment_column, frameon=False, fontsize=8, title_fontsize=8)
+    fig.suptitle(incidence_title(segment_column), x=0.01, ha="left")
     return png_bytes(fig)
+
+
+def incidence_title(segment_column: str) -> str:
+    """ "Cumulative incidence by plan_speed", or "…, all customers" without segments."""
+    if segment_column == "all customers":
+        return "Cumulative incidence, all customers"
+    return f"Cumulative incidence by {segment_column}"
 
 
 # -- risk map --------------------------------------------------------------------------------
 def risk_map(areas: gpd.GeoDataFrame, area_risk: pd.DataFrame, columns: list[str]) -> bytes:
-    """Areas shaded by each mean predicted probability, legend in probabilities (%)."""
+    """Areas shaded by each mean predicted probability, legend in probabilities (%).
+
+    One map a row; each area is labelled with its ``area_name`` when the areas have one,
+    else its ``area_id``; the colour bar's ticks carry as many decimals as they need to differ.
+    """
     joined = areas.merge(area_risk, on="area_id", how="left")
-    fig = new_figure(4.6 * len(columns), 4.4)
-    axes = fig.subplots(1, len(columns), squeeze=False)[0]
+    names = joined["area_name"] if "area_name" in joined else joined["area_id"]
+    fig = new_figure(8.0, 6.0 * len(columns))
+    axes = fig.subplots(len(columns), 1, squeeze=False)[:, 0]
     for ax, column in zip(axes, columns, strict=True):
         values = joined[column].to_numpy(float)
         finite = values[np.isfinite(values)]
@@ -206,10 +235,39 @@ def risk_map(areas: gpd.GeoDataFrame, area_risk: pd.DataFrame, columns: list[str
         ax.set_axis_off()
         ax.set_aspect("equal")
         ax.set_title(risk_title(column), loc="left", fontsize=10)
+        _label_areas(ax, joined, names)
         bar = fig.colorbar(ScalarMappable(norm=norm, cmap=cmap), ax=ax, shrink=0.8)
-        bar.ax.yaxis.set_major_formatter(PercentFormatter(1.0, decimals=1))
+        ticks = bar.get_ticks()
+        ticks = ticks[(ticks >= low) & (ticks <= high)]
+        bar.set_ticks(ticks)
+        bar.ax.yaxis.set_major_formatter(PercentFormatter(1.0, decimals=distinct_decimals(ticks)))
         bar.set_label("mean predicted probability")
     return png_bytes(fig)
+
+
+def _label_areas(ax: object, areas: gpd.GeoDataFrame, names: pd.Series) -> None:
+    """Each area's name at a point inside it, small, on a white halo."""
+    from matplotlib import patheffects
+
+    halo = [patheffects.withStroke(linewidth=2.0, foreground="white")]
+    points = areas.geometry.representative_point()
+    for point, name in zip(points, names.astype(str), strict=True):
+        if point is None or point.is_empty:
+            continue
+        ax.annotate(  # type: ignore[attr-defined]
+            name, (point.x, point.y), ha="center", va="center", fontsize=5.5, color=INK,
+            path_effects=halo,
+        )  # fmt: skip
+
+
+def distinct_decimals(ticks: np.ndarray, most: int = 4) -> int:
+    """The fewest decimals (0..``most``) at which the ticks, shown as percentages, differ."""
+    ticks = np.asarray(ticks, dtype=float)
+    for decimals in range(most + 1):
+        shown = {f"{100.0 * t:.{decimals}f}" for t in ticks}
+        if len(shown) == len(ticks):
+            return decimals
+    return most
 
 
 def risk_title(column: str) -> str:
@@ -358,7 +416,15 @@ def schedule_chart(plan: pd.DataFrame) -> bytes:
     bottom = np.zeros(len(counts))
     for k, offer in enumerate(counts.columns):
         values = counts[offer].to_numpy(float)
-        ax.bar(counts.index.astype(str), values, bottom=bottom, color=SERIES[k], label=offer)
+        ax.bar(
+            counts.index.astype(str),
+            values,
+            bottom=bottom,
+            color=SERIES[k % len(SERIES)],
+            hatch=HATCHES[k % len(HATCHES)],
+            edgecolor="white",
+            label=offer,
+        )
         bottom += values
     ax.set_xlabel("week")
     ax.set_ylabel("contacts")

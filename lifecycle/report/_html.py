@@ -54,7 +54,9 @@ def render_report(inputs: ReportInputs) -> tuple[str, dict[str, Any]]:
         The headline numbers as plain JSON values (floats to 6 significant digits, NaN and
         infinities as ``None``): ``month``, ``portfolio``, ``hazard_by_tenure_band``,
         ``risk``, ``last_month``, ``champions``, ``strongest_effects``, ``drift``,
-        ``forecast``, ``plan``, ``offer_rates``.
+        ``forecast``, ``plan``, ``offer_rates``, ``offers`` (per offer: ``candidates``,
+        ``eligible``, ``allowed``, ``positive_value``, ``chosen``, ``spend``, ``capacity``,
+        ``limited_by``; see `lifecycle.decisions.offer_figures`).
     """
     inputs = check_inputs(inputs)
     sections: list[Section] = []
@@ -76,6 +78,7 @@ def render_report(inputs: ReportInputs) -> tuple[str, dict[str, Any]]:
         key.update(figures)
     key.setdefault("strongest_effects", None)
     key.setdefault("offer_rates", None)
+    key.setdefault("offers", None)
     sections.append(cautions_section())
     empty = [s.id for s in sections if not s.blocks]
     if empty:  # every section builder adds at least a note; this guards the page's promise

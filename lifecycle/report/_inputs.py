@@ -84,7 +84,8 @@ class ReportInputs:
     segment_column
         The customer attribute the segments are values of (for the captions).
     areas
-        ``area_id`` and polygons (``geometry``) with a CRS, for the risk map.
+        ``area_id`` and polygons (``geometry``) with a CRS, for the risk map; optional
+        ``area_name`` labels the areas on the map and in the tables.
     area_risk
         ``area_id``, ``customers`` and mean predicted probabilities per area, e.g.
         ``cif_churn_3m``, ``cif_move_out_3m`` (`area_risk`).
@@ -123,6 +124,11 @@ class ReportInputs:
         `Plan.summary()`: ``budget``, ``budget_used``, ``gap``, ``solver``, …
     offer_rates
         Contacts per area next to the area's share of customers (`offer_rates_by_area`).
+    planned_again
+        `Plan.planned_again` of last month's plan: ``previous_contacts``, ``still_eligible``,
+        ``planned_again``, ``share`` (``None`` the first month).
+    currency
+        The currency of the amounts (``[value] currency``; "" when not named).
     title
         Heading of the page.
     notes
@@ -148,6 +154,8 @@ class ReportInputs:
     plan: pd.DataFrame | None = None
     plan_summary: dict[str, Any] | None = None
     offer_rates: pd.DataFrame | None = None
+    planned_again: dict[str, Any] | None = None
+    currency: str = ""
     title: str = DEFAULT_TITLE
     notes: list[str] = field(default_factory=list)
 
@@ -180,7 +188,7 @@ def check_inputs(inputs: ReportInputs) -> ReportInputs:
             )
     if getattr(values["areas"], "crs", None) is None:
         raise InputError(table="report input areas", column="geometry", problem="has no CRS")
-    for name in ("decile_summary", "plan_summary"):
+    for name in ("decile_summary", "plan_summary", "planned_again"):
         if values[name] is not None and not isinstance(values[name], dict):
             raise UsageError(f"report input {name} must be a dict or None")
     return ReportInputs(**values)
@@ -213,6 +221,8 @@ def build_report_inputs(
     decile_check: pd.DataFrame | None = None,
     decile_summary: dict[str, Any] | None = None,
     risk_columns: tuple[str, ...] = ("cif_churn_3m", "cif_move_out_3m"),
+    previous_plan: pd.DataFrame | None = None,
+    currency: str = "",
     title: str = DEFAULT_TITLE,
     notes: list[str] | None = None,
 ) -> ReportInputs:
@@ -250,6 +260,10 @@ def build_report_inputs(
         Last month's scores (from the score history): score drift.
     decile_check, decile_summary
         How last month's predictions did (from the score history); ``None`` the first month.
+    previous_plan
+        Last month's plan table (from the score history): how many are planned again.
+    currency
+        The currency of the amounts (``[value] currency``).
     """
     parse_month(month, what="report month")
     if segment_column is None:
@@ -280,11 +294,10 @@ def build_report_inputs(
     drift = pd.concat(drift_parts, ignore_index=True) if drift_parts else None
     if drift is not None:
         drift = drift[DRIFT_COLUMNS]
-    map_areas = gpd.GeoDataFrame(
-        {"area_id": areas["area_id"].astype(str).to_numpy()},
-        geometry=areas.geometry.to_numpy(),
-        crs=areas.crs,
-    )
+    names = {"area_id": areas["area_id"].astype(str).to_numpy()}
+    if "area_name" in areas.columns:  # maps and tables label areas by name where given
+        names["area_name"] = areas["area_name"].astype(str).to_numpy()
+    map_areas = gpd.GeoDataFrame(names, geometry=areas.geometry.to_numpy(), crs=areas.crs)
     inputs = ReportInputs(
         month=month,
         portfolio=monthly_counts(panel),
@@ -305,6 +318,10 @@ def build_report_inputs(
         plan=plan_table,
         plan_summary=plan_summary,
         offer_rates=offer_rates,
+        planned_again=(
+            plan.planned_again(previous_plan) if hasattr(plan, "planned_again") else None
+        ),
+        currency=currency,
         title=title,
         notes=list(notes or []),
     )

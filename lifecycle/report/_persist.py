@@ -22,7 +22,10 @@ from ._inputs import ReportInputs, check_inputs, plain
 __all__ = ["load_report_inputs", "save_report_inputs"]
 
 INDEX_FILE = "inputs.json"
-_SCALARS = ("month", "title", "notes", "segment_column", "decile_summary", "plan_summary")
+_SCALARS = (
+    "month", "title", "notes", "segment_column", "decile_summary", "plan_summary", "currency",
+    "planned_again",
+)  # fmt: skip
 
 
 def save_report_inputs(inputs: ReportInputs, folder: str | Path) -> Path:
@@ -61,6 +64,7 @@ def load_report_inputs(folder: str | Path) -> ReportInputs:
     index: dict[str, Any] = json.loads(index_path.read_text(encoding="utf-8"))
     values: dict[str, Any] = {name: index.get(name) for name in _SCALARS}
     values["notes"] = list(values["notes"] or [])
+    values["currency"] = values["currency"] or ""
     for name in index.get("tables", []):
         path = folder / f"{name}.parquet"
         if not path.is_file():

@@ -172,7 +172,7 @@ def tenure_section(inputs: ReportInputs) -> tuple[Section, dict[str, Any]]:
         caption="Monthly hazard by tenure band (95 % interval)",
     )
     incidence = inputs.incidence
-    section.heading(f"Cumulative incidence by {inputs.segment_column}")
+    section.heading(fig.incidence_title(inputs.segment_column))
     if len(incidence) == 0:
         section.note(
             f"No segment of {inputs.segment_column} has enough customers at risk to draw a curve."
@@ -185,7 +185,7 @@ def tenure_section(inputs: ReportInputs) -> tuple[Section, dict[str, Any]]:
         )
         section.figure(
             fig.incidence_chart(incidence, inputs.segment_column),
-            alt=f"Cumulative incidence of each exit cause by {inputs.segment_column}",
+            alt=f"{fig.incidence_title(inputs.segment_column)}, each exit cause",
         )
     return section, {"hazard_by_tenure_band": key}
 
@@ -221,10 +221,14 @@ def risk_map_section(inputs: ReportInputs) -> tuple[Section, dict[str, Any]]:
     )
     key: dict[str, Any] = {"portfolio_mean": overall, "highest_area": {}}
     header = ["area", "customers", *[fig.risk_title(c) for c in columns]]
+    named = (
+        dict(zip(areas["area_id"], areas["area_name"], strict=True)) if "area_name" in areas else {}
+    )
     for column in columns:
         top = risk.sort_values([column, "area_id"], ascending=[False, True]).head(5)
         rows = [
-            [Cell(a), count(n), *[percent(top.loc[i, c]) for c in columns]]
+            [Cell(f"{named[a]} ({a})" if a in named else a), count(n)]
+            + [percent(top.loc[i, c]) for c in columns]
             for i, a, n in zip(top.index, top["area_id"], top["customers"], strict=True)
         ]
         section.table(header, rows, caption=f"Areas with the highest {fig.risk_title(column)}")
@@ -259,28 +263,17 @@ def accuracy_section(inputs: ReportInputs) -> tuple[Section, dict[str, Any]]:
         "event rate among the 10 % with the highest risk over the overall rate; capture: the "
         "share of events found among them. Values are means over the cutoffs."
     )
-    rows = [
-        [
-            Cell(fig.label_of(r.cause)),
-            Cell(str(r.family)),
-            count(r.horizon),
-            number(getattr(r, "uno_c", np.nan)),
-            number(getattr(r, "brier", np.nan), 4),
-        ]
-        for r in champions.itertuples(index=False)
-    ]
-    section.table(
-        ["cause", "champion", "horizon (months)", "Uno's C", "Brier"],
-        rows,
-        caption="Champion per cause (best mean Uno's C; ties by Brier)",
-    )
+    _champion_blocks(section, champions)
     winners = dict(zip(champions["cause"], champions["family"], strict=True))
+    extra = ("held_out_cutoff", "held_out_uno_c", "held_out_brier", "previous_family", "changed")
     key["champions"] = {
         r.cause: {
             "family": r.family,
             "horizon": int(r.horizon),
             "uno_c": float(getattr(r, "uno_c", np.nan)),
             "brier": float(getattr(r, "brier", np.nan)),
+            **{k: _plain_value(getattr(r, k)) for k in extra if hasattr(r, k)},
+            **({"why": str(r.why)} if hasattr(r, "why") else {}),
         }
         for r in champions.itertuples(index=False)
     }
@@ -316,6 +309,51 @@ def accuracy_section(inputs: ReportInputs) -> tuple[Section, dict[str, Any]]:
             row_css=css,
         )
     return section, key
+
+
+def _champion_blocks(section: Section, champions: pd.DataFrame) -> None:
+    """The champion per cause; with `choose_champions` output, its held-out score and why."""
+    held = "held_out_uno_c" in champions.columns
+    header = ["cause", "champion", "horizon (months)", "Uno's C", "Brier"]
+    if held:
+        header = [*header[:3], "Uno's C (chosen on)", "Uno's C (held out)", "Brier (held out)"]
+    rows = []
+    for r in champions.itertuples(index=False):
+        row = [Cell(fig.label_of(r.cause)), Cell(str(r.family)), count(r.horizon)]
+        if held:
+            row += [number(r.uno_c), number(r.held_out_uno_c), number(r.held_out_brier, 4)]
+        else:
+            row += [number(getattr(r, "uno_c", np.nan)), number(getattr(r, "brier", np.nan), 4)]
+        rows.append(row)
+    caption = "Champion per cause (best mean Uno's C; ties by Brier)"
+    if held:
+        cutoff = next((c for c in champions["held_out_cutoff"] if isinstance(c, str)), None)
+        caption = (
+            "Champion per cause: chosen on the earlier cutoffs, scored on the latest one "
+            f"({cutoff}), which took no part in the choice"
+            if cutoff
+            else "Champion per cause: chosen on the only cutoff, so there is no held-out score"
+        )
+    section.table(header, rows, caption=caption)
+    if "why" not in champions.columns:
+        return
+    changed = champions[champions["changed"].astype(bool)]
+    if len(changed):
+        for r in changed.itertuples(index=False):
+            section.text(f"{fig.label_of(r.cause)}: the model changed this month — {r.why}.")
+    elif champions["previous_family"].notna().any():
+        section.text("No cause changed its model family since last month.")
+    kept = champions[champions["why"].astype(str).str.contains("within the switch margin")]
+    for r in kept.itertuples(index=False):
+        section.text(f"{fig.label_of(r.cause)}: {r.why}.")
+
+
+def _plain_value(value: Any) -> Any:
+    if isinstance(value, np.generic):
+        value = value.item()
+    if isinstance(value, float) and not np.isfinite(value):
+        return None
+    return value
 
 
 def _decile_blocks(

@@ -109,10 +109,8 @@ def drivers_section(inputs: ReportInputs) -> tuple[Section, dict[str, Any]]:
             section.note("No hazard ratio has an interval that excludes 1.")
         _ph_failures(section, inputs.ph_tests, key)
     imp = inputs.importances
-    section.heading("Forest importances")
-    if imp is None or len(imp) == 0:
-        section.note("No survival forest was fitted, so there are no importances.")
-    else:
+    if imp is not None and len(imp) > 0:  # no heading without a forest: no empty part
+        section.heading("Forest importances")
         section.text(
             "How much the forest's accuracy drops when one feature's values are shuffled "
             "among customers: a larger drop means the forest leans on it more. Importances "
@@ -256,15 +254,18 @@ def plan_section(inputs: ReportInputs) -> tuple[Section, dict[str, Any]]:
     cost = float(plan["cost"].sum())
     value = float(plan["expected_value"].sum())
     budget = summary.get("budget")
+    unit = f" {inputs.currency}" if inputs.currency else ""
     section.text(
-        f"{contacts:,} customers are to be contacted at a cost of {cost:,.2f}, for an expected "
-        f"value of {value:,.2f} (value kept with the offer, less without it, less its cost; an "
-        "estimate, not a promise)."
+        f"{contacts:,} customers are to be contacted at a cost of {cost:,.2f}{unit}, for an "
+        f"expected value of {value:,.2f}{unit} (value kept with the offer, less without it, "
+        "less its cost; an estimate, not a promise)."
         + (
-            f" Budget used: {cost:,.2f} of {float(budget):,.2f} ({pct_text(cost / budget, 1)})."
+            f" Budget used: {cost:,.2f} of {float(budget):,.2f}{unit} "
+            f"({pct_text(cost / budget, 1)})."
             if budget and np.isfinite(budget) and budget > 0
             else ""
         )
+        + ("" if unit else " Amounts are in the unit of the customers' monthly margin.")
     )
     by_offer = plan.groupby("offer", sort=True).agg(
         contacts=("customer_id", "size"), cost=("cost", "sum"), value=("expected_value", "sum")
@@ -289,11 +290,12 @@ def plan_section(inputs: ReportInputs) -> tuple[Section, dict[str, Any]]:
         ]
     )
     section.table(
-        ["offer", "contacts", "cost", "expected value", "per contact"],
+        ["offer", "contacts", f"cost{unit}", f"expected value{unit}", f"per contact{unit}"],
         rows,
         caption="Offers",
     )
     _offer_effects(section, summary.get("effects"))
+    _offer_limits(section, summary.get("offers"), unit)
     solver = {k: summary[k] for k in ("solver", "status", "gap", "relative_gap") if k in summary}
     if solver:
         section.table(
@@ -333,8 +335,75 @@ def plan_section(inputs: ReportInputs) -> tuple[Section, dict[str, Any]]:
     for extra in ("gap", "relative_gap", "solver", "excluded_customers"):
         if extra in summary:
             key[extra] = summary[extra]
+    key["currency"] = inputs.currency or None
+    key["planned_again"] = _planned_again(section, inputs.planned_again)
     rate_key = _offer_rates(section, inputs.offer_rates)
-    return section, {"plan": key, "offer_rates": rate_key}
+    return section, {"plan": key, "offer_rates": rate_key, "offers": summary.get("offers")}
+
+
+def _planned_again(section: Section, again: dict[str, Any] | None) -> dict[str, Any] | None:
+    """How many of last month's planned customers are planned again, in words."""
+    if not again:
+        return None
+    share = again.get("share")
+    section.text(
+        f"Of last month's {again['previous_contacts']:,} planned customers, "
+        f"{again['still_eligible']:,} may still receive an offer; "
+        f"{again['planned_again']:,} of them are planned again"
+        + (f" ({pct_text(share, 0)})." if share is not None else ".")
+        + " A low share with an unchanged portfolio means the ranking moved: see the "
+        "champions and their changes above."
+    )
+    return again
+
+
+_LIMIT_WORDS = {
+    "eligibility": "nobody could receive it (its eligibility rules, the do-not-contact and "
+    "hardship flags, or the contact cooldown)",
+    "no positive value": "no customer who could receive it had a positive expected value (the "
+    "offer costs more than it is expected to keep or win)",
+    "capacity": "its weekly capacity was reached",
+    "budget": "the budget ran out before it",
+    "none": "every customer worth contacting with it was planned (some with a better offer)",
+}
+
+
+def _offer_limits(section: Section, offers: dict[str, Any] | None, unit: str) -> None:
+    """Per offer: who could get it, who was worth it, who got it, and what held it back."""
+    if not offers:
+        return
+    section.table(
+        [
+            "offer",
+            "customers",
+            "eligible",
+            "positive value",
+            "chosen",
+            f"spend{unit}",
+            "limited by",
+        ],
+        [
+            [
+                Cell(str(name)),
+                count(f["candidates"]),
+                count(f["eligible"]),
+                count(f["positive_value"]),
+                count(f["chosen"]),
+                money(f["spend"]),
+                Cell(str(f["limited_by"])),
+            ]
+            for name, f in offers.items()
+        ],
+        caption="Why each offer got the contacts it did (eligible: meets its rules and is not "
+        "flagged; positive value: of those, outside the cooldown and worth more than it costs)",
+    )
+    for name, f in offers.items():
+        few = f["chosen"] == 0 or f["chosen"] < 0.1 * max(f["positive_value"], 1)
+        if few or f["limited_by"] in ("capacity", "budget"):
+            section.text(
+                f"{name}: {f['chosen']:,} contact(s), because "
+                f"{_LIMIT_WORDS.get(f['limited_by'], f['limited_by'])}."
+            )
 
 
 def _offer_effects(section: Section, effects: dict[str, Any] | None) -> None:

@@ -8,9 +8,11 @@ from ._lifetime import (
     monthly_discount_rate,
     value_settings,
 )
+from ._money import MONEY_COLUMNS, round_money
 from ._offer_value import offer_values
 
 __all__ = [
+    "MONEY_COLUMNS",
     "ValueSettings",
     "campaign_follow_up",
     "discount_factors",
@@ -18,5 +20,6 @@ __all__ = [
     "lifetime_value",
     "monthly_discount_rate",
     "offer_values",
+    "round_money",
     "value_settings",
 ]

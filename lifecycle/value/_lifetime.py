@@ -1,8 +1,14 @@
 """Lifetime value: the discounted margin a customer is expected to bring while still a customer.
 
-Settings: ``[value] annual_discount`` (yearly rate a in [0, 1), default 0.08; the monthly rate
-is d = (1 + a)^(1/12) − 1, so that 12 months of d make a) and ``horizon_months`` (default 36);
-``lifecycle settings`` prints every setting.
+Settings in ``lifecycle.toml`` (all optional)::
+
+    [value]
+    annual_discount = 0.08     # yearly discount rate a, >= 0 and < 1; the monthly rate is
+                               # d = (1 + a)^(1/12) − 1 (compounding: 12 months of d make a)
+    horizon_months = 36        # months of margin counted, whole number >= 1
+    currency = "EUR"           # the currency of monthly_margin and the offers' costs and
+                               # values, named in the report and key figures (default "":
+                               # amounts are in the unit of monthly_margin, unnamed)
 
 Timing: the margin of month t is received at the end of month t, and only if the customer is
 still a customer then, so it is weighted by S(t) and discounted by (1 + d)^−t, t = 1..H. This is
@@ -33,14 +39,18 @@ class ValueSettings:
 
     annual_discount: float = DEFAULT_ANNUAL_DISCOUNT
     horizon_months: int = DEFAULT_HORIZON_MONTHS
+    currency: str = ""
 
 
 def value_settings(config: Config) -> ValueSettings:
     """Read and check the ``[value]`` section of a config (defaults where it is silent)."""
     raw = section(config, "value")  # checked against the settings schema
+    currency = raw.get("currency", "")
     annual = raw.get("annual_discount", DEFAULT_ANNUAL_DISCOUNT)
     horizon = raw.get("horizon_months", DEFAULT_HORIZON_MONTHS)
-    return ValueSettings(annual_discount=float(annual), horizon_months=int(horizon))
+    return ValueSettings(
+        annual_discount=float(annual), horizon_months=int(horizon), currency=currency
+    )
 
 
 def monthly_discount_rate(annual_discount: float) -> float:
