@@ -155,7 +155,9 @@ def run_cycle(
     from ..evaluation import TenureLifeTable, backtest
     from ..history import ScoreHistory
     from ..models._families import make_model
+    from ..models._fittable import check_fittable, min_events_setting
     from ..report import write_report
+    from ._checks import check_as_of
     from ._steps import (
         default_cutoffs,
         forecast_portfolio,
@@ -177,7 +179,9 @@ def run_cycle(
             f"as_of was {month} but the data only covers months up to "
             f"{format_month(tables.extract_month)}"
         )
+    check_as_of(tables, month_index, what="as_of")
     tables = tables_as_of(tables, month_index)  # a past month sees only what it knew
+    min_events = min_events_setting(config)
     folder = settings.reports / month
     if folder.exists() and not force:
         raise UsageError(
@@ -199,6 +203,7 @@ def run_cycle(
                 families=families,
                 cutoffs=default_cutoffs(month, 12, count=settings.cutoffs),
                 config=config,
+                min_events=min_events,
             ),
         )  # fmt: skip
         champions = dict(
@@ -206,6 +211,7 @@ def run_cycle(
         )
         tick("fit")
         panel = panel_with_context(tables, month, config)
+        check_fittable(panel, min_events=min_events)
         model = _champion_model(
             work, fingerprint, month, panel, families, champions, settings.refit_months
         )
@@ -332,7 +338,10 @@ def _champion_model(work, fingerprint, month, panel, families, champions, refit_
                 continue
             log.info("model: reusing %s (refit every %d months)", candidate, refit_months)
             return model
-    model = ChampionModel(families=families, champions=champions).fit(panel)
+    # a cause without a champion (no family had a valid backtest metric for it) takes the
+    # first configured family
+    default = next(name for name in families if name != "life_table")
+    model = ChampionModel(families=families, champions=champions, default=default).fit(panel)
     window = (str(panel["month"].min()), str(panel["month"].max()))
     save_model(model, folder, training_window=window, family="champion")
     return model

@@ -15,6 +15,7 @@ from ..config import Config
 from ..data import Tables
 from ..errors import UsageError
 from ..models import HazardModel
+from ..models._fittable import check_fittable
 from ..panel import build_panel, build_snapshot, panel_layout
 from ._calibration import calibration_table, lift_from_tables
 from ._metrics import brier_score, time_dependent_auc, uno_concordance
@@ -68,6 +69,7 @@ def backtest(
     config: Config | None = None,
     build_panel_fn: PanelBuilder | None = None,
     build_snapshot_fn: PanelBuilder | None = None,
+    min_events: int | None = None,
 ) -> BacktestResult:
     """Fit every family as of each past cutoff and score its predictions against what happened.
 
@@ -108,6 +110,10 @@ def backtest(
         `build_snapshot` plus spatial context if ``build_panel_fn`` is the default too, else the
         month-(c + 1) rows of ``build_panel_fn(tables, c + 1, config)`` with tenure ≥ 1, which
         hold exactly the features known at the end of c.
+    min_events
+        When given, each cutoff's panel must pass `lifecycle.models._fittable.check_fittable`
+        with this many events of every cause (``[models] min_events``), else `InputError`
+        before its fits; ``None`` fits whatever the panel holds.
     """
     config = config or Config()
     families = _checked_families(families)
@@ -134,6 +140,9 @@ def backtest(
                 format_month(tables.extract_month),
             )
         panel = build_panel_fn(tables, cutoff, config)
+        if min_events is not None:
+            where = f"backtest cutoff {format_month(cutoff)}: "
+            check_fittable(panel, min_events=min_events, where=where)
         snapshot = build_snapshot_fn(tables, cutoff, config)
         outcomes = _aligned_outcomes(tables, cutoff, snapshot)
         log.info(
@@ -195,6 +204,7 @@ def champions(metrics: pd.DataFrame) -> pd.DataFrame:
         at = part[part["horizon"] == horizon]
         means = at.pivot_table(index="family", columns="metric", values="value", aggfunc="mean")
         means = means.reindex(columns=["uno_c", "brier"])
+        means = _with_valid_metric(means, cause)
         if means.empty:
             continue
         # equal concordances (to 12 places) are a tie, settled by the Brier score, then the name
@@ -211,6 +221,21 @@ def champions(metrics: pd.DataFrame) -> pd.DataFrame:
             )
         )
     return pd.DataFrame(out, columns=columns)
+
+
+def _with_valid_metric(means: pd.DataFrame, cause: str) -> pd.DataFrame:
+    """The families with a finite mean concordance or Brier score for ``cause``: a family
+    whose metrics are all NaN (nothing could be scored) can never be the champion. A cause
+    with no such family gets no champion (logged)."""
+    valid = means[["uno_c", "brier"]].notna().any(axis=1)
+    if not valid.all():
+        log.warning(
+            "backtest: %s: %s scored no valid concordance or Brier score, so cannot be its "
+            "champion%s",
+            cause, ", ".join(sorted(means.index[~valid])),
+            "; it has no champion" if not valid.any() else "",
+        )  # fmt: skip
+    return means[valid]
 
 
 # -- pieces ----------------------------------------------------------------------------------
