@@ -191,6 +191,7 @@ def run_cycle(
     work = settings.work
     staging = work / f"staging-{month}-{os.getpid()}"
     shutil.rmtree(staging, ignore_errors=True)
+    new_work = not work.exists()
     staging.mkdir(parents=True)
     try:
         tick("backtest")
@@ -273,6 +274,8 @@ def run_cycle(
         _publish(staging, folder, force=force)
     finally:
         shutil.rmtree(staging, ignore_errors=True)
+        if new_work and not any(work.iterdir()):
+            work.rmdir()  # a run refused before it saved anything leaves no work folder
     return RunResult(
         month=month,
         folder=folder,
