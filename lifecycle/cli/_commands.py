@@ -12,6 +12,7 @@ from .._months import format_month, parse_month
 from ..config import Config, load_config
 from ..errors import UsageError
 from ._arguments import MAX_HORIZON_MONTHS, horizons_argument, output_file, output_folder
+from ._progress import task_progress
 
 log = logging.getLogger("lifecycle")
 
@@ -188,7 +189,8 @@ def _fit_run(args: argparse.Namespace) -> None:
     parse_month(args.as_of, what="--as-of")
     output_folder(args.out)
     tables, config = _load(args)
-    model, window = fit_model(tables, args.as_of, args.family, config)
+    with task_progress():
+        model, window = fit_model(tables, args.as_of, args.family, config)
     save_model(model, args.out, training_window=window, family=args.family)
     print(f"wrote {args.out}/ ({args.family}; trained on {window[0]} to {window[1]})")
 
@@ -216,7 +218,9 @@ def _scored(args: argparse.Namespace, **kwargs):
     parse_month(args.as_of, what="--as-of")
     model = load_model(args.model)
     tables, config = _load(args)
-    return tables, config, model, score_portfolio(tables, model, args.as_of, config, **kwargs)
+    with task_progress():
+        scored = score_portfolio(tables, model, args.as_of, config, **kwargs)
+    return tables, config, model, scored
 
 
 def _score_run(args: argparse.Namespace) -> None:
@@ -264,10 +268,11 @@ def _backtest_run(args: argparse.Namespace) -> None:
     cutoffs = cutoffs or default_cutoffs(args.as_of, max(horizons))
     for c in cutoffs:
         check_as_of(tables, c, what="--cutoffs" if given else "the default cutoff")
-    result = backtest(
-        tables, families=families, cutoffs=cutoffs, horizons=horizons, config=config,
-        min_events=min_events_setting(config),
-    )  # fmt: skip
+    with task_progress():
+        result = backtest(
+            tables, families=families, cutoffs=cutoffs, horizons=horizons, config=config,
+            min_events=min_events_setting(config),
+        )  # fmt: skip
     _write_table(args.out, result.metrics)
     print(f"wrote {args.out}: {len(result.metrics):,} rows; champions:")
     for row in result.champions.itertuples():

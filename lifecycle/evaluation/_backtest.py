@@ -11,6 +11,7 @@ import pandas as pd
 from sklearn.base import clone
 
 from .._months import format_month, parse_month
+from .._progress import progress
 from ..config import Config
 from ..data import Tables
 from ..errors import UsageError
@@ -151,7 +152,10 @@ def backtest(
             len(panel),
             len(snapshot),
         )
-        for name, family in families.items():
+        for j, (name, family) in enumerate(families.items()):
+            step = cutoffs.index(cutoff) * len(families) + j
+            what = f"cutoff {format_month(cutoff)}, family {name}"
+            progress("backtest", step, len(cutoffs) * len(families), what)
             log.info("backtest %s: fitting %s", format_month(cutoff), name)
             model = clone(family).fit(panel)
             incidence = model.predict_cumulative_incidence(snapshot, max(usable))
