@@ -164,3 +164,16 @@ def test_fit_with_min_events_zero_fits_and_gives_that_cause_no_hazard(no_other_e
     assert main(argv) == 0
     assert (out / "manifest.json").is_file()
     capsys.readouterr()
+
+
+def test_a_run_gives_a_cause_without_champion_the_first_configured_family(tmp_path):
+    """The run's champion model: a cause left without a champion (no valid metric) takes
+    the first family of ``[run] families``, never the fixed default of a family not run."""
+    from lifecycle.cycle._run import _champion_model
+    from lifecycle.evaluation import TenureLifeTable
+    from lifecycle.models import CauseSpecificCox
+
+    panel = _panel(_stayers(30) + _leavers(12, "churn") + _leavers(9, "move_out", start=50))
+    families = {"life_table": TenureLifeTable(), "cox": CauseSpecificCox()}
+    model = _champion_model(tmp_path, "0" * 64, "2026-10", panel, families, {"churn": "cox"}, 1)
+    assert model.cause_family_ == {"churn": "cox", "move_out": "cox", "other_exit": "cox"}
