@@ -32,8 +32,9 @@ def horizons_argument(text: str, what: str = "--horizons") -> list[int]:
         raise UsageError(f"{what} was {text!r} but must be {allowed}")
     bad = [v for v in values if not 1 <= v <= MAX_HORIZON_MONTHS]
     if bad:
-        raise UsageError(f"{what} was {text!r}: {bad[0]} is outside 1..{MAX_HORIZON_MONTHS}; "
-                         f"give {allowed}")  # fmt: skip
+        raise UsageError(
+            f"{what} was {text!r}: {bad[0]} is outside 1..{MAX_HORIZON_MONTHS}; give {allowed}"
+        )
     repeated = sorted({v for v in values if values.count(v) > 1})
     if repeated:
         raise UsageError(f"{what} was {text!r}: {repeated} given more than once; give each once")
