@@ -71,7 +71,7 @@ def check_fittable(panel: pd.DataFrame, *, min_events: int = MIN_EVENTS, where: 
         raise InputError(
             table="panel", column=None,
             problem=f"{where}the panel is empty: no customer is active in the fitting window",
-            fix="choose a later --as-of, or a longer [panel] window_months",
+            fix="Choose a later --as-of, or a longer [panel] window_months",
         )  # fmt: skip
     window = f"{panel['month'].min()} to {panel['month'].max()}"
     ids = pd.unique(panel["customer_id"].to_numpy())
@@ -81,7 +81,7 @@ def check_fittable(panel: pd.DataFrame, *, min_events: int = MIN_EVENTS, where: 
             problem=f"{where}only {ids.size} customer is active in the fitting window {window}; "
             f"a fit needs at least {MIN_CUSTOMERS}",
             count=len(panel), examples=ids,
-            fix="check the customers table, or choose a later --as-of",
+            fix="Check the customers table, or choose a later --as-of",
         )  # fmt: skip
     counts = event_counts(panel)
     terminal = {c: counts[c] for c in layout.terminal_causes}
@@ -91,7 +91,7 @@ def check_fittable(panel: pd.DataFrame, *, min_events: int = MIN_EVENTS, where: 
             problem=f"{where}every customer is censored: no {', '.join(terminal)} event in the "
             f"fitting window {window} ({ids.size} customers, {len(panel)} customer-months), so "
             "every hazard of leaving would be 0 and survival 1 for everyone",
-            fix="check end_month and end_reason in the customers table (and [reasons])",
+            fix="Check end_month and end_reason in the customers table (and [reasons])",
         )  # fmt: skip
     few = {c: n for c, n in counts.items() if n < min_events}
     if few:
@@ -100,7 +100,7 @@ def check_fittable(panel: pd.DataFrame, *, min_events: int = MIN_EVENTS, where: 
             table="panel", column=next(iter(few)),
             problem=f"{where}too few events in the fitting window {window}: {listed} "
             f"(a fit needs at least {min_events} events of each cause)",
-            fix="give a longer history ([panel] window_months, an earlier start of the data) "
+            fix="Give a longer history ([panel] window_months, an earlier start of the data) "
             "or a later --as-of; or set [models] min_events = 0 to fit anyway (a cause "
             "without events then has a hazard of 0)",
         )  # fmt: skip
