@@ -32,11 +32,12 @@ def test_bad_input_exits_2_with_one_message_and_writes_nothing(data, tmp_path, c
     customers.loc[1, "customer_id"] = customers.loc[0, "customer_id"]
     customers.to_csv(data / "customers.csv", index=False)
     out = tmp_path / "out" / "panel.parquet"
+    out.parent.mkdir()
     assert main(["panel", str(data), "--as-of", "2026-03", "--out", str(out)]) == 2
     err = capsys.readouterr().err.strip().splitlines()
     assert len(err) == 1
     assert "table 'customers', column 'customer_id'" in err[0] and "C001" in err[0]
-    assert not out.exists() and not out.parent.exists()
+    assert not out.exists() and not any(out.parent.iterdir())
 
 
 def test_bad_month_and_bad_output_name_are_usage_errors(data, tmp_path, capsys):

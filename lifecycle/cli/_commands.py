@@ -11,6 +11,8 @@ from pathlib import Path
 from .._months import format_month, parse_month
 from ..config import Config, load_config
 from ..errors import UsageError
+from ._arguments import MAX_HORIZON_MONTHS, horizons_argument, output_file, output_folder
+from ._progress import task_progress
 
 log = logging.getLogger("lifecycle")
 
@@ -46,10 +48,16 @@ def _keep_key_outside(args: argparse.Namespace, *folders: Path) -> None:
 
 
 def _load(args: argparse.Namespace):
+    """The checked tables and config; ``--as-of`` (when the command has one) is then checked
+    against the data's first month."""
+    from ..cycle._checks import check_as_of
     from ..data import load_tables
 
     config = _config_for(args.data, args.config)
-    return load_tables(args.data, config), config
+    tables = load_tables(args.data, config)
+    if getattr(args, "as_of", None):
+        check_as_of(tables, args.as_of)
+    return tables, config
 
 
 # check ---------------------------------------------------------------------------------------
@@ -83,6 +91,7 @@ def _panel_run(args: argparse.Namespace) -> None:
     parse_month(args.as_of, what="--as-of")
     if args.out.suffix.lower() != ".parquet":
         raise UsageError(f"--out was {str(args.out)!r} but must be a .parquet file")
+    output_file(args.out, example="panel.parquet")
     tables, config = _load(args)
     from ..cycle import panel_with_context
 
@@ -133,6 +142,7 @@ def _demo_run(args: argparse.Namespace) -> None:
 
     if args.customers < 500:
         raise UsageError(f"--customers was {args.customers} but must be at least 500")
+    output_folder(args.out)
     paths = write_demo(args.out, customers=args.customers, seed=args.seed)
     config = load_config(paths["config"])
     print(f"demo data in {args.out}/ (true parameters in {paths['truth']})")
@@ -186,8 +196,10 @@ def _fit_run(args: argparse.Namespace) -> None:
 
     parse_month(args.as_of, what="--as-of")
     _keep_key_outside(args, args.out)
+    output_folder(args.out)
     tables, config = _load(args)
-    model, window = fit_model(tables, args.as_of, args.family, config)
+    with task_progress():
+        model, window = fit_model(tables, args.as_of, args.family, config)
     save_model(model, args.out, training_window=window, family=args.family)
     print(f"wrote {args.out}/ ({args.family}; trained on {window[0]} to {window[1]})")
 
@@ -201,7 +213,10 @@ def _score_arguments(p: argparse.ArgumentParser) -> None:
     p.add_argument("--model", required=True, type=Path, help="folder written by lifecycle fit")
     p.add_argument("--as-of", required=True, help="score the customers present at its end")
     p.add_argument("--out", required=True, type=Path, help="CSV or Parquet file to write")
-    p.add_argument("--horizons", default="3,6,12", help="months, comma-separated (3,6,12)")
+    p.add_argument("--horizons", default="3,6,12", help=_HORIZONS_HELP)
+
+
+_HORIZONS_HELP = f"months, comma-separated, each 1 to {MAX_HORIZON_MONTHS} (default 3,6,12)"
 
 
 def _scored(args: argparse.Namespace, **kwargs):
@@ -213,11 +228,13 @@ def _scored(args: argparse.Namespace, **kwargs):
     _keep_key_outside(args, args.model)
     model = load_model(args.model)
     tables, config = _load(args)
-    return tables, config, model, score_portfolio(tables, model, args.as_of, config, **kwargs)
+    with task_progress():
+        scored = score_portfolio(tables, model, args.as_of, config, **kwargs)
+    return tables, config, model, scored
 
 
 def _score_run(args: argparse.Namespace) -> None:
-    horizons = _whole_numbers(args.horizons, "--horizons")
+    horizons = horizons_argument(args.horizons)
     _check_table_path(args.out)
     _, _, _, scored = _scored(args, horizons=horizons)
     _write_table(args.out, scored.scores)
@@ -238,29 +255,36 @@ def _backtest_arguments(p: argparse.ArgumentParser) -> None:
         "--families", default="cox,boosted,forest", help="comma-separated (cox,boosted,forest)"
     )
     p.add_argument("--cutoffs", help="comma-separated YYYY-MM (default: two with full follow-up)")
-    p.add_argument("--horizons", default="3,6,12", help="months, comma-separated (3,6,12)")
+    p.add_argument("--horizons", default="3,6,12", help=_HORIZONS_HELP)
     p.add_argument("--out", required=True, type=Path, help="CSV of the metrics table")
 
 
 def _backtest_run(args: argparse.Namespace) -> None:
     from ..cycle import default_cutoffs
+    from ..cycle._checks import check_as_of
     from ..evaluation import TenureLifeTable, backtest, choose_champions
     from ..models._families import make_model
+    from ..models._fittable import min_events_setting
 
     parse_month(args.as_of, what="--as-of")
-    horizons = _whole_numbers(args.horizons, "--horizons")
+    horizons = horizons_argument(args.horizons)
     _check_table_path(args.out, csv_only=True)
+    cutoffs = [c.strip() for c in (args.cutoffs or "").split(",") if c.strip()]
+    for c in cutoffs:
+        parse_month(c, what="--cutoffs")
     tables, config = _load(args)
     families = {"life_table": TenureLifeTable()}
     for name in [f.strip() for f in args.families.split(",") if f.strip()]:
         families[name] = make_model(name, config, horizon=max(horizons))
-    if args.cutoffs:
-        cutoffs = [c.strip() for c in args.cutoffs.split(",") if c.strip()]
-        for c in cutoffs:
-            parse_month(c, what="--cutoffs")
-    else:
-        cutoffs = default_cutoffs(args.as_of, max(horizons))
-    result = backtest(tables, families=families, cutoffs=cutoffs, horizons=horizons, config=config)
+    given = bool(cutoffs)
+    cutoffs = cutoffs or default_cutoffs(args.as_of, max(horizons))
+    for c in cutoffs:
+        check_as_of(tables, c, what="--cutoffs" if given else "the default cutoff")
+    with task_progress():
+        result = backtest(
+            tables, families=families, cutoffs=cutoffs, horizons=horizons, config=config,
+            min_events=min_events_setting(config),
+        )  # fmt: skip
     _write_table(args.out, result.metrics)
     print(f"wrote {args.out}: {len(result.metrics):,} rows; champions:")
     for row in choose_champions(result.metrics).itertuples():
@@ -323,20 +347,11 @@ FORECAST = Command(
 )  # fmt: skip
 
 
-def _whole_numbers(text: str, what: str) -> list[int]:
-    try:
-        values = [int(part) for part in text.split(",") if part.strip()]
-    except ValueError:
-        values = []
-    if not values or min(values) < 1:
-        raise UsageError(f"{what} was {text!r} but must be whole months >= 1, e.g. 3,6,12")
-    return values
-
-
 def _check_table_path(path: Path, *, csv_only: bool = False) -> None:
     allowed = (".csv",) if csv_only else (".csv", ".parquet")
     if path.suffix.lower() not in allowed:
         raise UsageError(f"--out was {str(path)!r} but must end in {' or '.join(allowed)}")
+    output_file(path, example="out" + allowed[0])
 
 
 def _write_table(path: Path, frame) -> None:

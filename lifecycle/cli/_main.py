@@ -12,6 +12,7 @@ import sys
 import traceback
 from collections.abc import Sequence
 
+from .._warnings import logged_once
 from ..errors import InputError, LifecycleError, ModelFileError, UsageError
 from . import _commands, _explain
 
@@ -40,7 +41,8 @@ def main(argv: Sequence[str] | None = None) -> int:
     level = {0: logging.WARNING, 1: logging.INFO}.get(args.verbose, logging.DEBUG)
     logging.basicConfig(level=level, format="%(levelname)s %(name)s: %(message)s", force=True)
     try:
-        args.run(args)
+        with logged_once():  # a library warning is logged once per command
+            args.run(args)
     except (InputError, UsageError, ModelFileError) as exc:
         print(f"lifecycle {args.command}: {exc}", file=sys.stderr)
         return 2

@@ -205,9 +205,11 @@ def _locked_run(source, config, settings, as_of, force, tick, client, history) -
     from ..data import load_tables, tables_as_of
     from ..evaluation import TenureLifeTable, backtest, choose_champions
     from ..models._families import make_model
+    from ..models._fittable import check_fittable, min_events_setting
     from ..report import write_report
     from ..spatial import premise_areas
     from ..value import round_money
+    from ._checks import check_as_of
     from ._steps import (
         default_cutoffs,
         forecast_portfolio,
@@ -228,7 +230,9 @@ def _locked_run(source, config, settings, as_of, force, tick, client, history) -
             f"as_of was {month} but the data only covers months up to "
             f"{format_month(tables.extract_month)}"
         )
+    check_as_of(tables, month_index, what="as_of")
     tables = tables_as_of(tables, month_index)  # a past month sees only what it knew
+    min_events = min_events_setting(config)
     folder = settings.reports / month
     if folder.exists() and not force:
         raise UsageError(
@@ -251,6 +255,7 @@ def _locked_run(source, config, settings, as_of, force, tick, client, history) -
                 families=families,
                 cutoffs=default_cutoffs(month, 12, count=settings.cutoffs),
                 config=config,
+                min_events=min_events,
             ),
         )  # fmt: skip
         previous = history.previous_month(month)
@@ -263,6 +268,7 @@ def _locked_run(source, config, settings, as_of, force, tick, client, history) -
         champions = dict(zip(choice["cause"], choice["family"], strict=True))
         tick("fit")
         panel = panel_with_context(tables, month, config)
+        check_fittable(panel, min_events=min_events)
         model = _champion_model(
             settings.work, keys, panel, families, champions, settings.refit_months, force, saves
         )

@@ -50,7 +50,10 @@ def fit_model(
     tables: Tables, as_of: str | int, family: str, config: Config
 ) -> tuple[HazardModel, tuple[str, str]]:
     """Fit ``family`` on the panel of ``as_of``; returns the model and its training window."""
+    from ..models._fittable import check_fittable, min_events_setting
+
     panel = panel_with_context(tables, as_of, config)
+    check_fittable(panel, min_events=min_events_setting(config))
     months = panel["month"]
     window = (str(months.min()), str(months.max()))
     log.info("fitting %s on %d customer-months (%s to %s)", family, len(panel), *window)

@@ -11,10 +11,12 @@ import pandas as pd
 from sklearn.base import clone
 
 from .._months import format_month, parse_month
+from .._progress import progress
 from ..config import Config
 from ..data import Tables
 from ..errors import UsageError
 from ..models import HazardModel
+from ..models._fittable import check_fittable
 from ..panel import build_panel, build_snapshot, panel_layout
 from ._calibration import calibration_table, lift_from_tables
 from ._metrics import brier_score, time_dependent_auc, uno_concordance
@@ -73,6 +75,7 @@ def backtest(
     config: Config | None = None,
     build_panel_fn: PanelBuilder | None = None,
     build_snapshot_fn: PanelBuilder | None = None,
+    min_events: int | None = None,
 ) -> BacktestResult:
     """Fit every family as of each past cutoff and score its predictions against what happened.
 
@@ -113,6 +116,10 @@ def backtest(
         `build_snapshot` plus spatial context if ``build_panel_fn`` is the default too, else the
         month-(c + 1) rows of ``build_panel_fn(tables, c + 1, config)`` with tenure ≥ 1, which
         hold exactly the features known at the end of c.
+    min_events
+        When given, each cutoff's panel must pass `lifecycle.models._fittable.check_fittable`
+        with this many events of every cause (``[models] min_events``), else `InputError`
+        before its fits; ``None`` fits whatever the panel holds.
     """
     config = config or Config()
     families = _checked_families(families)
@@ -140,6 +147,9 @@ def backtest(
                 format_month(tables.extract_month),
             )
         panel = build_panel_fn(tables, cutoff, config)
+        if min_events is not None:
+            where = f"backtest cutoff {format_month(cutoff)}: "
+            check_fittable(panel, min_events=min_events, where=where)
         snapshot = build_snapshot_fn(tables, cutoff, config)
         outcomes = _aligned_outcomes(tables, cutoff, snapshot)
         log.info(
@@ -148,7 +158,10 @@ def backtest(
             len(panel),
             len(snapshot),
         )
-        for name, family in families.items():
+        for j, (name, family) in enumerate(families.items()):
+            step = cutoffs.index(cutoff) * len(families) + j
+            what = f"cutoff {format_month(cutoff)}, family {name}"
+            progress("backtest", step, len(cutoffs) * len(families), what)
             log.info("backtest %s: fitting %s", format_month(cutoff), name)
             model = clone(family).fit(panel)
             found = getattr(model, "feature_importances_", None)
@@ -213,6 +226,7 @@ def champions(metrics: pd.DataFrame) -> pd.DataFrame:
         at = part[part["horizon"] == horizon]
         means = at.pivot_table(index="family", columns="metric", values="value", aggfunc="mean")
         means = means.reindex(columns=["uno_c", "brier"])
+        means = _with_valid_metric(means, cause)
         if means.empty:
             continue
         # equal concordances (to 12 places) are a tie, settled by the Brier score, then the name
@@ -229,6 +243,21 @@ def champions(metrics: pd.DataFrame) -> pd.DataFrame:
             )
         )
     return pd.DataFrame(out, columns=columns)
+
+
+def _with_valid_metric(means: pd.DataFrame, cause: str) -> pd.DataFrame:
+    """The families with a finite mean concordance or Brier score for ``cause``: a family
+    whose metrics are all NaN (nothing could be scored) can never be the champion. A cause
+    with no such family gets no champion (logged)."""
+    valid = means[["uno_c", "brier"]].notna().any(axis=1)
+    if not valid.all():
+        log.warning(
+            "backtest: %s: %s scored no valid concordance or Brier score, so cannot be its "
+            "champion%s",
+            cause, ", ".join(sorted(means.index[~valid])),
+            "; it has no champion" if not valid.any() else "",
+        )  # fmt: skip
+    return means[valid]
 
 
 # -- pieces ----------------------------------------------------------------------------------

@@ -7,6 +7,8 @@ import pandas as pd
 from sklearn.base import BaseEstimator
 
 from .._months import categorical_to_index
+from .._progress import progress
+from .._warnings import library_warnings
 from ..errors import UsageError
 from ..panel import PanelLayout, panel_layout
 from ..panel._future import project_known_future
@@ -55,7 +57,8 @@ class HazardModel(BaseEstimator):
     def fit(self, panel: pd.DataFrame) -> HazardModel:
         """Learn one hazard per cause from a panel (see `lifecycle.build_panel`)."""
         self._learn_layout(panel)
-        self._fit(panel)
+        with library_warnings(_family_label(self)):
+            self._fit(panel)
         return self
 
     def _learn_layout(self, panel: pd.DataFrame) -> None:
@@ -136,10 +139,14 @@ class HazardModel(BaseEstimator):
         # Customers in blocks, so that the repeated future rows (customers × horizon) of a
         # large portfolio never sit in memory at once; each customer's hazards are its own.
         blocks = []
-        for lo in range(0, max(len(snapshot), 1), _BLOCK_CUSTOMERS):
+        n = len(snapshot)
+        for lo in range(0, max(n, 1), _BLOCK_CUSTOMERS):
             part = snapshot.iloc[lo : lo + _BLOCK_CUSTOMERS]
+            what = f"{_family_label(self)}: customers {lo + 1:,} to {lo + len(part):,} of {n:,}"
+            progress("hazards", lo // _BLOCK_CUSTOMERS, -(-n // _BLOCK_CUSTOMERS) or 1, what)
             future = future_rows(part, horizon, self._known_future())
-            blocks.append(self._hazard_array(future, len(part), horizon))
+            with library_warnings(_family_label(self)):
+                blocks.append(self._hazard_array(future, len(part), horizon))
         array = valid_hazards(np.concatenate(blocks, axis=0), len(self.terminal_causes_))
         for j, cause in enumerate(self.causes_):
             holds = PanelLayout.at_risk_column(cause)
@@ -147,6 +154,20 @@ class HazardModel(BaseEstimator):
                 # a customer who holds the product already cannot take it up again
                 array[snapshot[holds].to_numpy() == 1, :, j] = 0.0
         return array
+
+
+def _family_label(model: HazardModel) -> str:
+    """The short family name used in messages (``cox``, ``forest``, ``boosted``, ...)."""
+    return _FAMILY_LABELS.get(type(model).__name__, type(model).__name__)
+
+
+_FAMILY_LABELS = {
+    "CauseSpecificCox": "cox",
+    "SurvivalForest": "forest",
+    "BoostedHazard": "boosted",
+    "TenureLifeTable": "life_table",
+    "ChampionModel": "champion",
+}
 
 
 def survival_from_hazards(hazards: np.ndarray, n_terminal: int) -> np.ndarray:

@@ -10,6 +10,8 @@ import pandas as pd
 from sklearn.ensemble import HistGradientBoostingClassifier
 from threadpoolctl import threadpool_limits
 
+from .._progress import progress
+from .._warnings import library_warnings
 from ..errors import InputError, UsageError
 from ..panel._future import project_known_future
 from ._base import HazardModel
@@ -185,22 +187,27 @@ class BoostedHazard(HazardModel):
         for j in range(flags.shape[1]):
             label[flags[:, j]] = j + 1
         everyone = np.ones(len(panel), dtype=bool)
-        self.terminal_model_ = self._classifier(
-            design, everyone, label, validation, rng, "terminal"
-        )
+        steps = 1 + len(self.uptake_causes_)
+        progress("fit", 0, steps, "boosted: exits (" + ", ".join(self.terminal_causes_) + ")")
+        with library_warnings("boosted", "exits (" + ", ".join(self.terminal_causes_) + ")"):
+            self.terminal_model_ = self._classifier(
+                design, everyone, label, validation, rng, "terminal"
+            )
         if self.terminal_model_ is not None:
             self.terminal_columns_ = tuple(int(c) - 1 for c in self.terminal_model_.classes_[1:])
         else:
             self.terminal_columns_ = ()
 
         self.uptake_models_ = {}
-        for cause in self.uptake_causes_:
+        for i, cause in enumerate(self.uptake_causes_):
+            progress("fit", 1 + i, steps, f"boosted: {cause}")
             holds = "holds_" + cause.removeprefix("uptake_")
             at_risk = panel[holds].to_numpy() == 0 if holds in panel else everyone
             event = (panel[cause].to_numpy() == 1).astype(np.int8)
-            self.uptake_models_[cause] = self._classifier(
-                design, at_risk, event, validation, rng, cause
-            )
+            with library_warnings("boosted", cause):
+                self.uptake_models_[cause] = self._classifier(
+                    design, at_risk, event, validation, rng, cause
+                )
 
     def _check_settings(self) -> None:
         f = self.sample_fraction

@@ -4,9 +4,7 @@ from __future__ import annotations
 
 import logging
 import numbers
-import re
 import time
-import warnings
 from dataclasses import dataclass
 
 import numpy as np
@@ -15,6 +13,8 @@ from lifelines import CoxTimeVaryingFitter
 from lifelines.exceptions import ConvergenceError
 from scipy import stats
 
+from .._progress import progress
+from .._warnings import library_warnings
 from ..errors import InputError, UsageError
 from ..panel import PanelLayout
 from ._base import HazardModel
@@ -179,9 +179,11 @@ class CauseSpecificCox(CoxLikelihoodMixin, HazardModel):
         coef_rows: list[pd.DataFrame] = []
         ph_rows: list[pd.DataFrame] = []
         self.likelihoods_ = {}  # filled per cause (see CoxLikelihoodMixin)
-        for cause, seed in zip(self.causes_, seeds, strict=True):
+        for i, (cause, seed) in enumerate(zip(self.causes_, seeds, strict=True)):
+            progress("fit", i, len(self.causes_), f"cox: {cause}")
             began = time.perf_counter()
-            fit, coefs, ph = self._fit_cause(panel, cause, start, stop, seed)
+            with library_warnings("cox", cause):
+                fit, coefs, ph = self._fit_cause(panel, cause, start, stop, seed)
             fits[cause] = fit
             coef_rows.append(coefs)
             ph_rows.append(ph)
@@ -338,7 +340,8 @@ class CauseSpecificCox(CoxLikelihoodMixin, HazardModel):
         The covariates are standardised before the fit (lifelines warns about columns of small
         variance, such as monthly rates, whatever their information) and the estimates scaled
         back: ``β = β_s / s``, ``V = V_s / (s sᵀ)``. lifelines' warnings (low variance among
-        the events of a rare cause, slow convergence) are logged with the cause named.
+        the events of a rare cause, slow convergence) are logged in our words with the cause
+        and feature named (`library_warnings`).
         """
         scale = x.std(axis=0)
         frame = pd.DataFrame(
@@ -349,9 +352,9 @@ class CauseSpecificCox(CoxLikelihoodMixin, HazardModel):
         frame[_EVENT] = event.astype(np.int8)
         frame[_WEIGHT] = weights
         fitter = CoxTimeVaryingFitter(penalizer=float(self.penalizer))
+        ours = {f"x{j}": name for j, name in enumerate(names)} | {_EVENT: cause}
         try:
-            with warnings.catch_warnings(record=True) as caught:
-                warnings.simplefilter("always")
+            with library_warnings("cox", cause, names=ours):
                 fitter.fit(
                     frame, event_col=_EVENT, start_col=_START, stop_col=_STOP, weights_col=_WEIGHT
                 )
@@ -367,11 +370,6 @@ class CauseSpecificCox(CoxLikelihoodMixin, HazardModel):
                     "events from non-events"
                 ),
             ) from exc
-        for warning in caught:
-            text = " ".join(str(warning.message).split())
-            text = re.sub(r"\bx(\d+)\b", lambda m: names[int(m.group(1))], text)
-            text = text.replace(_EVENT, cause)
-            log.warning("cox: %s: %s", cause, text)
         beta = fitter.params_.to_numpy(dtype=np.float64) / scale
         cov = fitter.variance_matrix_.to_numpy(dtype=np.float64) / np.outer(scale, scale)
         return beta, cov

@@ -10,6 +10,8 @@ from sksurv.ensemble import RandomSurvivalForest
 from sksurv.metrics import concordance_index_censored
 from sksurv.util import Surv
 
+from .._progress import progress
+from .._warnings import library_warnings
 from ..errors import InputError, UsageError
 from ._base import HazardModel
 from ._landmarks import TIME, UPTAKE_TIME_PREFIX, landmark_snapshots
@@ -147,11 +149,13 @@ class SurvivalForest(HazardModel):
         train = landmarks.loc[~held_out]
         self.encoder_ = _Encoder.learn(train, self.inputs_)
         self.forests_, self.n_rows_ = {}, {}
-        for cause in self.causes_:
+        for i, cause in enumerate(self.causes_):
+            progress("fit", i, len(self.causes_), f"forest: {cause}")
             rows, time, event = _outcome(train, cause)
-            self.forests_[cause], self.n_rows_[cause] = self._grow(
-                train.loc[rows], time, event, cause, rng
-            )
+            with library_warnings("forest", cause):
+                self.forests_[cause], self.n_rows_[cause] = self._grow(
+                    train.loc[rows], time, event, cause, rng
+                )
         self.feature_importances_ = self._importances(landmarks.loc[held_out], rng)
 
     def _hold_out(self, landmarks: pd.DataFrame, rng: np.random.Generator) -> np.ndarray:
