@@ -294,8 +294,8 @@ def _forecast_run(args: argparse.Namespace) -> None:
     from ..cycle import forecast_portfolio
 
     _check_table_path(args.out, csv_only=True)
-    tables, config, _, scored = _scored(args)
-    forecast = forecast_portfolio(tables, scored, config)
+    tables, config, model, scored = _scored(args)
+    forecast = forecast_portfolio(tables, scored, config, model)
     _write_table(args.out, forecast)
     print(f"wrote {args.out}: {len(forecast):,} rows")
 

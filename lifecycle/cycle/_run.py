@@ -199,6 +199,7 @@ def run_cycle(
                 families=families,
                 cutoffs=default_cutoffs(month, 12, count=settings.cutoffs),
                 config=config,
+                **_track_record_hook(tables, config),
             ),
         )  # fmt: skip
         champions = dict(
@@ -222,12 +223,16 @@ def run_cycle(
         plan = plan_contacts(tables, model, scored, config, offers=offers, expected_values=values)
         tick("forecast")
         if client is None:
-            forecast = forecast_portfolio(tables, scored, config)
+            forecast = forecast_portfolio(tables, scored, config, model)
+        forecast_track = _forecast_track(result)
         files = {
             "scores": write_csv_atomic(staging / "scores.csv", scored.scores),
             "plan": write_csv_atomic(staging / "contact_plan.csv", plan.table),
             "forecast": write_csv_atomic(staging / "uptake_forecast.csv", forecast),
             "backtest": write_csv_atomic(staging / "backtest_metrics.csv", result["metrics"]),
+            "forecast_backtest": write_csv_atomic(
+                staging / "forecast_backtest.csv", forecast_track
+            ),
         }
         summary = {
             "month": month,
@@ -246,6 +251,8 @@ def run_cycle(
         inputs = _report_inputs(
             tables, config, month, panel, scored, model, result, plan, forecast, history, previous
         )
+        inputs.forecast_track = forecast_track
+        inputs.uptake_history = _uptake_history(tables, month_index)
         files.update(write_report(inputs, staging))
         tick("history")
         # The month folder does not exist (checked above), so a stored month without one is
@@ -302,13 +309,13 @@ def _cached_backtest(
     one saved in the last months, else computed now and saved."""
     from .._files import write_parquet_atomic
 
-    names = ("metrics", "champions")
+    names = ("metrics", "champions", "forecasts")
     for cache in _scheduled(work / "cache", "backtest", month, fingerprint, every):
         if all((cache / f"{n}.parquet").is_file() for n in names):
             log.info("backtest: reusing %s (backtest every %d months)", cache, every)
             return {n: pd.read_parquet(cache / f"{n}.parquet") for n in names}
     result = compute()
-    out = {"metrics": result.metrics, "champions": result.champions}
+    out = {"metrics": result.metrics, "champions": result.champions, "forecasts": result.forecasts}
     cache = work / "cache" / f"backtest-{month}-{fingerprint[:16]}"
     for name, frame in out.items():
         write_parquet_atomic(cache / f"{name}.parquet", frame)
@@ -336,6 +343,40 @@ def _champion_model(work, fingerprint, month, panel, families, champions, refit_
     window = (str(panel["month"].min()), str(panel["month"].max()))
     save_model(model, folder, training_window=window, family="champion")
     return model
+
+
+def _track_record_hook(tables, config: Config) -> dict:
+    """The backtest's ``after_fit`` that keeps each fit's uptake forecast beside what happened
+    (the forecast's track record, made from the backtest's own fits)."""
+    from ..forecast import forecast_settings
+    from ..forecast._track import track_record_hook
+    from ..spatial import premise_areas
+
+    if not tables.products:
+        return {}
+    return {
+        "after_fit": track_record_hook(tables, config, premise_areas(tables, config)),
+        "after_fit_months": forecast_settings(config).horizon_months,
+    }
+
+
+def _uptake_history(tables, month: int, months: int = 24) -> pd.DataFrame:
+    """Uptakes realised in each of the last ``months`` months up to ``month``, per product."""
+    up = tables.uptakes
+    up = up[(up["month"] > month - months) & (up["month"] <= month)]
+    rows = [
+        {"product": p, "month": format_month(m), "realised": int(((up["product"] == p)
+                                                                  & (up["month"] == m)).sum())}
+        for p in tables.products
+        for m in range(month - months + 1, month + 1)
+    ]  # fmt: skip
+    return pd.DataFrame(rows, columns=["product", "month", "realised"])
+
+
+def _forecast_track(result: dict) -> pd.DataFrame:
+    from ..forecast._track import track_record
+
+    return track_record(result.get("forecasts"), result["champions"])
 
 
 def _publish(staging: Path, folder: Path, *, force: bool) -> None:

@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import dataclasses
 import logging
 from collections.abc import Callable, Iterable, Mapping, Sequence
 from dataclasses import dataclass
@@ -15,6 +16,7 @@ from ..config import Config
 from ..data import Tables
 from ..errors import UsageError
 from ..models import HazardModel
+from ..models._base import incidence_from_hazards
 from ..panel import build_panel, build_snapshot, panel_layout
 from ._calibration import calibration_table, lift_from_tables
 from ._metrics import brier_score, time_dependent_auc, uno_concordance
@@ -23,6 +25,8 @@ from ._outcomes import EVENT, observed_outcomes, outcome_for_cause
 log = logging.getLogger(__name__)
 
 PanelBuilder = Callable[[Tables, int, Config], pd.DataFrame]
+AfterFit = Callable[[str, int, HazardModel, pd.DataFrame, np.ndarray], "pd.DataFrame | None"]
+"""``(family, cutoff, fitted model, snapshot, hazards (n, T, K)) -> frame or None``."""
 METRICS = (
     "uno_c",
     "auc",
@@ -52,11 +56,15 @@ class BacktestResult:
         ``brier``; with both means.
     calibration
         Per family, cause, horizon and cutoff, the risk-decile table of `calibration_table`.
+    forecasts
+        What ``after_fit`` returned for each family and cutoff, stacked (e.g. the uptake
+        forecast each fit would have made; empty without ``after_fit``).
     """
 
     metrics: pd.DataFrame
     champions: pd.DataFrame
     calibration: pd.DataFrame
+    forecasts: pd.DataFrame = dataclasses.field(default_factory=pd.DataFrame)
 
 
 def backtest(
@@ -68,6 +76,8 @@ def backtest(
     config: Config | None = None,
     build_panel_fn: PanelBuilder | None = None,
     build_snapshot_fn: PanelBuilder | None = None,
+    after_fit: AfterFit | None = None,
+    after_fit_months: int = 0,
 ) -> BacktestResult:
     """Fit every family as of each past cutoff and score its predictions against what happened.
 
@@ -108,6 +118,11 @@ def backtest(
         `build_snapshot` plus spatial context if ``build_panel_fn`` is the default too, else the
         month-(c + 1) rows of ``build_panel_fn(tables, c + 1, config)`` with tenure ≥ 1, which
         hold exactly the features known at the end of c.
+    after_fit
+        Called with each fitted family, its cutoff, the snapshot and its hazards for months
+        1..max(max usable horizon, ``after_fit_months``), the ones the metrics come from; what
+        it returns is stacked into ``forecasts``, so that a track record needs no fit of its
+        own.
     """
     config = config or Config()
     families = _checked_families(families)
@@ -123,6 +138,7 @@ def backtest(
 
     rows: list[dict] = []
     tables_out: list[pd.DataFrame] = []
+    forecasts: list[pd.DataFrame] = []
     for cutoff in cutoffs:
         usable = [h for h in horizons if cutoff + h <= tables.extract_month]
         skipped = [h for h in horizons if h not in usable]
@@ -145,9 +161,13 @@ def backtest(
         for name, family in families.items():
             log.info("backtest %s: fitting %s", format_month(cutoff), name)
             model = clone(family).fit(panel)
-            incidence = model.predict_cumulative_incidence(snapshot, max(usable))
-            array = incidence.to_numpy().reshape(len(snapshot), max(usable), -1)
-            for j, cause in enumerate(incidence.columns):
+            hazards = model.hazard_array(snapshot, max(max(usable), after_fit_months))
+            array = incidence_from_hazards(hazards[:, : max(usable)], len(model.terminal_causes_))
+            if after_fit is not None:
+                made = after_fit(name, cutoff, model, snapshot, hazards)
+                if made is not None and len(made):
+                    forecasts.append(made.assign(family=name))
+            for j, cause in enumerate(model.causes_):
                 months, code, at_risk = outcome_for_cause(outcomes, cause)
                 if not at_risk.any():
                     log.info("backtest %s: nobody at risk of %s", format_month(cutoff), cause)
@@ -171,7 +191,10 @@ def backtest(
     if not calibration.empty:
         front = ["family", "cause", "horizon", "cutoff"]
         calibration = calibration[front + [c for c in calibration if c not in front]]
-    return BacktestResult(metrics=metrics, champions=champions(metrics), calibration=calibration)
+    made = pd.concat(forecasts, ignore_index=True) if forecasts else pd.DataFrame()
+    return BacktestResult(
+        metrics=metrics, champions=champions(metrics), calibration=calibration, forecasts=made
+    )
 
 
 def champions(metrics: pd.DataFrame) -> pd.DataFrame:
