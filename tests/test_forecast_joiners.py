@@ -70,7 +70,7 @@ def test_joiner_counts_recover_known_area_and_season_effects():
     model = fit_joiner_counts(np.array(starts), np.array(areas), n_months - 1, months=n_months)
     assert model.season and all(model.fitted)
     # every coefficient within 4 of its standard errors of the truth
-    truth = np.concatenate([level, season[1:]])
+    truth = np.concatenate([level, season[1:], [0.0]])  # no trend
     z = (model.fit.params - truth) / np.sqrt(np.diag(model.fit.cov))
     assert np.abs(z).max() < 4.0
     assert model.fit.alpha == pytest.approx(0.1, abs=0.04)
@@ -177,7 +177,7 @@ def test_forecast_settings_refuse_bad_values(setting, value):
 
 def test_forecast_settings_defaults():
     s = forecast_settings(Config(raw={}))
-    assert (s.joiners, s.joiner_months, s.draws, s.seed) == (True, 36, 200, 0)
+    assert (s.joiners, s.joiner_months, s.joiner_trend, s.draws, s.seed) == (True, 36, True, 200, 0)
 
 
 def test_joiner_counts_without_joiners_expect_none():

@@ -251,7 +251,7 @@ def run_cycle(
         inputs = _report_inputs(
             tables, config, month, panel, scored, model, result, plan, forecast, history, previous
         )
-        inputs.forecast_track = forecast_track
+        inputs.forecast_track = result["forecasts"]  # every family: shown side by side
         inputs.uptake_history = _uptake_history(tables, month_index)
         files.update(write_report(inputs, staging))
         tick("history")

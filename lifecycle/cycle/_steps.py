@@ -264,6 +264,7 @@ def forecast_extras(
         horizon=settings.horizon_months,
         joiners=settings.joiners,
         joiner_months=settings.joiner_months,
+        joiner_trend=settings.joiner_trend,
         draws=settings.draws,
         seed=settings.seed,
         window_months=int(config.panel.window_months),

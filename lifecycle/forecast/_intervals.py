@@ -20,7 +20,7 @@ from __future__ import annotations
 import math
 
 import numpy as np
-from scipy import stats
+from scipy import special
 
 _SPAN_SD = 12.0
 _SPAN_ADD = 30.0
@@ -35,10 +35,14 @@ def joiner_pmf(mean: float, var: float) -> np.ndarray:
     top = math.ceil(mean + _SPAN_SD * math.sqrt(max(var, mean)) + _SPAN_ADD)
     ks = np.arange(top + 1)
     if var <= mean * (1.0 + 1e-9):
-        pmf = stats.poisson.pmf(ks, mean)
+        log_pmf = ks * math.log(mean) - mean - special.gammaln(ks + 1.0)
     else:
         r = mean * mean / (var - mean)
-        pmf = stats.nbinom.pmf(ks, r, r / (r + mean))
+        log_pmf = (
+            special.gammaln(ks + r) - special.gammaln(r) - special.gammaln(ks + 1.0)
+            + r * math.log(r / (r + mean)) + ks * math.log(mean / (r + mean))
+        )  # fmt: skip
+    pmf = np.exp(log_pmf)
     return pmf / pmf.sum()
 
 

@@ -4,8 +4,10 @@ take each product up within the forecast horizon.
 Joiner counts. The number of customers starting in month m in area a is negative binomial
 (NB2, `fit_negative_binomial`) with
 
-    ln μ_{a,m} = β_a + γ_{moy(m)}          (γ_January = 0; month-of-year terms only when at
-                                            least 24 months are fitted)
+    ln μ_{a,m} = β_a + γ_{moy(m)} + δ·(m − as_of)/12
+
+(γ_January = 0; month-of-year terms only when at least 24 months are fitted; the trend δ per
+year, common to all areas, only with ``trend`` and at least 12 months)
 
 fitted on the last ``months`` months up to ``as_of`` (from the first month whose leavers the
 customers table lists, since an export usually omits customers who left before it begins).
@@ -65,6 +67,7 @@ class JoinerCounts:
     season: bool
     fit: CountFit | None
     window: tuple[int, int]
+    trend: bool = False
 
     def design(self, months: np.ndarray) -> np.ndarray:
         """Design ``(A_fitted · len(months), p)``: area-major rows of the fitted areas."""
@@ -72,13 +75,15 @@ class JoinerCounts:
         months = np.asarray(months, dtype=np.int64)
         area = np.repeat(np.arange(n_areas), months.size)
         month = np.tile(months, n_areas)
-        width = n_areas + (11 if self.season else 0)
+        width = n_areas + (11 if self.season else 0) + (1 if self.trend else 0)
         x = np.zeros((area.size, width))
         x[np.arange(area.size), area] = 1.0
         if self.season:
             moy = month % 12
             rows = np.flatnonzero(moy > 0)
             x[rows, n_areas + moy[rows] - 1] = 1.0
+        if self.trend:
+            x[:, -1] = (month - self.window[1]) / 12.0
         return x
 
     def expected(self, months: np.ndarray, params: np.ndarray | None = None) -> np.ndarray:
@@ -109,6 +114,7 @@ def fit_joiner_counts(
     all_areas: Sequence[object] | None = None,
     months: int = DEFAULT_JOINER_MONTHS,
     first_complete: int | None = None,
+    trend: bool = True,
 ) -> JoinerCounts:
     """Fit the monthly joiner counts by area up to ``as_of`` (see the module docstring).
 
@@ -126,6 +132,8 @@ def fit_joiner_counts(
         Months fitted, ending at ``as_of``.
     first_complete
         The first month whose joiners are all listed (default: no limit).
+    trend
+        Fit a common log-linear trend (with at least 12 months).
     """
     starts = np.asarray(starts, dtype=np.int64)
     labels = pd.Series(np.asarray(areas, dtype=object)).astype(str).to_numpy(dtype=object)
@@ -144,7 +152,10 @@ def fit_joiner_counts(
     np.add.at(counts, (codes, starts[keep] - first), 1.0)
     fitted = counts.sum(axis=1) > 0
     season = window.size >= 24
-    model = JoinerCounts(tuple(names), tuple(bool(f) for f in fitted), season, None, (first, as_of))
+    model = JoinerCounts(
+        tuple(names), tuple(bool(f) for f in fitted), season, None, (first, as_of),
+        trend=bool(trend and window.size >= 12),
+    )  # fmt: skip
     if not fitted.any():
         log.info("joiners: nobody joined in the %d months fitted; none expected", window.size)
         return model
@@ -154,7 +165,7 @@ def fit_joiner_counts(
         "joiners: %d joined in %d months over %d areas; NB2 dispersion %.3f",
         int(counts.sum()), window.size, int(fitted.sum()), fit.alpha,
     )  # fmt: skip
-    return JoinerCounts(model.areas, model.fitted, season, fit, model.window)
+    return JoinerCounts(model.areas, model.fitted, season, fit, model.window, model.trend)
 
 
 @dataclass(frozen=True)
@@ -237,15 +248,73 @@ def as_joiners(templates: pd.DataFrame) -> pd.DataFrame:
     return out.reset_index(drop=True)
 
 
-def level_draws(events: Mapping[str, float], draws: int, seed: int) -> dict[str, np.ndarray]:
-    """Log-level draws ε_b ~ N(0, 1/D) of each product's uptake hazard, D its uptake events in
-    the fitted panel: the uncertainty of a hazard's overall level, as for a Poisson rate
-    estimated from D events (``{}`` without draws)."""
+def level_draws(
+    events: Mapping[str, float],
+    draws: int,
+    seed: int,
+    *,
+    drift: Mapping[str, tuple[float, float]] | None = None,
+    horizon: int = 1,
+) -> dict[str, np.ndarray]:
+    """Log-level draws ε_b,t of each product's uptake hazard in forecast months t = 1..horizon,
+    ``(draws, horizon)`` (``{}`` without draws):
+
+        ε_b,t = ε_b + δ_b·t,   ε_b ~ N(0, 1/D),   δ_b ~ N(0, b̂² + se(b̂)²).
+
+    1/D is the variance of the hazard's overall level estimated from D uptake events (as for a
+    Poisson rate); δ is a drift of the level during the horizon, as fast as the product's
+    observed uptake rate moved per month lately (b̂, from `uptake_rate_drift`), either way:
+    covariates are held at their values at the start of the forecast, so a level that keeps
+    moving (e.g. as neighbours adopt) is something the models do not know."""
     if not draws:
         return {}
     out = {}
+    t = np.arange(1, horizon + 1, dtype=np.float64)
     for i, (product, d) in enumerate(sorted(events.items())):
         rng = np.random.default_rng([seed, 16, 3, i])
         sd = 1.0 / np.sqrt(max(float(d), 1.0))
-        out[product] = sd * rng.standard_normal(draws)
+        level = sd * rng.standard_normal(draws)
+        slope, se = (drift or {}).get(product, (0.0, 0.0))
+        step = np.hypot(slope, se) * rng.standard_normal(draws)
+        out[product] = level[:, None] + step[:, None] * t[None, :]
     return out
+
+
+def uptake_rate_drift(
+    starts: np.ndarray,
+    ends: np.ndarray,
+    taken: np.ndarray,
+    as_of: int,
+    months: int = 24,
+) -> tuple[float, float]:
+    """Slope b̂ (per month) of the log monthly uptake rate over the last ``months`` months up
+    to ``as_of``, and its standard error: Poisson regression of the month's uptakes on
+    a + b·(m − as_of) with the log of the customers at risk (active, not holding the product)
+    as offset.
+
+    ``starts``, ``ends`` (NaN while active) and ``taken`` (uptake month, NaN if never) are per
+    customer."""
+    m = np.arange(as_of - months + 1, as_of + 1)
+    starts = np.asarray(starts, dtype=np.float64)[:, None]
+    ends = np.nan_to_num(np.asarray(ends, dtype=np.float64), nan=np.inf)[:, None]
+    taken = np.nan_to_num(np.asarray(taken, dtype=np.float64), nan=np.inf)[:, None]
+    active = (starts <= m) & (ends >= m)
+    at_risk = (active & (taken >= m)).sum(axis=0).astype(np.float64)
+    events = (active & (taken == m)).sum(axis=0).astype(np.float64)
+    keep = at_risk > 0
+    if keep.sum() < 3 or events[keep].sum() < 1:
+        return 0.0, 0.0
+    x = np.column_stack([np.ones(keep.sum()), (m[keep] - as_of).astype(np.float64)])
+    offset = np.log(at_risk[keep])
+    y = events[keep]
+    beta = np.array([np.log(y.sum() / at_risk[keep].sum()), 0.0])
+    for _ in range(50):
+        mu = np.exp(offset + x @ beta)
+        info = (x * mu[:, None]).T @ x
+        step = np.linalg.solve(info, x.T @ (y - mu))
+        beta += step
+        if np.max(np.abs(step)) < 1e-12:
+            break
+    mu = np.exp(offset + x @ beta)
+    cov = np.linalg.inv((x * mu[:, None]).T @ x)
+    return float(beta[1]), float(np.sqrt(cov[1, 1]))

@@ -20,6 +20,7 @@ from ._joiners import (
     joiner_uptake,
     level_draws,
     template_rows,
+    uptake_rate_drift,
 )
 
 log = logging.getLogger(__name__)
@@ -46,6 +47,7 @@ def forecast_extras(
     horizon: int,
     joiners: bool = True,
     joiner_months: int = 36,
+    joiner_trend: bool = True,
     draws: int = 200,
     seed: int = 0,
     window_months: int = 48,
@@ -64,8 +66,9 @@ def forecast_extras(
         Area of every customer in ``tables.customers`` (`lifecycle.spatial.premise_areas`).
     horizon
         Months forecast.
-    joiners, joiner_months
-        Whether to forecast joiners, and how many months of joiner counts to fit.
+    joiners, joiner_months, joiner_trend
+        Whether to forecast joiners, how many months of joiner counts to fit, and whether
+        with a trend.
     draws, seed
         Draws of what is not known about the models (0: none).
     window_months
@@ -75,7 +78,17 @@ def forecast_extras(
     uptakes = tables.uptakes
     recent = uptakes[(uptakes["month"] > as_of - window_months) & (uptakes["month"] <= as_of)]
     events = {p: float((recent["product"] == p).sum()) for p in products}
-    levels = level_draws(events, draws, seed) or None
+    drift = {}
+    if draws:
+        customers = tables.customers
+        for p in products:
+            mine = uptakes[uptakes["product"] == p].set_index("customer_id")["month"]
+            taken = mine.reindex(customers["customer_id"].to_numpy()).to_numpy(dtype=np.float64)
+            drift[p] = uptake_rate_drift(
+                customers["start"].to_numpy(), customers["end"].to_numpy(), taken, as_of
+            )
+            log.info("uptake of %s: level drift %.4f (se %.4f) a month lately", p, *drift[p])
+    levels = level_draws(events, draws, seed, drift=drift, horizon=horizon) or None
     if not joiners or len(snapshot) == 0:
         return ForecastExtras(None, levels)
     customers = tables.customers
@@ -89,6 +102,7 @@ def forecast_extras(
         all_areas=tables.areas["area_id"].astype(str).tolist(),
         months=joiner_months,
         first_complete=first_complete,
+        trend=joiner_trend,
     )
     curves = joiner_curves(model, snapshot, customer_areas, horizon, seed=seed)
     parts = joiner_uptake(counts, curves, as_of + 1, horizon, draws=draws, seed=seed)

@@ -51,6 +51,7 @@ def track_record_hook(tables: Tables, config: Config, customer_areas: pd.Series)
         extras = forecast_extras(
             known[cutoff], model, snapshot, customer_areas, as_of=cutoff, horizon=horizon,
             joiners=settings.joiners, joiner_months=settings.joiner_months,
+            joiner_trend=settings.joiner_trend,
             draws=settings.draws, seed=settings.seed,
             window_months=int(config.panel.window_months),
         )  # fmt: skip

@@ -10,6 +10,7 @@ Settings in ``lifecycle.toml`` (all optional)::
     exact_max = 20000          # auto computes groups up to this size exactly
     joiners = true             # add the uptakes of customers who join during the horizon
     joiner_months = 36         # months of joiner counts fitted, whole number in [1, 240]
+    joiner_trend = true        # joiner counts with a log-linear trend (with >= 12 months)
     draws = 200                # draws of what is not known about the models (hazard level,
                                # joiner counts) mixed into the intervals; 0: outcome noise only
     seed = 0                   # seed of those draws
@@ -53,6 +54,7 @@ class ForecastSettings:
     exact_max: int = EXACT_MAX
     joiners: bool = True
     joiner_months: int = 36
+    joiner_trend: bool = True
     draws: int = 200
     seed: int = 0
 
@@ -64,8 +66,8 @@ def forecast_settings(config: Config) -> ForecastSettings:
     if not isinstance(raw, dict):
         raise UsageError(f"{src}: [forecast] must be a table of settings")
     allowed = [
-        "draws", "exact_max", "horizon_months", "joiner_months", "joiners", "levels", "method",
-        "seed",
+        "draws", "exact_max", "horizon_months", "joiner_months", "joiner_trend", "joiners",
+        "levels", "method", "seed",
     ]  # fmt: skip
     unknown = sorted(set(raw) - set(allowed))
     if unknown:
@@ -90,9 +92,13 @@ def forecast_settings(config: Config) -> ForecastSettings:
             f"{src}: [forecast] exact_max was {exact_max!r} but is expected to be a whole "
             "number >= 0"
         )
-    joiners = raw.get("joiners", True)
-    if not isinstance(joiners, bool):
-        raise UsageError(f"{src}: [forecast] joiners was {joiners!r} but is expected true or false")
+    flags = {}
+    for key in ("joiners", "joiner_trend"):
+        flags[key] = raw.get(key, True)
+        if not isinstance(flags[key], bool):
+            raise UsageError(
+                f"{src}: [forecast] {key} was {flags[key]!r} but is expected true or false"
+            )
     whole = {"joiner_months": (36, 1, 240), "draws": (200, 0, 10_000), "seed": (0, 0, 2**32 - 1)}
     numbers_ = {}
     for key, (default, lo, hi) in whole.items():
@@ -104,7 +110,7 @@ def forecast_settings(config: Config) -> ForecastSettings:
             )
         numbers_[key] = int(value)
     return ForecastSettings(
-        joiners=joiners,
+        **flags,
         **numbers_,
         horizon_months=int(horizon),
         levels=_levels(levels, f"{src}: [forecast] levels"),
@@ -152,10 +158,11 @@ def forecast_uptake(
     With ``joiners`` (`lifecycle.forecast.joiner_uptake`: customers who join during the
     horizon), each group's count is the current customers' plus the joiners' (negative
     binomial, independent), ``expected = expected_current + expected_joiners``. With
-    ``level_draws`` (B log-level draws ε_b of each product's uptake hazard) and the joiners'
-    own coefficient draws, the intervals are those of the mixture over the B draws of the
-    expected count, e^{ε_b}·(current + joiners_b) (`lifecycle.forecast._intervals`), so they
-    carry what is not known about the models as well as the outcome noise.
+    ``level_draws`` (B log-level draws ε_b of each product's uptake hazard, ``(B,)``, or per
+    month ``(B, T)``) and the joiners' own coefficient draws, the intervals are those of the
+    mixture over the B draws of the expected count, Σ_t e^{ε_b,t}·(current_t + joiners_b,t)
+    (`lifecycle.forecast._intervals`), so they carry what is not known about the models as
+    well as the outcome noise.
 
     Parameters
     ----------
@@ -206,7 +213,7 @@ def forecast_uptake(
         levels_b = None if not level_draws else np.asarray(level_draws[product], dtype=float)
         for area, rows in groups:
             extra = _joiner_part(joiners, product, area, horizon_)
-            frame = pd.DataFrame({"month": months, "area_id": area, "product": product})
+            frame = {"month": months, "area_id": area, "product": product}
             for kind, prefix, probs in ((0, "", monthly), (1, "cumulative_", cum)):
                 current = probs[rows].sum(axis=0)
                 joining = extra.mean[kind] if extra is not None else np.zeros(horizon_)
@@ -217,10 +224,10 @@ def forecast_uptake(
                     bounds = _bounds(probs, rows, refits, h, j, bool(kind), quantiles, method,
                                      exact_max)  # fmt: skip
                 else:
-                    bounds = _combined(probs[rows].T, extra, kind, levels_b, quantiles, method,
-                                       exact_max)  # fmt: skip
+                    bounds = _combined(probs[rows].T, monthly[rows].sum(axis=0), extra, kind,
+                                       levels_b, quantiles, method, exact_max)  # fmt: skip
                 _put(frame, prefix, level_list, bounds)
-            parts.append(frame)
+            parts.append(pd.DataFrame(frame))
         log.info(
             "uptake forecast for %s: %.1f expected adopters among %d customers over %d months "
             "from %s",
@@ -260,6 +267,7 @@ def _bounds(
 
 def _combined(
     probs: np.ndarray,
+    current_monthly: np.ndarray,
     extra: JoinerPart | None,
     kind: int,
     levels_b: np.ndarray | None,
@@ -268,23 +276,35 @@ def _combined(
     exact_max: int,
 ) -> np.ndarray:
     """Quantiles ``(months, len(quantiles))`` of current plus joiners' uptakes, over the draws
-    of the expected count (`lifecycle.forecast._intervals.combined_quantiles`)."""
+    of the expected count (`lifecycle.forecast._intervals.combined_quantiles`).
+
+    Draw b scales month t's expected uptakes (current and joiners', the joiners' at their own
+    drawn coefficients) by e^{ε_b,t}; the cumulative expected count of draw b is the sum of
+    its months."""
     lo, cdf = grid_cdf(probs, _method(method, probs, exact_max))
-    current = probs.sum(axis=1)
+    horizon = current_monthly.size
     mean = var = shifts = None
-    joining = np.zeros_like(current)
+    joining = np.zeros(horizon)
     joining_b = None
     if extra is not None:
-        mean, var, joining = extra.mean[kind], extra.var[kind], extra.mean[kind]
+        mean, var, joining = extra.mean[kind], extra.var[kind], extra.mean[0]
         if extra.draws is not None:
-            joining_b = extra.draws[:, kind].T  # (months, B)
+            joining_b = extra.draws[:, 0]  # (B, months), monthly
     if levels_b is not None or joining_b is not None:
-        b = levels_b.size if levels_b is not None else joining_b.shape[1]
-        scale = np.exp(levels_b)[None, :] if levels_b is not None else np.ones((1, b))
-        drawn = joining_b if joining_b is not None else np.repeat(joining[:, None], b, axis=1)
-        if drawn.shape[1] != b:
-            raise UsageError(f"{drawn.shape[1]} joiner draws but {b} level draws")
-        shifts = scale * (current[:, None] + drawn) - (current + joining)[:, None]
+        b = levels_b.shape[0] if levels_b is not None else joining_b.shape[0]
+        if levels_b is None:
+            scale = np.ones((b, horizon))
+        else:
+            eps = levels_b if levels_b.ndim == 2 else np.repeat(levels_b[:, None], horizon, 1)
+            scale = np.exp(eps[:, :horizon])
+        drawn = joining_b if joining_b is not None else np.broadcast_to(joining, (b, horizon))
+        if drawn.shape[0] != b:
+            raise UsageError(f"{drawn.shape[0]} joiner draws but {b} level draws")
+        totals = scale * (current_monthly[None, :] + drawn)  # (B, months)
+        expected = current_monthly + joining
+        if kind:
+            totals, expected = np.cumsum(totals, axis=1), np.cumsum(expected)
+        shifts = (totals - expected[None, :]).T
     qs = np.asarray(quantiles, dtype=np.float64)
     return combined_quantiles(lo, cdf, qs, add_mean=mean, add_var=var, shifts=shifts)
 
@@ -304,7 +324,7 @@ def _joiner_part(
     return JoinerPart(part.mean[:, cut], part.var[:, cut], draws)
 
 
-def _put(frame: pd.DataFrame, prefix: str, levels: tuple[float, ...], bounds: np.ndarray) -> None:
+def _put(frame: dict, prefix: str, levels: tuple[float, ...], bounds: np.ndarray) -> None:
     for i, level in enumerate(levels):
         suffix = level_suffix(level)
         frame[f"{prefix}lower_{suffix}"] = bounds[:, 2 * i]
