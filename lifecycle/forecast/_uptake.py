@@ -14,6 +14,8 @@ Settings in ``lifecycle.toml`` (all optional)::
     draws = 200                # draws of what is not known about the models (hazard level,
                                # joiner counts) mixed into the intervals; 0: outcome noise only
     seed = 0                   # seed of those draws
+
+    [forecast.launch]          # a launch without history (see lifecycle.forecast._bass)
 """
 
 from __future__ import annotations
@@ -67,7 +69,7 @@ def forecast_settings(config: Config) -> ForecastSettings:
         raise UsageError(f"{src}: [forecast] must be a table of settings")
     allowed = [
         "draws", "exact_max", "horizon_months", "joiner_months", "joiner_trend", "joiners",
-        "levels", "method", "seed",
+        "launch", "levels", "method", "seed",
     ]  # fmt: skip
     unknown = sorted(set(raw) - set(allowed))
     if unknown:
