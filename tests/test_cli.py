@@ -106,6 +106,17 @@ def test_model_commands_on_a_small_demo(tmp_path, capsys):
     assert main(["forecast", *common, "--model", str(model), "--out", str(out)]) == 0
     forecast = pd.read_csv(out)
     assert {"month", "area_id", "product", "expected", "lower_90", "upper_90"} <= set(forecast)
+    assert {"expected_current", "expected_joiners"} <= set(forecast)
+    # a launch without history, from the comparable product in the data
+    launch = tmp_path / "launch.csv"
+    args = ["--launch-month", "2026-12", "--comparable", "backup_line", "--launch-name", "new"]
+    assert main(["forecast", *common, "--model", str(model), "--out", str(launch), *args]) == 0
+    launched = pd.read_csv(launch)
+    assert set(launched["product"]) == {"new"} and launched["month"].iloc[0] == "2026-12"
+    bad = tmp_path / "bad.csv"
+    args = ["--launch-month", "2026-09", "--comparable", "backup_line"]
+    assert main(["forecast", *common, "--model", str(model), "--out", str(bad), *args]) == 2
+    assert not bad.exists()
     backtest = tmp_path / "b.csv"
     args = ["backtest", *common, "--families", "boosted", "--horizons", "3", "--out", str(backtest)]
     assert main(args) == 0

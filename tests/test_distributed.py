@@ -20,6 +20,8 @@ from hypothesis import strategies as st
 from scipy.spatial import cKDTree
 
 from lifecycle.config import Config, load_config
+from lifecycle.cycle import Scored
+from lifecycle.cycle._steps import forecast_extras
 from lifecycle.data import load_tables, read_raw_tables
 from lifecycle.decisions import Offer
 from lifecycle.demo import write_demo
@@ -227,6 +229,17 @@ def test_scores_values_and_forecast_equal_the_single_process_ones(data, model, s
     )  # fmt: skip
     got = forecast_portfolio(data, scored)
     assert got["area_id"].nunique() > 2  # the total and several areas
+    pd.testing.assert_frame_equal(got, expected_forecast, rtol=1e-9, atol=1e-9)
+
+    # with the joiners and the draws of the models' uncertainty (computed once, driver-side)
+    extras = forecast_extras(tables, model, Scored(snapshot, None, (), 0, None), config)
+    assert extras["joiners"] and extras["level_draws"]
+    expected_forecast = forecast_uptake(
+        hazards[:, : fc.horizon_months], model.causes_, start_month="2026-11", areas=areas,
+        levels=fc.levels, method=fc.method, exact_max=fc.exact_max, customer_ids=ids, **extras,
+    )  # fmt: skip
+    got = forecast_portfolio(data, scored, extras=extras)
+    assert (got["expected_joiners"] > 0).any()
     pd.testing.assert_frame_equal(got, expected_forecast, rtol=1e-9, atol=1e-9)
 
 

@@ -26,6 +26,22 @@ def test_public_names_are_pinned():
         assert hasattr(lifecycle, name), name
 
 
+FORECAST = {
+    "ForecastSettings", "ShiftedBetaGeometric", "fan_chart", "fit_shifted_beta_geometric",
+    "forecast_coverage", "forecast_settings", "forecast_uptake", "mixture_quantiles",
+    "poisson_binomial_cdf", "poisson_binomial_pmf", "poisson_binomial_quantiles",
+    "save_fan_chart", "track_record",
+}  # fmt: skip
+
+
+def test_forecast_names_are_pinned():
+    import lifecycle.forecast as forecast
+
+    assert set(forecast.__all__) == FORECAST
+    for name in forecast.__all__:
+        assert inspect.getdoc(getattr(forecast, name)), f"{name} has no docstring"
+
+
 def test_public_functions_are_documented_and_typed():
     for name in lifecycle.__all__:
         obj = getattr(lifecycle, name)

@@ -31,6 +31,7 @@ from hypothesis import strategies as st
 from PIL import Image
 from scipy import stats
 
+from lifecycle._months import parse_month
 from lifecycle.errors import InputError, UsageError
 from lifecycle.report import (
     _html,
@@ -62,6 +63,7 @@ SECTIONS = [
     "drivers",
     "drift",
     "forecast",
+    "forecast-track",
     "plan",
     "cautions",
 ]
@@ -297,12 +299,14 @@ def report_case(tmp_path_factory):
 def _make_case(root: Path) -> SimpleNamespace:
     """Inputs built on a small demo: panel, boosted and Cox fits, a small forest, a backtest,
     a plan and a forecast (everything the report shows), and the page rendered from them."""
+    from lifecycle._months import format_month
     from lifecycle.config import load_config
     from lifecycle.data import load_tables
     from lifecycle.decisions import make_plan, offers_from_config, plan_settings_from_config
     from lifecycle.demo import write_demo
     from lifecycle.evaluation import TenureLifeTable, backtest, observed_outcomes
     from lifecycle.forecast import forecast_uptake
+    from lifecycle.forecast._track import track_record_hook
     from lifecycle.models import BoostedHazard, CauseSpecificCox, SurvivalForest, score_customers
     from lifecycle.panel import build_panel, build_snapshot
     from lifecycle.spatial import add_spatial_context, premise_areas
@@ -338,6 +342,8 @@ def _make_case(root: Path) -> SimpleNamespace:
         cutoffs=["2026-04"],
         horizons=(3,),
         config=config,
+        after_fit=track_record_hook(tables, config, premise_areas(tables, config)),
+        after_fit_months=12,
     )
     hazards = model.predict_hazard(snapshot, 24)
     offers = offers_from_config(plan_config)
@@ -394,6 +400,11 @@ def _make_case(root: Path) -> SimpleNamespace:
         decile_summary={"cause": "churn", "horizon": 1},
         notes=["Invented demo data."],
     )
+    inputs.forecast_track = result.forecasts
+    inputs.uptake_history = (
+        tables.uptakes.assign(month=tables.uptakes["month"].map(format_month))
+        .groupby(["product", "month"]).size().rename("realised").reset_index().tail(24)
+    )  # fmt: skip
     html, key = render_report(inputs)
     return SimpleNamespace(
         inputs=inputs,
@@ -461,6 +472,27 @@ def test_every_section_is_there_and_has_content(report_case):
     for name in ("portfolio", "tenure", "risk-map", "accuracy", "drivers", "drift", "plan"):
         assert page.sections[name]["images"] >= 1, name
     assert page.sections["forecast"]["images"] == 2  # monthly and cumulative fan charts
+    assert page.sections["forecast-track"]["tables"] == 2  # the record, the families
+
+
+def test_the_forecast_track_record_sets_past_forecasts_beside_what_happened(report_case):
+    forecasts = report_case.backtest.forecasts
+    # the backtest's own fits: one forecast per family at the cutoff, 6 months observed
+    assert sorted(forecasts["family"].unique()) == ["boosted", "life_table"]
+    assert (forecasts.groupby("family").size() == 6).all()
+    assert set(forecasts["made_at"]) == {"2026-04"}
+    # realised: the uptakes of the months after the cutoff, counted from the table
+    tables = report_case.tables
+    up = tables.uptakes
+    later = up[(up["month"] > parse_month("2026-04")) & (up["month"] <= parse_month("2026-10"))]
+    one = forecasts[forecasts["family"] == "boosted"]
+    assert one["realised"].sum() == len(later)
+    assert one["cumulative_realised"].iloc[-1] == len(later)
+    assert (one["expected"] - one["expected_current"] - one["expected_joiners"]).abs().max() < 1e-9
+    assert (one["cumulative_lower_90"] <= one["cumulative_expected"]).all()
+    assert (one["cumulative_expected"] <= one["cumulative_upper_90"]).all()
+    figures = report_case.key["forecast_track"]["backup_line"]
+    assert figures["months"] == 6 and 0.0 <= figures["coverage_cumulative"] <= 1.0
 
 
 def test_every_image_is_an_embedded_png_and_nothing_is_fetched(report_case):

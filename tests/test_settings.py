@@ -77,6 +77,7 @@ FAULTS = [
 def test_a_bad_setting_exits_2_naming_it_and_writes_nothing(data, tmp_path, capsys, lines, parts):
     config = data / "lifecycle.toml"
     config.write_text(lines + "\n" + config.read_text())  # first: a top-level key stays one
+    (tmp_path / "out").mkdir()
     out = tmp_path / "out" / "panel.parquet"
     before = _listing(tmp_path)
     assert main(["panel", str(data), "--as-of", "2026-03", "--out", str(out)]) == 2

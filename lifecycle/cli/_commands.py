@@ -331,19 +331,61 @@ PLAN = Command(
 )  # fmt: skip
 
 
+def _forecast_arguments(p: argparse.ArgumentParser) -> None:
+    _decision_arguments(p)
+    p.add_argument(
+        "--launch-month",
+        help="forecast a product launched in this month (YYYY-MM, after --as-of) by the Bass "
+        "diffusion model instead of the products in the data",
+    )
+    p.add_argument(
+        "--comparable",
+        help="with --launch-month: a past product in the data whose uptake curve sets the "
+        "launch's innovation, imitation (by area) and market share (default: [forecast.launch])",
+    )
+    p.add_argument("--launch-name", default="launch", help="product name of the launch")
+
+
 def _forecast_run(args: argparse.Namespace) -> None:
     from ..cycle import forecast_portfolio
 
     _check_table_path(args.out, csv_only=True)
-    tables, config, _, scored = _scored(args)
-    forecast = forecast_portfolio(tables, scored, config)
+    if args.launch_month is None:
+        if args.comparable is not None:
+            raise UsageError("--comparable needs --launch-month (the month the product launches)")
+        tables, config, model, scored = _scored(args)
+        forecast = forecast_portfolio(tables, scored, config, model)
+    else:
+        forecast = _launch(args)
     _write_table(args.out, forecast)
     print(f"wrote {args.out}: {len(forecast):,} rows")
 
 
+def _launch(args: argparse.Namespace):
+    from ..data import tables_as_of
+    from ..forecast import forecast_settings
+    from ..forecast._bass import launch_forecast, launch_settings
+    from ..spatial import premise_areas
+
+    as_of = parse_month(args.as_of, what="--as-of")
+    launch = parse_month(args.launch_month, what="--launch-month")
+    if launch <= as_of:
+        raise UsageError(
+            f"--launch-month was {args.launch_month} but must come after --as-of {args.as_of}"
+        )
+    tables, config = _load(args)
+    tables = tables_as_of(tables, as_of)
+    settings = forecast_settings(config)
+    return launch_forecast(
+        tables, premise_areas(tables, config), launch_month=launch,
+        horizon=settings.horizon_months, name=args.launch_name, comparable=args.comparable,
+        settings=launch_settings(config), levels=settings.levels,
+    )  # fmt: skip
+
+
 FORECAST = Command(
-    "forecast", "expected uptakes by month and area with 90%% intervals", _decision_arguments,
-    _forecast_run,
+    "forecast", "expected uptakes by month and area with 90%% intervals (or of a launch)",
+    _forecast_arguments, _forecast_run,
 )  # fmt: skip
 
 

@@ -256,6 +256,7 @@ def _locked_run(source, config, settings, as_of, force, tick, client, history) -
                 cutoffs=default_cutoffs(month, 12, count=settings.cutoffs),
                 config=config,
                 min_events=min_events,
+                **_track_record_hook(tables, config),
             ),
         )  # fmt: skip
         previous = history.previous_month(month)
@@ -284,12 +285,16 @@ def _locked_run(source, config, settings, as_of, force, tick, client, history) -
         plan = plan_contacts(tables, model, scored, config, offers=offers, expected_values=values)
         tick("forecast")
         if client is None:
-            forecast = forecast_portfolio(tables, scored, config)
+            forecast = forecast_portfolio(tables, scored, config, model)
+        forecast_track = _forecast_track(result)
         files = {
             "scores": write_csv_atomic(staging / "scores.csv", round_money(scored.scores)),
             "plan": write_csv_atomic(staging / "contact_plan.csv", round_money(plan.table)),
             "forecast": write_csv_atomic(staging / "uptake_forecast.csv", forecast),
             "backtest": write_csv_atomic(staging / "backtest_metrics.csv", result["metrics"]),
+            "forecast_backtest": write_csv_atomic(
+                staging / "forecast_backtest.csv", forecast_track
+            ),
         }
         summary = {
             "month": month,
@@ -306,6 +311,8 @@ def _locked_run(source, config, settings, as_of, force, tick, client, history) -
         inputs = _report_inputs(
             tables, config, month, panel, scored, model, result, plan, forecast, history, previous
         )
+        inputs.forecast_track = result["forecasts"]  # every family: shown side by side
+        inputs.uptake_history = _uptake_history(tables, month_index)
         files.update(write_report(inputs, staging))
         tick("publish")
         entry = HistoryEntry(
@@ -363,7 +370,7 @@ def _cached_backtest(work: Path, keys, every: int, force: bool, saves, compute):
     one saved in the last months with the same settings, else computed now (and saved once
     the month is published). ``force`` recomputes the month's own saved step (one saved in an
     earlier month is still taken on the schedule)."""
-    names = ("metrics", "champions", "importances")
+    names = ("metrics", "champions", "importances", "forecasts")
     folder = work / "cache"
     for cache in candidates(folder, "backtest", *keys, every)[force:]:
         frames = load_frames(cache, names)
@@ -375,6 +382,7 @@ def _cached_backtest(work: Path, keys, every: int, force: bool, saves, compute):
         "metrics": result.metrics,
         "champions": result.champions,
         "importances": result.importances,
+        "forecasts": result.forecasts,
     }
     saves.append((folder / entry_name("backtest", *keys), lambda tmp: save_frames(tmp, out)))
     return out
@@ -418,6 +426,40 @@ def _champion_model(work, keys, panel, families, champions, refit_months, force,
         )
     )
     return model
+
+
+def _track_record_hook(tables, config: Config) -> dict:
+    """The backtest's ``after_fit`` that keeps each fit's uptake forecast beside what happened
+    (the forecast's track record, made from the backtest's own fits)."""
+    from ..forecast import forecast_settings
+    from ..forecast._track import track_record_hook
+    from ..spatial import premise_areas
+
+    if not tables.products:
+        return {}
+    return {
+        "after_fit": track_record_hook(tables, config, premise_areas(tables, config)),
+        "after_fit_months": forecast_settings(config).horizon_months,
+    }
+
+
+def _uptake_history(tables, month: int, months: int = 24) -> pd.DataFrame:
+    """Uptakes realised in each of the last ``months`` months up to ``month``, per product."""
+    up = tables.uptakes
+    up = up[(up["month"] > month - months) & (up["month"] <= month)]
+    rows = [
+        {"product": p, "month": format_month(m), "realised": int(((up["product"] == p)
+                                                                  & (up["month"] == m)).sum())}
+        for p in tables.products
+        for m in range(month - months + 1, month + 1)
+    ]  # fmt: skip
+    return pd.DataFrame(rows, columns=["product", "month", "realised"])
+
+
+def _forecast_track(result: dict) -> pd.DataFrame:
+    from ..forecast._track import track_record
+
+    return track_record(result.get("forecasts"), result["champions"])
 
 
 def _config_hash(config: Config) -> str:

@@ -253,14 +253,20 @@ def _with_estimated_effects(offers, effects: pd.DataFrame):
     return tuple(out)
 
 
-def forecast_portfolio(tables: Tables, scored: Scored, config: Config) -> pd.DataFrame:
-    """Uptake forecast by area and in total from the scored portfolio's hazards."""
+def forecast_portfolio(
+    tables: Tables, scored: Scored, config: Config, model: HazardModel | None = None
+) -> pd.DataFrame:
+    """Uptake forecast by area and in total from the scored portfolio's hazards; with the
+    ``model``, plus the customers who join during the horizon and the draws of what is not
+    known about the models (`forecast_extras`, as ``[forecast]`` says)."""
     from ..forecast import forecast_settings, forecast_uptake
     from ..spatial import premise_areas
 
     settings = forecast_settings(config)
     ids = scored.snapshot["customer_id"]
-    areas = premise_areas(tables, config).reindex(ids.to_numpy()).to_numpy()
+    customer_areas = premise_areas(tables, config)
+    areas = customer_areas.reindex(ids.to_numpy()).to_numpy()
+    extras = forecast_extras(tables, model, scored, config, customer_areas)
     return forecast_uptake(
         scored.hazards[:, : settings.horizon_months],
         scored.causes,
@@ -270,7 +276,42 @@ def forecast_portfolio(tables: Tables, scored: Scored, config: Config) -> pd.Dat
         method=settings.method,
         exact_max=settings.exact_max,
         customer_ids=ids.to_numpy(),
+        **extras,
     )
+
+
+def forecast_extras(
+    tables: Tables,
+    model: HazardModel | None,
+    scored: Scored,
+    config: Config,
+    customer_areas: pd.Series | None = None,
+) -> dict:
+    """`forecast_uptake`'s ``joiners`` and ``level_draws`` for the scored portfolio (``{}``
+    without a model, or when ``[forecast]`` turns both off)."""
+    from ..forecast import forecast_settings
+    from ..forecast._portfolio import forecast_extras as extras_of
+    from ..spatial import premise_areas
+
+    settings = forecast_settings(config)
+    if model is None or (not settings.joiners and not settings.draws):
+        return {}
+    if customer_areas is None:
+        customer_areas = premise_areas(tables, config)
+    return extras_of(
+        tables,
+        model,
+        scored.snapshot,
+        customer_areas,
+        as_of=parse_month(scored.first_month) - 1,
+        horizon=settings.horizon_months,
+        joiners=settings.joiners,
+        joiner_months=settings.joiner_months,
+        joiner_trend=settings.joiner_trend,
+        draws=settings.draws,
+        seed=settings.seed,
+        window_months=int(config.panel.window_months),
+    ).as_kwargs()
 
 
 def score_on_cluster(
@@ -292,9 +333,11 @@ def score_on_cluster(
     data = dist.distribute_tables(client, tables, config=config)
     remote = dist.score_portfolio(data, model, as_of)
     values = dist.offer_values(remote, offers)
-    forecast = dist.forecast_portfolio(data, remote)
+    snapshot = remote.snapshot.gather()
+    extras = forecast_extras(tables, model, Scored(snapshot, None, (), 0, None), config)
+    forecast = dist.forecast_portfolio(data, remote, extras=extras)
     scored = Scored(
-        snapshot=remote.snapshot.gather(),
+        snapshot=snapshot,
         hazards=None,
         causes=tuple(remote.causes),
         n_terminal=remote.n_terminal,

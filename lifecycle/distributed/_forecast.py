@@ -34,14 +34,18 @@ log = logging.getLogger(__name__)
 _EXITS = "exit"
 
 
-def forecast_portfolio(data: PartitionedTables, scored: DistributedScored) -> pd.DataFrame:
+def forecast_portfolio(
+    data: PartitionedTables, scored: DistributedScored, *, extras: dict | None = None
+) -> pd.DataFrame:
     """Expected uptakes by month, area and product, with prediction intervals.
 
     Equals ``forecast_uptake(hazards[:, :H], causes, start_month=..., areas=<premise area of
     each customer>, levels=..., method=..., exact_max=...)`` of the whole scored portfolio
     (H, levels and method from ``[forecast]``): the columns and rows of
     `lifecycle.forecast.forecast_uptake`, total first, then areas in sorted order, per
-    product. Bootstrap intervals are not offered here.
+    product. ``extras`` are `forecast_uptake`'s ``joiners`` and ``level_draws``
+    (`lifecycle.cycle.forecast_extras`, computed in the driving process), passed to every
+    task. Bootstrap intervals are not offered here.
     """
     uptakes = [c for c in scored.causes if c.startswith(UPTAKE_PREFIX)]
     if not uptakes:
@@ -72,6 +76,7 @@ def forecast_portfolio(data: PartitionedTables, scored: DistributedScored) -> pd
         "method": settings.method,
         "exact_max": settings.exact_max,
         "start_month": scored.first_month,
+        **(extras or {}),
     }
     total = client.submit(_forecast_groups, inputs, None, causes, options)
     split = np.array_split(np.array(labels, dtype=object), len(inputs))
@@ -133,8 +138,13 @@ def _forecast_groups(
     order = np.argsort(codes, kind="stable")  # by area, each in portfolio order
     cuts = np.searchsorted(codes[order], np.arange(len(areas) + 1))
     out = []
+    joiners = options.get("joiners") or {}
     for k, area in enumerate(areas):
-        frame = forecast_uptake(array[order[cuts[k] : cuts[k + 1]]], causes, **options)
+        # the area's customers are this call's whole group: its joiners stand for "all"
+        mine = {(p, ALL_AREAS): part for (p, a), part in joiners.items() if a == area}
+        frame = forecast_uptake(
+            array[order[cuts[k] : cuts[k + 1]]], causes, **{**options, "joiners": mine or None}
+        )
         frame["area_id"] = area
         out.append(frame)
     return out

@@ -16,6 +16,7 @@ from ..config import Config
 from ..data import Tables
 from ..errors import UsageError
 from ..models import HazardModel
+from ..models._base import incidence_from_hazards
 from ..models._fittable import check_fittable
 from ..panel import build_panel, build_snapshot, panel_layout
 from ._calibration import calibration_table, lift_from_tables
@@ -25,6 +26,8 @@ from ._outcomes import EVENT, observed_outcomes, outcome_for_cause
 log = logging.getLogger(__name__)
 
 PanelBuilder = Callable[[Tables, int, Config], pd.DataFrame]
+AfterFit = Callable[[str, int, HazardModel, pd.DataFrame, np.ndarray], "pd.DataFrame | None"]
+"""``(family, cutoff, fitted model, snapshot, hazards (n, T, K)) -> frame or None``."""
 METRICS = (
     "uno_c",
     "auc",
@@ -58,12 +61,16 @@ class BacktestResult:
         ``family``, ``cutoff`` and the family's ``feature_importances_`` (``cause``,
         ``feature``, ``importance``, ``importance_sd``) from its fit at the latest cutoff, for
         the families that measure them (the survival forest); empty when none does.
+    forecasts
+        What ``after_fit`` returned for each family and cutoff, stacked (e.g. the uptake
+        forecast each fit would have made; empty without ``after_fit``).
     """
 
     metrics: pd.DataFrame
     champions: pd.DataFrame
     calibration: pd.DataFrame
     importances: pd.DataFrame = field(default_factory=pd.DataFrame)
+    forecasts: pd.DataFrame = field(default_factory=pd.DataFrame)
 
 
 def backtest(
@@ -76,6 +83,8 @@ def backtest(
     build_panel_fn: PanelBuilder | None = None,
     build_snapshot_fn: PanelBuilder | None = None,
     min_events: int | None = None,
+    after_fit: AfterFit | None = None,
+    after_fit_months: int = 0,
 ) -> BacktestResult:
     """Fit every family as of each past cutoff and score its predictions against what happened.
 
@@ -120,6 +129,11 @@ def backtest(
         When given, each cutoff's panel must pass `lifecycle.models._fittable.check_fittable`
         with this many events of every cause (``[models] min_events``), else `InputError`
         before its fits; ``None`` fits whatever the panel holds.
+    after_fit
+        Called with each fitted family, its cutoff, the snapshot and its hazards for months
+        1..max(max usable horizon, ``after_fit_months``), the ones the metrics come from; what
+        it returns is stacked into ``forecasts``, so that a track record needs no fit of its
+        own.
     """
     config = config or Config()
     families = _checked_families(families)
@@ -136,6 +150,7 @@ def backtest(
     rows: list[dict] = []
     tables_out: list[pd.DataFrame] = []
     importances: dict[str, pd.DataFrame] = {}
+    forecasts: list[pd.DataFrame] = []
     for cutoff in cutoffs:
         usable = [h for h in horizons if cutoff + h <= tables.extract_month]
         skipped = [h for h in horizons if h not in usable]
@@ -167,9 +182,13 @@ def backtest(
             found = getattr(model, "feature_importances_", None)
             if found is not None and len(found):  # cutoffs ascend: the latest one stays
                 importances[name] = found.assign(family=name, cutoff=format_month(cutoff))
-            incidence = model.predict_cumulative_incidence(snapshot, max(usable))
-            array = incidence.to_numpy().reshape(len(snapshot), max(usable), -1)
-            for j, cause in enumerate(incidence.columns):
+            hazards = model.hazard_array(snapshot, max(max(usable), after_fit_months))
+            array = incidence_from_hazards(hazards[:, : max(usable)], len(model.terminal_causes_))
+            if after_fit is not None:
+                made = after_fit(name, cutoff, model, snapshot, hazards)
+                if made is not None and len(made):
+                    forecasts.append(made.assign(family=name))
+            for j, cause in enumerate(model.causes_):
                 months, code, at_risk = outcome_for_cause(outcomes, cause)
                 if not at_risk.any():
                     log.info("backtest %s: nobody at risk of %s", format_month(cutoff), cause)
@@ -202,6 +221,7 @@ def backtest(
         champions=champions(metrics),
         calibration=calibration,
         importances=found if found is not None else pd.DataFrame(),
+        forecasts=pd.concat(forecasts, ignore_index=True) if forecasts else pd.DataFrame(),
     )
 
 

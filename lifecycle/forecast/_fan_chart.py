@@ -20,6 +20,7 @@ from ._uptake import ALL_AREAS
 _LINE = "#1f4e79"
 _BAND = "#6b9ac4"
 _GRID = "#d9d9d9"
+_PAST = "#404040"
 
 
 def fan_chart(
@@ -29,6 +30,7 @@ def fan_chart(
     area_id: str = ALL_AREAS,
     cumulative: bool = False,
     title: str | None = None,
+    history: pd.DataFrame | None = None,
 ) -> Figure:
     """A fan chart of one product and area from the frame of `forecast_uptake`.
 
@@ -47,6 +49,9 @@ def fan_chart(
         Draw cumulative adopters instead of new adopters per month.
     title
         Title; a plain description by default.
+    history
+        Realised counts before the forecast (``month``, ``realised``, one row per month, e.g.
+        the last 24 months), drawn to the left of the forecast as points; monthly charts only.
 
     Returns
     -------
@@ -72,7 +77,11 @@ def fan_chart(
     fig = Figure(figsize=(8.0, 4.5), dpi=100)
     FigureCanvasAgg(fig)
     ax = fig.add_subplot()
-    x = list(range(len(rows)))
+    past = None
+    if history is not None and len(history) and not cumulative:
+        past = history.sort_values("month")
+    offset = len(past) if past is not None else 0
+    x = [offset + i for i in range(len(rows))]
     for i, (lower, upper) in enumerate(bands):  # widest first
         alpha = 0.25 + 0.45 * i / max(1, len(bands) - 1) if len(bands) > 1 else 0.35
         level = lower.removeprefix(prefix).removeprefix("lower_").replace("_", ".")
@@ -94,9 +103,23 @@ def fan_chart(
         markersize=3,
         label="expected",
     )
-    step = max(1, len(x) // 12)
-    ax.set_xticks(x[::step], rows["month"].tolist()[::step], rotation=45, ha="right")
-    ax.set_xlim(-0.3, len(x) - 0.7)
+    labels = rows["month"].tolist()
+    if past is not None:
+        ax.plot(
+            list(range(offset)),
+            past["realised"].to_numpy(dtype=float),
+            color=_PAST,
+            linewidth=1.2,
+            marker="s",
+            markersize=3,
+            label="realised",
+        )
+        ax.axvline(offset - 0.5, color=_GRID, linewidth=1.0)
+        labels = [str(m) for m in past["month"]] + labels
+    ticks = list(range(len(labels)))
+    step = max(1, len(ticks) // 12)
+    ax.set_xticks(ticks[::step], labels[::step], rotation=45, ha="right")
+    ax.set_xlim(-0.3, len(ticks) - 0.7)
     ax.set_ylim(bottom=0)
     ax.set_xlabel("month")
     ax.set_ylabel("customers taking it up" + (" (cumulative)" if cumulative else " per month"))
@@ -107,7 +130,7 @@ def fan_chart(
     ax.set_axisbelow(True)
     for side in ("top", "right"):
         ax.spines[side].set_visible(False)
-    ax.legend(frameon=False, loc="upper left")
+    ax.legend(frameon=False, loc="best" if past is not None else "upper left")
     fig.tight_layout()
     return fig
 

@@ -8,6 +8,14 @@ Settings in ``lifecycle.toml`` (all optional; ``lifecycle settings`` prints ever
                                # lower_<100·level>, upper_<100·level> (0.9 → lower_90)
     method = "auto"            # auto | exact | rna: how the Poisson-binomial is computed
     exact_max = 20000          # auto computes groups up to this size exactly
+    joiners = true             # add the uptakes of customers who join during the horizon
+    joiner_months = 36         # months of joiner counts fitted, whole number in [1, 240]
+    joiner_trend = true        # joiner counts with a log-linear trend (with >= 12 months)
+    draws = 200                # draws of what is not known about the models (hazard level,
+                               # joiner counts) mixed into the intervals; 0: outcome noise only
+    seed = 0                   # seed of those draws
+
+    [forecast.launch]          # a launch without history (see lifecycle.forecast._bass)
 """
 
 from __future__ import annotations
@@ -15,7 +23,7 @@ from __future__ import annotations
 import logging
 import math
 import numbers
-from collections.abc import Iterator, Sequence
+from collections.abc import Iterator, Mapping, Sequence
 from dataclasses import dataclass
 
 import numpy as np
@@ -27,7 +35,9 @@ from ..errors import UsageError
 from ..panel._layout import UPTAKE_PREFIX
 from ..value._hazards import HazardInput, read_hazards, uptake_incidence
 from ..value._lifetime import check_horizon
-from ._poisson_binomial import EXACT_MAX, METHODS, mixture_quantiles
+from ._intervals import combined_quantiles
+from ._joiners import JoinerPart
+from ._poisson_binomial import EXACT_MAX, METHODS, _method, grid_cdf, mixture_quantiles
 
 log = logging.getLogger(__name__)
 
@@ -44,6 +54,11 @@ class ForecastSettings:
     levels: tuple[float, ...] = (0.9,)
     method: str = "auto"
     exact_max: int = EXACT_MAX
+    joiners: bool = True
+    joiner_months: int = 36
+    joiner_trend: bool = True
+    draws: int = 200
+    seed: int = 0
 
 
 def forecast_settings(config: Config) -> ForecastSettings:
@@ -52,7 +67,10 @@ def forecast_settings(config: Config) -> ForecastSettings:
     raw = config.raw.get("forecast", {})
     if not isinstance(raw, dict):
         raise UsageError(f"{src}: [forecast] must be a table of settings")
-    allowed = ["exact_max", "horizon_months", "levels", "method"]
+    allowed = [
+        "draws", "exact_max", "horizon_months", "joiner_months", "joiner_trend", "joiners",
+        "launch", "levels", "method", "seed",
+    ]  # fmt: skip
     unknown = sorted(set(raw) - set(allowed))
     if unknown:
         raise UsageError(
@@ -76,7 +94,26 @@ def forecast_settings(config: Config) -> ForecastSettings:
             f"{src}: [forecast] exact_max was {exact_max!r} but is expected to be a whole "
             "number >= 0"
         )
+    flags = {}
+    for key in ("joiners", "joiner_trend"):
+        flags[key] = raw.get(key, True)
+        if not isinstance(flags[key], bool):
+            raise UsageError(
+                f"{src}: [forecast] {key} was {flags[key]!r} but is expected true or false"
+            )
+    whole = {"joiner_months": (36, 1, 240), "draws": (200, 0, 10_000), "seed": (0, 0, 2**32 - 1)}
+    numbers_ = {}
+    for key, (default, lo, hi) in whole.items():
+        value = raw.get(key, default)
+        if not _whole(value) or not lo <= value <= hi:
+            raise UsageError(
+                f"{src}: [forecast] {key} was {value!r} but is expected to be a whole number in "
+                f"[{lo}, {hi}]"
+            )
+        numbers_[key] = int(value)
     return ForecastSettings(
+        **flags,
+        **numbers_,
         horizon_months=int(horizon),
         levels=_levels(levels, f"{src}: [forecast] levels"),
         method=method,
@@ -96,6 +133,8 @@ def forecast_uptake(
     method: str = "auto",
     exact_max: int = EXACT_MAX,
     customer_ids: Sequence[object] | np.ndarray | None = None,
+    joiners: Mapping[tuple[str, str], JoinerPart] | None = None,
+    level_draws: Mapping[str, np.ndarray] | None = None,
 ) -> pd.DataFrame:
     """Expected new adopters of each product per month, by area and in total, with intervals.
 
@@ -117,6 +156,15 @@ def forecast_uptake(
     resampled data) the intervals are quantiles of the equal-weight mixture of the B refits'
     Poisson-binomial distributions, so that they also carry the model's uncertainty;
     ``expected`` stays that of ``hazards``.
+
+    With ``joiners`` (`lifecycle.forecast.joiner_uptake`: customers who join during the
+    horizon), each group's count is the current customers' plus the joiners' (negative
+    binomial, independent), ``expected = expected_current + expected_joiners``. With
+    ``level_draws`` (B log-level draws ε_b of each product's uptake hazard, ``(B,)``, or per
+    month ``(B, T)``) and the joiners' own coefficient draws, the intervals are those of the
+    mixture over the B draws of the expected count, Σ_t e^{ε_b,t}·(current_t + joiners_b,t)
+    (`lifecycle.forecast._intervals`), so they carry what is not known about the models as
+    well as the outcome noise.
 
     Parameters
     ----------
@@ -141,9 +189,10 @@ def forecast_uptake(
     -------
     pandas.DataFrame
         ``month`` (``YYYY-MM``), ``area_id`` (text; ``"all"`` for the total), ``product``,
-        ``expected``, ``lower_<L>``, ``upper_<L>`` for each level, ``cumulative_expected``,
-        ``cumulative_lower_<L>``, ``cumulative_upper_<L>``. Sorted by product, area (total
-        first) and month.
+        ``expected``, ``expected_current``, ``expected_joiners``, ``lower_<L>``, ``upper_<L>``
+        for each level, ``cumulative_expected``, ``cumulative_expected_current``,
+        ``cumulative_expected_joiners``, ``cumulative_lower_<L>``, ``cumulative_upper_<L>``.
+        Sorted by product, area (total first) and month.
     """
     h = read_hazards(hazards, causes, customer_ids)
     horizon_ = check_horizon(horizon, h.months, covered="the hazards")
@@ -153,6 +202,8 @@ def forecast_uptake(
     level_list = _levels(levels, "levels")
     quantiles = [q for lv in level_list for q in ((1.0 - lv) / 2.0, (1.0 + lv) / 2.0)]
     refits = [_refit(b, h, horizon_, i) for i, b in enumerate(bootstrap or ())]
+    if refits and (joiners or level_draws):
+        raise UsageError("bootstrap refits cannot be combined with joiners or level_draws")
     groups = _groups(areas, h)
     months = [format_month(first + t) for t in range(horizon_)]
 
@@ -161,21 +212,24 @@ def forecast_uptake(
         product = h.causes[j].removeprefix(UPTAKE_PREFIX)
         cum = uptake_incidence(h.array[:, :horizon_], h.terminal, j)
         monthly = np.diff(cum, axis=1, prepend=0.0)
+        levels_b = None if not level_draws else np.asarray(level_draws[product], dtype=float)
         for area, rows in groups:
-            frame = pd.DataFrame(
-                {
-                    "month": months,
-                    "area_id": area,
-                    "product": product,
-                    "expected": monthly[rows].sum(axis=0),
-                }
-            )
-            bounds = _bounds(monthly, rows, refits, h, j, False, quantiles, method, exact_max)
-            _put(frame, "", level_list, bounds)
-            frame["cumulative_expected"] = cum[rows].sum(axis=0)
-            bounds = _bounds(cum, rows, refits, h, j, True, quantiles, method, exact_max)
-            _put(frame, "cumulative_", level_list, bounds)
-            parts.append(frame)
+            extra = _joiner_part(joiners, product, area, horizon_)
+            frame = {"month": months, "area_id": area, "product": product}
+            for kind, prefix, probs in ((0, "", monthly), (1, "cumulative_", cum)):
+                current = probs[rows].sum(axis=0)
+                joining = extra.mean[kind] if extra is not None else np.zeros(horizon_)
+                frame[f"{prefix}expected"] = current + joining
+                frame[f"{prefix}expected_current"] = current
+                frame[f"{prefix}expected_joiners"] = joining
+                if extra is None and levels_b is None:
+                    bounds = _bounds(probs, rows, refits, h, j, bool(kind), quantiles, method,
+                                     exact_max)  # fmt: skip
+                else:
+                    bounds = _combined(probs[rows].T, monthly[rows].sum(axis=0), extra, kind,
+                                       levels_b, quantiles, method, exact_max)  # fmt: skip
+                _put(frame, prefix, level_list, bounds)
+            parts.append(pd.DataFrame(frame))
         log.info(
             "uptake forecast for %s: %.1f expected adopters among %d customers over %d months "
             "from %s",
@@ -213,7 +267,66 @@ def _bounds(
     return mixture_quantiles(components(), quantiles, method=method, exact_max=exact_max)
 
 
-def _put(frame: pd.DataFrame, prefix: str, levels: tuple[float, ...], bounds: np.ndarray) -> None:
+def _combined(
+    probs: np.ndarray,
+    current_monthly: np.ndarray,
+    extra: JoinerPart | None,
+    kind: int,
+    levels_b: np.ndarray | None,
+    quantiles: list[float],
+    method: str,
+    exact_max: int,
+) -> np.ndarray:
+    """Quantiles ``(months, len(quantiles))`` of current plus joiners' uptakes, over the draws
+    of the expected count (`lifecycle.forecast._intervals.combined_quantiles`).
+
+    Draw b scales month t's expected uptakes (current and joiners', the joiners' at their own
+    drawn coefficients) by e^{ε_b,t}; the cumulative expected count of draw b is the sum of
+    its months."""
+    lo, cdf = grid_cdf(probs, _method(method, probs, exact_max))
+    horizon = current_monthly.size
+    mean = var = shifts = None
+    joining = np.zeros(horizon)
+    joining_b = None
+    if extra is not None:
+        mean, var, joining = extra.mean[kind], extra.var[kind], extra.mean[0]
+        if extra.draws is not None:
+            joining_b = extra.draws[:, 0]  # (B, months), monthly
+    if levels_b is not None or joining_b is not None:
+        b = levels_b.shape[0] if levels_b is not None else joining_b.shape[0]
+        if levels_b is None:
+            scale = np.ones((b, horizon))
+        else:
+            eps = levels_b if levels_b.ndim == 2 else np.repeat(levels_b[:, None], horizon, 1)
+            scale = np.exp(eps[:, :horizon])
+        drawn = joining_b if joining_b is not None else np.broadcast_to(joining, (b, horizon))
+        if drawn.shape[0] != b:
+            raise UsageError(f"{drawn.shape[0]} joiner draws but {b} level draws")
+        totals = scale * (current_monthly[None, :] + drawn)  # (B, months)
+        expected = current_monthly + joining
+        if kind:
+            totals, expected = np.cumsum(totals, axis=1), np.cumsum(expected)
+        shifts = (totals - expected[None, :]).T
+    qs = np.asarray(quantiles, dtype=np.float64)
+    return combined_quantiles(lo, cdf, qs, add_mean=mean, add_var=var, shifts=shifts)
+
+
+def _joiner_part(
+    joiners: Mapping[tuple[str, str], JoinerPart] | None, product: str, area: str, horizon: int
+) -> JoinerPart | None:
+    if not joiners:
+        return None
+    part = joiners.get((product, area))
+    if part is None:
+        return None
+    if part.mean.shape[-1] < horizon:
+        raise UsageError(f"joiners of {product} in {area} cover fewer than {horizon} months")
+    cut = slice(0, horizon)
+    draws = None if part.draws is None else part.draws[..., cut]
+    return JoinerPart(part.mean[:, cut], part.var[:, cut], draws)
+
+
+def _put(frame: dict, prefix: str, levels: tuple[float, ...], bounds: np.ndarray) -> None:
     for i, level in enumerate(levels):
         suffix = level_suffix(level)
         frame[f"{prefix}lower_{suffix}"] = bounds[:, 2 * i]

@@ -21,6 +21,7 @@ from ._sections_action import (
     forecast_section,
     plan_section,
 )
+from ._sections_track import track_section
 
 log = logging.getLogger(__name__)
 
@@ -72,7 +73,7 @@ def render_report(inputs: ReportInputs) -> tuple[str, dict[str, Any]]:
             key["risk"] = figures
         else:
             key.update(figures)
-    for build in (drift_section, forecast_section, plan_section):
+    for build in (drift_section, forecast_section, track_section, plan_section):
         section, figures = build(inputs)
         sections.append(section)
         key.update(figures)

@@ -117,6 +117,10 @@ class ReportInputs:
     forecast
         `lifecycle.forecast.forecast_uptake` output: ``month``, ``area_id``, ``product``,
         ``expected``, ``lower_<L>``, ``upper_<L>``, ``cumulative_*``.
+    forecast_track
+        The forecast's track record (`lifecycle.forecast.track_record`: ``forecast_backtest.csv``).
+    uptake_history
+        Realised uptakes per month: ``product``, ``month`` (``YYYY-MM``), ``realised``.
     plan
         The plan table: ``customer_id``, ``offer``, ``week``, ``expected_value``, ``cost``
         (``reasons``).
@@ -151,6 +155,8 @@ class ReportInputs:
     importances: pd.DataFrame | None = None
     drift: pd.DataFrame | None = None
     forecast: pd.DataFrame | None = None
+    forecast_track: pd.DataFrame | None = None
+    uptake_history: pd.DataFrame | None = None
     plan: pd.DataFrame | None = None
     plan_summary: dict[str, Any] | None = None
     offer_rates: pd.DataFrame | None = None

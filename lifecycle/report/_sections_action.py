@@ -181,18 +181,25 @@ def forecast_section(inputs: ReportInputs) -> tuple[Section, dict[str, Any]]:
         return section, {"forecast": None}
     forecast = forecast.assign(area_id=forecast["area_id"].astype(str))
     level = _interval_level(forecast.columns)
+    joiners = "expected_joiners" in forecast.columns
     section.text(
         "Expected new holders among today's customers, month by month, net of customers "
         "who leave first"
+        + (", plus those among customers who join during these months" if joiners else "")
         + (f"; the band is the {level} % prediction interval for the count." if level else ".")
-    )
+        + (" The monthly chart shows the last months' realised uptakes on its left."
+           if inputs.uptake_history is not None else "")
+    )  # fmt: skip
     key: dict[str, Any] = {}
     for product in sorted(forecast["product"].astype(str).unique()):
         total = forecast[(forecast["product"] == product) & (forecast["area_id"] == "all")]
         if total.empty:
             continue
         for cumulative in (False, True):
-            figure = fan_chart(forecast, product=product, area_id="all", cumulative=cumulative)
+            figure = fan_chart(
+                forecast, product=product, area_id="all", cumulative=cumulative,
+                history=_history(inputs.uptake_history, product),
+            )  # fmt: skip
             what = "cumulative" if cumulative else "monthly"
             section.figure(
                 fig.png_bytes(figure), alt=f"Fan chart of {what} uptake of {product}, all areas"
@@ -209,9 +216,13 @@ def forecast_section(inputs: ReportInputs) -> tuple[Section, dict[str, Any]]:
             entry[f"lower_{level}"], entry[f"upper_{level}"] = float(lo), float(hi)
             words += f" ({level} % interval {float(lo):,.0f}–{float(hi):,.0f})"
         section.text(
-            f"{product}: by {last['month']}, {words} of today's customers are expected to "
-            "have taken it up."
-        )
+            f"{product}: by {last['month']}, {words} customers are expected to have taken it "
+            "up"
+            + (f", {float(last['cumulative_expected_joiners']):,.0f} of them customers who have "
+               "not joined yet." if joiners else ".")
+        )  # fmt: skip
+        if joiners:
+            entry["expected_joiners"] = float(last["cumulative_expected_joiners"])
         key[product] = entry
         areas = forecast[(forecast["product"] == product) & (forecast["area_id"] != "all")]
         if len(areas):
@@ -230,6 +241,12 @@ def forecast_section(inputs: ReportInputs) -> tuple[Section, dict[str, Any]]:
                 header.append(f"{level} % interval")
             section.table(header, rows, caption=f"{product}: the ten areas expecting most")
     return section, {"forecast": key}
+
+
+def _history(history: pd.DataFrame | None, product: str) -> pd.DataFrame | None:
+    if history is None or len(history) == 0:
+        return None
+    return history[history["product"].astype(str) == product]
 
 
 def _interval_level(columns: pd.Index) -> str | None:
