@@ -25,7 +25,8 @@ The file is optional; every setting has a default. Its format, section by sectio
     customers = "%d/%m/%Y"           # YYYY-MM, YYYY-MM-DD, ISO date-time; per table, or per
     "activity.month" = "%m/%Y"       # column as "<table>.<column>" (the column wins)
 
-    [campaigns]
+    [campaigns]                      # when [[offers]] are configured, every campaign offer
+                                     # must name one of them (after this mapping)
     offers = { WINBACK10 = "loyalty_credit" }        # your offer codes onto [[offers]] names
     arms = { T = "offered", C = "held_out" }         # your arm labels onto offered / held_out
 
