@@ -11,7 +11,7 @@ import pyproj
 
 from ..config import Config
 from ..errors import InputError, UsageError, cut_text
-from ._parse import blank, is_text, numbers, plain_index
+from ._parse import beyond, blank, is_text, numbers, plain_index
 from ._report import Report, values_of
 
 log = logging.getLogger(__name__)
@@ -121,7 +121,7 @@ def _attribute(values: pd.Series, name: str, report: Report) -> pd.Series:
     report.fail(
         name,
         f"has absurd values (|value| > {ATTRIBUTE_MAX:g})",
-        np.abs(np.nan_to_num(number)) > ATTRIBUTE_MAX,
+        beyond(number, ATTRIBUTE_MAX),
         "Check the unit and the export of this attribute",
     )
     return pd.Series(number, index=values.index, name=values.name) if is_text(values) else values

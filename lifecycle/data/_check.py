@@ -26,7 +26,7 @@ from ..config import REASONS, Config
 from ..errors import InputError, UsageError, cut_text
 from ._areas import check_areas, check_overlaps
 from ._coordinates import coordinate_columns, premise_coordinates
-from ._parse import FLAG_WORDS, blank, months, numbers, plain_index, static, text_ids
+from ._parse import FLAG_WORDS, beyond, blank, months, numbers, plain_index, static, text_ids
 from ._read import read_raw_tables
 from ._report import Report, values_of
 from ._tables import RawTables, Tables
@@ -304,7 +304,7 @@ def _check_customers(
             values = out[name].to_numpy()
             report.fail(
                 name, f"has absurd values (|value| > {VALUE_MAX:g})",
-                np.abs(np.nan_to_num(values)) > VALUE_MAX, "Check the unit and the export",
+                beyond(values, VALUE_MAX), "Check the unit and the export",
             )  # fmt: skip
     return out, static_columns
 
@@ -482,7 +482,7 @@ def _check_activity(
             )  # fmt: skip
         report.fail(
             name, f"has absurd values (|value| > {VALUE_MAX:g})",
-            np.abs(np.nan_to_num(values)) > VALUE_MAX, "Check the unit and the export",
+            beyond(values, VALUE_MAX), "Check the unit and the export",
         )  # fmt: skip
         data[name] = values
     return pd.DataFrame(data, copy=False), list(columns)

@@ -114,3 +114,13 @@ def text_ids(values: pd.Series) -> pd.Series:
         text = values.astype(object).where(~whole, values[whole].astype("int64"))
         return text.astype(str).where(values.notna())
     return values.astype(str).where(values.notna())
+
+
+def beyond(values: np.ndarray, limit: float) -> np.ndarray:
+    """Mask of values with ``|value| > limit`` (NaN never), after one cheap pass when none is."""
+    values = np.asarray(values, dtype=np.float64)
+    if not values.size:
+        return np.zeros(0, dtype=bool)
+    if not (np.fmax.reduce(values) > limit or np.fmin.reduce(values) < -limit):
+        return np.zeros(values.size, dtype=bool)
+    return np.abs(values) > limit
