@@ -71,10 +71,11 @@ def check_known_future(schedule: Mapping[str, object] | None) -> dict[str, str]:
             )
         out[str(column)] = spec
     for column, spec in out.items():
-        if ":" in spec and out.get(spec.split(":")[1]) != "countdown":
+        kind, *rest = spec.split(":")
+        if rest and out.get(rest[0]) != _NEEDS[kind]:
             raise UsageError(
-                f"[panel] known_future: {column} = {spec!r} counts on {spec.split(':')[1]!r}, "
-                'which must itself be declared "countdown"; add it to known_future'
+                f"[panel] known_future: {column} = {spec!r} counts on {rest[0]!r}, which must "
+                f'itself be declared "{_NEEDS[kind]}"; add it to known_future'
             )
     return out
 
