@@ -156,6 +156,10 @@ _CAMPAIGNS = Section("campaigns", "the export's campaign codes onto ours", (
 ))  # fmt: skip
 
 _MODELS = (
+    Section("models", "what every family's fit needs", (
+        Key("min_events", WHOLE, 5, "events of each cause a fitting window must hold at least "
+            "(0: a cause without events is let through, with hazard 0)", at_least(0)),
+    )),
     Section("models.cox", "hyperparameters of the cause-specific Cox family", (
         Key("penalizer", NUMBER, 0.0, "ridge penalty on the coefficients", at_least(0)),
         Key("sample_fraction", NUMBER, None, "share of non-event rows kept (default: by "

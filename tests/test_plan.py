@@ -595,6 +595,8 @@ def test_offer_figures_say_what_held_each_offer_back():
             "tenure": np.arange(n, dtype=float),
             "cif_churn_3m": np.linspace(0.01, 0.1, n),
             "cif_move_out_3m": np.linspace(0.01, 0.1, n),
+            "do_not_contact": 0,
+            "hardship": 0,
         }
     )
     offers = (

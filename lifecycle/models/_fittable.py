@@ -20,7 +20,7 @@ import numpy as np
 import pandas as pd
 
 from ..config import Config
-from ..errors import InputError, UsageError
+from ..errors import InputError
 from ..panel import panel_layout
 
 log = logging.getLogger(__name__)
@@ -34,15 +34,11 @@ MIN_CUSTOMERS = 2
 
 
 def min_events_setting(config: Config | None) -> int:
-    """``[models] min_events`` (default `MIN_EVENTS`), checked: a whole number >= 0."""
-    raw = (config.raw if config is not None else {}).get("models", {})
-    value = raw.get("min_events", MIN_EVENTS) if isinstance(raw, dict) else MIN_EVENTS
-    if isinstance(value, bool) or not isinstance(value, int) or value < 0:
-        raise UsageError(
-            f"[models] min_events was {value!r} but must be a whole number >= 0 "
-            f"(default {MIN_EVENTS}; 0 accepts causes without events)"
-        )
-    return value
+    """``[models] min_events`` (default `MIN_EVENTS`; checked by the settings schema)."""
+    from ..config import setting
+
+    value = setting(config, "models.min_events")
+    return MIN_EVENTS if value is None else int(value)
 
 
 def event_counts(panel: pd.DataFrame) -> dict[str, int]:
