@@ -13,6 +13,8 @@ __all__ = [
     "LifecycleError",
     "ModelFileError",
     "OutputError",
+    "PlanSafetyError",
+    "RunLockedError",
     "UsageError",
     "cut_text",
 ]
@@ -116,6 +118,17 @@ class InputError(LifecycleError):
 class ModelFileError(LifecycleError):
     """Raised when a saved model folder is incomplete or a file's SHA-256 does not match its
     manifest; such a file is never loaded, because loading a joblib file runs code."""
+
+
+class RunLockedError(UsageError):
+    """Raised when another ``lifecycle run`` holds the reports folder's lock (exit code 2); the
+    message names its process, host and start time."""
+
+
+class PlanSafetyError(LifecycleError):
+    """Raised when a finished plan selects a customer who is flagged (do-not-contact, hardship
+    or an added exclusion) or has not opted in. Only a fault in the program can cause it; the
+    plan is not written and the command exits with code 1."""
 
 
 class OutputError(LifecycleError):

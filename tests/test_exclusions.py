@@ -17,9 +17,8 @@ from lifecycle.cli import main
 from lifecycle.config import load_config
 from lifecycle.cycle import plan_contacts, score_portfolio
 from lifecycle.data import load_tables
-from lifecycle.decisions._exclusions import PlanSafetyError
 from lifecycle.demo import write_demo
-from lifecycle.errors import InputError
+from lifecycle.errors import InputError, PlanSafetyError
 from lifecycle.models import load_model
 from lifecycle.panel import build_panel
 

@@ -287,3 +287,18 @@ def test_reports_on_another_file_system(root, monkeypatch, how):
     finally:
         if how == "mounted":
             shutil.rmtree(reports, ignore_errors=True)
+
+
+def test_a_full_disk_while_writing_the_history_is_the_same_message(root, monkeypatch, capsys):
+    """DuckDB reports a full disk in words (simulated): the month is taken back."""
+    import duckdb
+
+    def full(self, *args, **kwargs):
+        raise duckdb.IOException('Could not write file "history.duckdb": No space left on device')
+
+    before = _digest(root / "reports")
+    monkeypatch.setattr(ScoreHistory, "append_run", full)
+    assert _run(root, "--as-of", "2026-10") == 1
+    messages = [line for line in capsys.readouterr().err.splitlines() if "lifecycle run:" in line]
+    assert len(messages) == 1 and "no space left" in messages[0]
+    assert _digest(root / "reports") == before

@@ -19,16 +19,12 @@ from pathlib import Path
 
 from filelock import FileLock, Timeout
 
-from ..errors import UsageError
+from ..errors import RunLockedError
 
 log = logging.getLogger(__name__)
 
 LOCK = "run.lock"
 OWNER = "run.lock.owner.json"
-
-
-class RunLockedError(UsageError):
-    """Raised when another ``lifecycle run`` holds the reports folder (exit code 2)."""
 
 
 @contextlib.contextmanager

@@ -189,14 +189,21 @@ def run_cycle(
         mend(settings.reports, history, settings.work)
         try:
             return _locked_run(source, config, settings, as_of, force, tick, client, history)
-        except OSError as exc:
-            if exc.errno in (errno.ENOSPC, errno.EDQUOT, errno.EFBIG):
+        except Exception as exc:
+            if _disk_full(exc):
+                where = getattr(exc, "filename", None) or "the outputs"
                 raise OutputError(
-                    f"no space left to write {exc.filename or 'the outputs'} ({exc.strerror}); "
-                    "nothing of this month was published and earlier months and the history "
-                    "are unchanged. Free some space and run again"
+                    f"no space left to write {where}; nothing of this month was published and "
+                    "earlier months and the history are unchanged. Free some space and run again"
                 ) from None
             raise
+
+
+def _disk_full(exc: Exception) -> bool:
+    """Whether ``exc`` says the disk (or the user's quota) is full; DuckDB says it in words."""
+    if isinstance(exc, OSError) and exc.errno in (errno.ENOSPC, errno.EDQUOT, errno.EFBIG):
+        return True
+    return "No space left on device" in str(exc)
 
 
 def _locked_run(source, config, settings, as_of, force, tick, client, history) -> RunResult:

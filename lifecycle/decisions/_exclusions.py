@@ -18,20 +18,12 @@ import numpy as np
 import pandas as pd
 
 from ..config import DECISION_FLAGS
-from ..errors import InputError, LifecycleError
+from ..errors import InputError, PlanSafetyError
 
 __all__ = ["ALWAYS_EXCLUDED", "PlanSafetyError", "guard_plan", "require_flag_columns"]
 
 #: Flags that exclude a customer from every plan, whatever the settings say.
 ALWAYS_EXCLUDED = DECISION_FLAGS
-
-
-class PlanSafetyError(LifecycleError):
-    """Raised when a finished plan selects a customer who is flagged or has not opted in.
-
-    This can only come from a fault in the program (the planning step excludes those
-    customers); the plan is not written and the command exits with code 1.
-    """
 
 
 def exclusion_columns(extra: Sequence[str] = ()) -> tuple[str, ...]:

@@ -246,7 +246,7 @@ def make_plan(
         for j, offer in enumerate(offers):
             allowed[:, j] &= cooldown_ok(last, month, offer.cooldown_months)
     log.info(
-        "plan: %d customers, %d excluded by flags, %d allowed pairs",
+        "plan: %d customers, %d excluded by flags or consent, %d allowed pairs",
         n,
         int(excluded.sum()),
         int(allowed.sum()),
