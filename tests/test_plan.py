@@ -643,3 +643,27 @@ def _min_tenure(months):
     from lifecycle.decisions import Eligibility
 
     return Eligibility(minimum={"tenure": float(months)})
+
+
+def test_reasons_come_from_the_family_used_for_the_cause():
+    """A champion whose churn hazard comes from one family and the other causes from another:
+    churn reasons name only the churn family's driver (complaints), never what drives the
+    other family's churn hazard (neighbours, rental share, tenure), though both see every
+    feature; the effects are those of the churn family alone."""
+    from lifecycle.models._champion import ChampionModel
+
+    churn_family = known_truth_model()  # churn rises with complaints_3m only
+    other_family, snap = concept_case()  # its churn rises with neighbours, rental, tenure
+    snap = snap.assign(complaints_3m=np.random.default_rng(3).integers(0, 5, len(snap)))
+    champion = ChampionModel()
+    champion.terminal_causes_ = ("churn", "move_out", "other_exit")
+    champion.uptake_causes_ = ()
+    champion.features_ = (*other_family.features_, "complaints_3m")
+    champion.cause_family_ = {"churn": "one", "move_out": "two", "other_exit": "two"}
+    churn_family.features_ = champion.features_
+    other_family.features_ = champion.features_
+    champion.fitted_ = {"one": churn_family, "two": other_family}
+    reasons = top_reasons(champion, snap, "churn", k=3, hidden=())
+    assert set(reasons.feature) == {"complaints_3m"}
+    alone = top_reasons(churn_family, snap, "churn", k=3, hidden=())
+    assert reasons.effect.to_numpy() == pytest.approx(alone.effect.to_numpy(), rel=1e-9)

@@ -419,9 +419,13 @@ def _one_month(model: Any, snapshot: pd.DataFrame) -> np.ndarray:
 
 
 def _typical(values: pd.Series) -> Any:
-    """The median of numbers (NaN skipped), else the most common value."""
+    """The median of numbers (NaN skipped; of whole numbers, rounded down to a whole number, so
+    that the reference is a value the column can hold), else the most common value."""
     if pd.api.types.is_numeric_dtype(values) and not pd.api.types.is_bool_dtype(values):
-        return float(np.nanmedian(values.to_numpy(dtype=float))) if values.notna().any() else np.nan
+        if not values.notna().any():
+            return np.nan
+        median = float(np.nanmedian(values.to_numpy(dtype=float)))
+        return float(np.floor(median)) if pd.api.types.is_integer_dtype(values) else median
     mode = values.mode(dropna=True)
     return mode.iloc[0] if len(mode) else values.iloc[0]
 

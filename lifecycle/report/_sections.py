@@ -261,7 +261,9 @@ def accuracy_section(inputs: ReportInputs) -> tuple[Section, dict[str, Any]]:
         "the higher risk (0.5 is a coin toss, 1 is perfect). AUC: the same at the horizon. "
         "Brier: mean squared error of the predicted probability (lower is better). Lift: the "
         "event rate among the 10 % with the highest risk over the overall rate; capture: the "
-        "share of events found among them. Values are means over the cutoffs."
+        "share of events found among them. In the tables per cause below, values are means over "
+        "all the cutoffs, the one held out included; the champion's score on a cutoff that took no "
+        "part in its choice is the held-out one in the champion table."
     )
     _champion_blocks(section, champions)
     winners = dict(zip(champions["cause"], champions["family"], strict=True))

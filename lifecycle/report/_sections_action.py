@@ -354,7 +354,7 @@ def plan_section(inputs: ReportInputs) -> tuple[Section, dict[str, Any]]:
             key[extra] = summary[extra]
     key["currency"] = inputs.currency or None
     key["planned_again"] = _planned_again(section, inputs.planned_again)
-    rate_key = _offer_rates(section, inputs.offer_rates)
+    rate_key = _offer_rates(section, inputs.offer_rates, _area_names(inputs.areas))
     return section, {"plan": key, "offer_rates": rate_key, "offers": summary.get("offers")}
 
 
@@ -447,7 +447,18 @@ def _offer_effects(section: Section, effects: dict[str, Any] | None) -> None:
     )
 
 
-def _offer_rates(section: Section, rates: pd.DataFrame | None) -> dict[str, Any] | None:
+def _area_names(areas: pd.DataFrame) -> dict[str, str]:
+    """``area_id`` → "name (id)" where the areas have names, else nothing."""
+    if "area_name" not in areas:
+        return {}
+    ids = areas["area_id"].astype(str)
+    return {a: f"{n} ({a})" for a, n in zip(ids, areas["area_name"].astype(str), strict=True)}
+
+
+def _offer_rates(
+    section: Section, rates: pd.DataFrame | None, names: dict[str, str] | None = None
+) -> dict[str, Any] | None:
+    names = names or {}
     section.heading("Offer rates by area")
     if rates is None or len(rates) == 0:
         section.note("Offer rates by area were not computed.")
@@ -473,9 +484,11 @@ def _offer_rates(section: Section, rates: pd.DataFrame | None) -> dict[str, Any]
         "the share of rented homes) stands in for a protected characteristic; check with "
         "your data-protection officer before acting on such a pattern. "
         f"All areas: {pct_text(overall, 1)} of customers contacted. Among areas with at least "
-        f"{MIN_AREA_CUSTOMERS} customers, the highest is area {high['area_id']} "
+        f"{MIN_AREA_CUSTOMERS} customers, the highest is area "
+        f"{names.get(high['area_id'], high['area_id'])} "
         f"({pct_text(high['contact_rate'], 1)}, {high['rate_ratio']:.2f}× the portfolio) and "
-        f"the lowest area {low['area_id']} ({pct_text(low['contact_rate'], 1)}, "
+        f"the lowest area {names.get(low['area_id'], low['area_id'])} "
+        f"({pct_text(low['contact_rate'], 1)}, "
         f"{low['rate_ratio']:.2f}×); small areas swing widely by chance."
     )
     section.figure(
@@ -486,7 +499,7 @@ def _offer_rates(section: Section, rates: pd.DataFrame | None) -> dict[str, Any]
     rows = []
     for r in rates.sort_values(order, kind="stable").itertuples(index=False):
         row = [
-            Cell(r.area_id),
+            Cell(names.get(r.area_id, r.area_id)),
             count(r.customers),
             percent(r.customer_share, 1),
             count(r.contacts),
