@@ -394,3 +394,19 @@ def test_demo_twelve_month_incidence_calibrated_within_deciles(demo, cause):
     snapshot-lag inputs (``horizon=12``) account for."""
     table = decile_calibration(demo["cif"][cause].to_numpy(), demo["followup"], cause, 12)
     assert (table["z"] ** 2).sum() < stats.chi2.ppf(CRITICAL, 10), table
+
+
+def test_a_feature_missing_on_every_fitted_row_is_fitted_around(small):
+    """scikit-learn's histogram binning raises on a column with no value at all (seen with
+    scikit-learn 1.9: "window shape cannot be larger than input array shape"); the family fits
+    around it, and predicts exactly as it does without that column (a constant is never split
+    on)."""
+    train, snapshot = small, small.iloc[:50]
+    plain = BoostedHazard(max_iter=30, n_threads=1, random_state=0).fit(train)
+    empty = train.assign(never_seen=np.float32(np.nan))
+    model = BoostedHazard(max_iter=30, n_threads=1, random_state=0).fit(empty)
+    ahead = snapshot.assign(never_seen=np.float32(3.0))
+    np.testing.assert_array_equal(
+        model.predict_hazard(ahead, horizon=3).to_numpy(),
+        plain.predict_hazard(snapshot, horizon=3).to_numpy(),
+    )

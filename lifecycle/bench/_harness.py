@@ -9,8 +9,10 @@ from __future__ import annotations
 import multiprocessing as mp
 import resource
 import time
+import traceback
 from collections.abc import Callable
 from dataclasses import dataclass
+from pathlib import Path
 from typing import Any
 
 
@@ -37,8 +39,10 @@ def _child(fn: Callable[..., Any], kwargs: dict[str, Any], queue: mp.Queue) -> N
             seconds, note = result["seconds"], result.get("note")
         peak_mb = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024.0
         queue.put(("ok", seconds, peak_mb, "" if note is None else str(note)))
-    except BaseException as exc:  # reported to the parent, which raises it
-        queue.put(("error", 0.0, 0.0, f"{type(exc).__name__}: {exc}"))
+    except BaseException as exc:  # reported to the parent, which raises it, with where it was
+        where = traceback.extract_tb(exc.__traceback__)[-3:]
+        trail = " <- ".join(f"{Path(f.filename).name}:{f.lineno}" for f in reversed(where))
+        queue.put(("error", 0.0, 0.0, f"{type(exc).__name__}: {exc} (at {trail})"))
 
 
 def measure(

@@ -296,7 +296,7 @@ class BoostedHazard(HazardModel):
             tol=self.tol,
             random_state=None if self.random_state is None else int(rng.integers(2**31 - 1)),
         )
-        x = design.rows(fit_rows)
+        x = _fillable(design.rows(fit_rows))
         if val_rows is None or not val_rows.any():
             if stop:
                 model.set_params(early_stopping=False)
@@ -403,6 +403,15 @@ class _Design:
         out["month_ahead"] = self.lag[where]
         project_known_future(out, self.lag[where] - 1, self.known_future)
         return out
+
+
+def _fillable(x: pd.DataFrame) -> pd.DataFrame:
+    """``x`` with every all-missing numeric column set to 0: scikit-learn's histogram binning
+    fails on a column with no value at all (a feature no sampled row has yet, such as the months
+    since an offer nobody in the sample received). A constant column is never split on, so the
+    fitted trees are the same; prediction may then see values there, which no tree reads."""
+    empty = [c for c in x.columns if x[c].dtype.kind == "f" and x[c].isna().all()]
+    return x.assign(**{c: np.zeros(len(x), dtype=x[c].dtype) for c in empty}) if empty else x
 
 
 class _Columns:
