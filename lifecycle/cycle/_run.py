@@ -253,6 +253,7 @@ def run_cycle(
         )
         inputs.forecast_track = result["forecasts"]  # every family: shown side by side
         inputs.uptake_history = _uptake_history(tables, month_index)
+        inputs.cohort_alive = _cohort_alive(panel, month_index)
         files.update(write_report(inputs, staging))
         tick("history")
         # The month folder does not exist (checked above), so a stored month without one is
@@ -371,6 +372,12 @@ def _uptake_history(tables, month: int, months: int = 24) -> pd.DataFrame:
         for m in range(month - months + 1, month + 1)
     ]  # fmt: skip
     return pd.DataFrame(rows, columns=["product", "month", "realised"])
+
+
+def _cohort_alive(panel: pd.DataFrame, month: int) -> pd.DataFrame:
+    from ..report._sections_cohorts import cohort_alive
+
+    return cohort_alive(panel, month)
 
 
 def _forecast_track(result: dict) -> pd.DataFrame:
