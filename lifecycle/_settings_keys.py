@@ -305,6 +305,24 @@ _STAGES = (
             choice("auto", "exact", "rna")),
         Key("exact_max", WHOLE, 20_000, "auto computes groups up to this size exactly",
             at_least(0)),
+        Key("joiners", FLAG, True, "add the uptakes of customers who join during the horizon"),
+        Key("joiner_months", WHOLE, 36, "months of joiner counts fitted, ending at as_of",
+            between(1, 240)),
+        Key("joiner_trend", FLAG, True, "joiner counts with a log-linear trend (with >= 12 "
+            "months)"),
+        Key("draws", WHOLE, 200, "draws of what is not known about the models (hazard level, "
+            "its drift, joiner coefficients) mixed into the intervals; 0: outcome noise only",
+            between(0, 10_000)),
+        Key("seed", WHOLE, 0, "seed of those draws and of the joiners' template sample", _SEED),
+    )),
+    Section("forecast.launch", "a launch without history (`lifecycle forecast --launch-month`) "
+            "when no comparable product is given: the Bass model's coefficients", (
+        Key("innovation", NUMBER, None, "Bass p, per month", above(0), required=True,
+            example=0.01),
+        Key("imitation", NUMBER, None, "Bass q, per month", at_least(0), required=True,
+            example=0.3),
+        Key("market_share", NUMBER, None, "share of customers who eventually take it up",
+            between(0, 1, low_open=True), required=True, example=0.2),
     )),
     Section("run", "`lifecycle run`: the monthly cycle", (
         Key("families", TEXTS, ["cox", "boosted", "forest"], "families compared in the "

@@ -175,5 +175,10 @@ def test_a_run_gives_a_cause_without_champion_the_first_configured_family(tmp_pa
 
     panel = _panel(_stayers(30) + _leavers(12, "churn") + _leavers(9, "move_out", start=50))
     families = {"life_table": TenureLifeTable(), "cox": CauseSpecificCox()}
-    model = _champion_model(tmp_path, "0" * 64, "2026-10", panel, families, {"churn": "cox"}, 1)
+    keys = ("2026-10", "0" * 64, "1" * 64)
+    saves = []
+    model = _champion_model(
+        tmp_path, keys, panel, families, {"churn": "cox"}, 1, force=False, saves=saves
+    )
+    assert len(saves) == 1  # a new fit, saved only once the month is published
     assert model.cause_family_ == {"churn": "cox", "move_out": "cox", "other_exit": "cox"}

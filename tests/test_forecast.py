@@ -354,7 +354,10 @@ def test_fan_chart_refuses_unknown_products_and_areas(portfolio):
 def test_the_public_surface_of_forecast():
     assert sorted(lifecycle.forecast.__all__) == [
         "ForecastSettings",
+        "ShiftedBetaGeometric",
         "fan_chart",
+        "fit_shifted_beta_geometric",
+        "forecast_coverage",
         "forecast_settings",
         "forecast_uptake",
         "mixture_quantiles",
@@ -362,4 +365,5 @@ def test_the_public_surface_of_forecast():
         "poisson_binomial_pmf",
         "poisson_binomial_quantiles",
         "save_fan_chart",
+        "track_record",
     ]

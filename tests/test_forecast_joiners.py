@@ -186,3 +186,31 @@ def test_joiner_counts_without_joiners_expect_none():
     assert model.fit is None
     assert model.expected(np.arange(31, 34)).sum() == 0.0
     assert pd.Series(model.areas).tolist() == ["A", "B"]
+
+
+def test_uptake_rate_drift_matches_a_poisson_regression_with_offset():
+    # reference: statsmodels' GLM(Poisson) of the monthly uptakes on the month with the log of
+    # the customers at risk as offset, over the same 24 months
+    from lifecycle.forecast._joiners import level_draws, uptake_rate_drift
+
+    rng = np.random.default_rng(12)
+    n, as_of = 4000, 60
+    starts = rng.integers(0, 50, n)
+    ends = np.where(rng.random(n) < 0.3, starts + rng.integers(1, 30, n), np.nan)
+    taken = np.where(rng.random(n) < 0.4, starts + rng.integers(0, 40, n), np.nan)
+    slope, se = uptake_rate_drift(starts, ends, taken, as_of)
+    m = np.arange(as_of - 23, as_of + 1)
+    end_ = np.nan_to_num(ends, nan=np.inf)[:, None]
+    take_ = np.nan_to_num(taken, nan=np.inf)[:, None]
+    active = (starts[:, None] <= m) & (end_ >= m)
+    at_risk = (active & (take_ >= m)).sum(axis=0)
+    events = (active & (take_ == m)).sum(axis=0)
+    x = sm.add_constant((m - as_of).astype(float))
+    glm = sm.GLM(events, x, family=sm.families.Poisson(), offset=np.log(at_risk)).fit()
+    assert slope == pytest.approx(glm.params[1], abs=1e-8)
+    assert se == pytest.approx(glm.bse[1], rel=1e-6)
+    # the draws: level sd 1/sqrt(D), and a drift that grows with the month
+    draws = level_draws({"p": 400.0}, 4000, 0, drift={"p": (0.01, 0.0)}, horizon=12)["p"]
+    assert draws.shape == (4000, 12)
+    assert np.std(draws[:, 0]) == pytest.approx(np.hypot(0.05, 0.01), rel=0.05)
+    assert np.std(draws[:, -1]) == pytest.approx(np.hypot(0.05, 0.12), rel=0.05)

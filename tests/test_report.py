@@ -58,6 +58,7 @@ FAST = settings(max_examples=25, deadline=None)
 SECTIONS = [
     "portfolio",
     "tenure",
+    "cohorts",
     "risk-map",
     "accuracy",
     "drivers",
@@ -309,6 +310,7 @@ def _make_case(root: Path) -> SimpleNamespace:
     from lifecycle.forecast._track import track_record_hook
     from lifecycle.models import BoostedHazard, CauseSpecificCox, SurvivalForest, score_customers
     from lifecycle.panel import build_panel, build_snapshot
+    from lifecycle.report._sections_cohorts import cohort_alive
     from lifecycle.spatial import add_spatial_context, premise_areas
     from lifecycle.value import offer_values
 
@@ -401,6 +403,7 @@ def _make_case(root: Path) -> SimpleNamespace:
         notes=["Invented demo data."],
     )
     inputs.forecast_track = result.forecasts
+    inputs.cohort_alive = cohort_alive(panel, parse_month("2026-10"))
     inputs.uptake_history = (
         tables.uptakes.assign(month=tables.uptakes["month"].map(format_month))
         .groupby(["product", "month"]).size().rename("realised").reset_index().tail(24)
@@ -473,6 +476,19 @@ def test_every_section_is_there_and_has_content(report_case):
         assert page.sections[name]["images"] >= 1, name
     assert page.sections["forecast"]["images"] == 2  # monthly and cumulative fan charts
     assert page.sections["forecast-track"]["tables"] == 2  # the record, the families
+
+
+def test_young_cohorts_are_projected_with_the_shifted_beta_geometric_model(report_case):
+    from lifecycle.forecast import fit_shifted_beta_geometric
+
+    alive = report_case.inputs.cohort_alive
+    cohorts = report_case.key["cohorts"]
+    assert cohorts, "some cohort is projected"
+    for cohort, figures in cohorts.items():
+        counts = alive[alive["cohort"] == cohort].sort_values("tenure")["alive"].to_numpy()
+        assert figures["size"] == counts[0] and figures["months"] == len(counts) - 1
+        fit = fit_shifted_beta_geometric(counts)  # the published model, fitted directly
+        assert figures["survival_12m"] == pytest.approx(float(fit.survival(12)), rel=1e-5)
 
 
 def test_the_forecast_track_record_sets_past_forecasts_beside_what_happened(report_case):

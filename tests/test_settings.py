@@ -122,6 +122,8 @@ def test_settings_prints_a_valid_file_that_gives_the_defaults(tmp_path, capsys):
     from lifecycle.cycle._run import run_settings
     from lifecycle.decisions import offers_from_config
     from lifecycle.distributed import compute_settings
+    from lifecycle.forecast._bass import launch_settings
+    from lifecycle.models._fittable import min_events_setting
     from lifecycle.forecast import forecast_settings
     from lifecycle.value import value_settings
 
@@ -309,12 +311,16 @@ READERS = {
     "lifecycle/decisions/_offers.py",
     "lifecycle/decisions/_reasons.py",
     "lifecycle/models/_families.py",
+    "lifecycle/models/_fittable.py",
+    "lifecycle/forecast/_bass.py",
 }
 
 
 def test_every_key_the_code_reads_is_in_the_schema(tmp_path, monkeypatch):
     import lifecycle.config as config_module
     from lifecycle.distributed import compute_settings
+    from lifecycle.forecast._bass import launch_settings
+    from lifecycle.models._fittable import min_events_setting
     from lifecycle.models._families import make_model
 
     readers = {
@@ -335,6 +341,8 @@ def test_every_key_the_code_reads_is_in_the_schema(tmp_path, monkeypatch):
     for family in ("cox", "forest", "boosted"):
         make_model(family, config)
     compute_settings(config)
+    min_events_setting(config)
+    assert launch_settings(config) is not None
     assert len(seen) > 40
     unknown = sorted(p for p in seen if not _in_schema(p))
     assert not unknown, unknown

@@ -320,6 +320,7 @@ def _locked_run(source, config, settings, as_of, force, tick, client, history) -
         )
         inputs.forecast_track = result["forecasts"]  # every family: shown side by side
         inputs.uptake_history = _uptake_history(tables, month_index)
+        inputs.cohort_alive = _cohort_alive(panel, month_index)
         files.update(write_report(inputs, staging))
         tick("publish")
         entry = HistoryEntry(
@@ -424,7 +425,10 @@ def _champion_model(work, keys, panel, families, champions, refit_months, force,
             continue
         log.info("model: reusing %s (refit every %d months)", candidate, refit_months)
         return model
-    model = ChampionModel(families=families, champions=champions).fit(panel)
+    # a cause without a champion (no family had a valid backtest metric) takes the first
+    # configured family
+    default = next(name for name in families if name != "life_table")
+    model = ChampionModel(families=families, champions=champions, default=default).fit(panel)
     window = (str(panel["month"].min()), str(panel["month"].max()))
     saves.append(
         (
@@ -461,6 +465,12 @@ def _uptake_history(tables, month: int, months: int = 24) -> pd.DataFrame:
         for m in range(month - months + 1, month + 1)
     ]  # fmt: skip
     return pd.DataFrame(rows, columns=["product", "month", "realised"])
+
+
+def _cohort_alive(panel: pd.DataFrame, month: int) -> pd.DataFrame:
+    from ..report._sections_cohorts import cohort_alive
+
+    return cohort_alive(panel, month)
 
 
 def _forecast_track(result: dict) -> pd.DataFrame:

@@ -21,6 +21,7 @@ from ._sections_action import (
     forecast_section,
     plan_section,
 )
+from ._sections_cohorts import cohort_section
 from ._sections_track import track_section
 
 log = logging.getLogger(__name__)
@@ -66,7 +67,8 @@ def render_report(inputs: ReportInputs) -> tuple[str, dict[str, Any]]:
     portfolio, figures = portfolio_section(inputs)
     sections.append(portfolio)
     key["portfolio"] = figures
-    for build in (tenure_section, risk_map_section, accuracy_section, drivers_section):
+    for build in (tenure_section, cohort_section, risk_map_section, accuracy_section,
+                  drivers_section):  # fmt: skip
         section, figures = build(inputs)
         sections.append(section)
         if build is risk_map_section:

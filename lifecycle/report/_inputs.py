@@ -121,6 +121,9 @@ class ReportInputs:
         The forecast's track record (`lifecycle.forecast.track_record`: ``forecast_backtest.csv``).
     uptake_history
         Realised uptakes per month: ``product``, ``month`` (``YYYY-MM``), ``realised``.
+    cohort_alive
+        Young cohorts' customers alive at each tenure: ``cohort``, ``tenure``, ``alive``
+        (`lifecycle.report._sections_cohorts.cohort_alive`).
     plan
         The plan table: ``customer_id``, ``offer``, ``week``, ``expected_value``, ``cost``
         (``reasons``).
@@ -157,6 +160,7 @@ class ReportInputs:
     forecast: pd.DataFrame | None = None
     forecast_track: pd.DataFrame | None = None
     uptake_history: pd.DataFrame | None = None
+    cohort_alive: pd.DataFrame | None = None
     plan: pd.DataFrame | None = None
     plan_summary: dict[str, Any] | None = None
     offer_rates: pd.DataFrame | None = None
