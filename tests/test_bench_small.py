@@ -134,6 +134,17 @@ def test_models_bench_runs_and_its_notes_add_up(demo):
     assert 0 < total and within <= total and z >= 0
     # z is printed to 2 decimals: all within one se exactly when the largest is ≤ 1
     assert z <= 1.005 if within == total else z >= 0.995
+    # every case is compared with the demo's true process on the same customers
+    for case, m in by_case.items():
+        truth = m.note.split("vs truth ")[1].split(": ", 1)[1]
+        found = re.findall(r"([a-z_]+) C (\d\.\d{3})/(\d\.\d{3}) ratio (-?\d+\.\d{2})", truth)
+        assert found, m.note
+        for cause, mine, true, ratio in found:
+            assert float(mine) == pytest.approx(c[case][cause], abs=6e-4)
+            if abs(float(true) - 0.5) > 0.02:  # the printed ratio is of the unrounded values
+                expected = (float(mine) - 0.5) / (float(true) - 0.5)
+                assert float(ratio) == pytest.approx(expected, abs=0.06)
+    assert "best family vs truth: churn " in by_case["survival forest"].note
 
 
 # -- scoring to plan ------------------------------------------------------------------------

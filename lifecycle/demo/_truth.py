@@ -190,6 +190,12 @@ n_threads = 1
 [models.cox]
 sample_fraction = 0.1
 
+# 50 trees on both cores keep the demo within its time; measured on the 20,000-customer demo
+# against 100 trees: half the CPU time, 12-month churn concordance 0.622 against 0.623.
+[models.forest]
+n_estimators = 50
+n_jobs = 2
+
 [value]
 annual_discount = 0.08
 horizon_months = 24
