@@ -122,8 +122,6 @@ def test_settings_prints_a_valid_file_that_gives_the_defaults(tmp_path, capsys):
     from lifecycle.cycle._run import run_settings
     from lifecycle.decisions import offers_from_config
     from lifecycle.distributed import compute_settings
-    from lifecycle.forecast._bass import launch_settings
-    from lifecycle.models._fittable import min_events_setting
     from lifecycle.forecast import forecast_settings
     from lifecycle.value import value_settings
 
@@ -320,8 +318,8 @@ def test_every_key_the_code_reads_is_in_the_schema(tmp_path, monkeypatch):
     import lifecycle.config as config_module
     from lifecycle.distributed import compute_settings
     from lifecycle.forecast._bass import launch_settings
-    from lifecycle.models._fittable import min_events_setting
     from lifecycle.models._families import make_model
+    from lifecycle.models._fittable import min_events_setting
 
     readers = {
         str(p.relative_to(ROOT))
