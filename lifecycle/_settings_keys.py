@@ -110,15 +110,16 @@ _REASONS = Section(
 )
 
 _TEXTS_BY_TEXT = Kind(
-    "a table of text = text",
+    'a table of texts (key = "text")',
     lambda v: isinstance(v, dict) and all(isinstance(x, str) for x in v.values()),
 )
 
 _PANEL = Section("panel", "the customer-month panel", (
     Key("window_months", WHOLE, 48, "months of history in the panel, ending at as_of",
         at_least(1)),
-    Key("not_features", TEXTS, ["do_not_contact", "hardship"],
-        "customer columns kept out of the models (decision flags)"),
+    Key("not_features", TEXT_OR_TEXTS, ["do_not_contact", "hardship"],
+        "customer columns kept out of the models; the decision flags ([plan] exclude, "
+        "consent_column, do_not_contact, hardship) always are"),
     Key("trailing_sums", WHOLES_BY_TEXT, {}, "activity column = months summed before each "
         "month (lagged), e.g. { complaints = 3 }", each(at_least(1))),
     Key("known_future", _TEXTS_BY_TEXT, {}, "feature = schedule of its future values when "

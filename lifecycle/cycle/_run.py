@@ -184,11 +184,13 @@ def run_cycle(
     settings = run_settings(config, reports=reports)
     config_dir = config.source.parent if config.source else None
     keep_key_outside([source, settings.work, settings.reports, config_dir])
+    tick("check")
+    checked = _checked_inputs(source, config, settings, as_of, force)  # reads only
     with run_lock(settings.reports):  # before any computation: one run per reports folder
         history = ScoreHistory(settings.history_path)
         mend(settings.reports, history, settings.work)
         try:
-            return _locked_run(source, config, settings, as_of, force, tick, client, history)
+            return _locked_run(source, config, settings, checked, force, tick, client, history)
         except Exception as exc:
             if _disk_full(exc):
                 where = getattr(exc, "filename", None) or "the outputs"
@@ -206,28 +208,16 @@ def _disk_full(exc: Exception) -> bool:
     return "No space left on device" in str(exc)
 
 
-def _locked_run(source, config, settings, as_of, force, tick, client, history) -> RunResult:
-    """`run_cycle` once the reports folder is locked: every check, then the computation, then
-    the month folder and its history rows together, then the work folder's saved steps."""
+def _checked_inputs(source, config: Config, settings: RunSettings, as_of, force: bool) -> dict:
+    """Every check of the inputs, before the run takes its lock or writes anything (it only
+    reads): the tables, the month, the plan's flags and offers. Whether the month exists is
+    asked under the lock, after an earlier crash is mended."""
     from ..data import load_tables, tables_as_of
-    from ..evaluation import TenureLifeTable, backtest, choose_champions
-    from ..models._families import make_model
-    from ..models._fittable import check_fittable, min_events_setting
-    from ..report import write_report
+    from ..models._fittable import min_events_setting
     from ..spatial import premise_areas
-    from ..value import round_money
     from ._checks import check_as_of
-    from ._steps import (
-        default_cutoffs,
-        forecast_portfolio,
-        panel_with_context,
-        plan_contacts,
-        plan_offers,
-        score_on_cluster,
-        score_portfolio,
-    )
+    from ._steps import plan_offers
 
-    tick("check")
     tables = load_tables(source, config)
     premise_areas(tables, config)  # as `lifecycle check` does: refused before anything is written
     month = as_of or format_month(tables.extract_month)
@@ -239,14 +229,45 @@ def _locked_run(source, config, settings, as_of, force, tick, client, history) -
         )
     check_as_of(tables, month_index, what="as_of")
     tables = tables_as_of(tables, month_index)  # a past month sees only what it knew
-    min_events = min_events_setting(config)
-    folder = settings.reports / month
+    _check_plan_inputs(tables, config)
+    return {
+        "tables": tables,
+        "month": month,
+        "month_index": month_index,
+        "offers": plan_offers(tables, config),
+        "min_events": min_events_setting(config),
+    }
+
+
+def _refuse_existing(folder: Path, month: str, force: bool) -> None:
     if folder.exists() and not force:
         raise UsageError(
             f"{folder} exists: month {month} was run already; pass --force to rewrite it"
         )
-    _check_plan_inputs(tables, config)
-    offers = plan_offers(tables, config)
+
+
+def _locked_run(source, config, settings, checked, force, tick, client, history) -> RunResult:
+    """`run_cycle` once the inputs are checked and the reports folder is locked: the
+    computation, then the month folder and its history rows together, then the work folder's
+    saved steps."""
+    from ..evaluation import TenureLifeTable, backtest, choose_champions
+    from ..models._families import make_model
+    from ..models._fittable import check_fittable
+    from ..report import write_report
+    from ..value import round_money
+    from ._steps import (
+        default_cutoffs,
+        forecast_portfolio,
+        panel_with_context,
+        plan_contacts,
+        score_on_cluster,
+        score_portfolio,
+    )
+
+    tables, month, month_index = checked["tables"], checked["month"], checked["month_index"]
+    offers, min_events = checked["offers"], checked["min_events"]
+    folder = settings.reports / month
+    _refuse_existing(folder, month, force)  # under the lock, after `mend`
     fingerprint = hashlib.sha256(f"{data_fingerprint(source, config)}:{month}".encode()).hexdigest()
     keys = (month, fingerprint, _config_hash(config))
     saves = []  # saved steps, written to the work folder only once the month is published
