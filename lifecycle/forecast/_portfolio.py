@@ -92,17 +92,7 @@ def forecast_extras(
     uptakes = tables.uptakes
     recent = uptakes[(uptakes["month"] > as_of - window_months) & (uptakes["month"] <= as_of)]
     events = {p: float((recent["product"] == p).sum()) for p in products}
-    drift = {}
-    if draws or level_trend:
-        customers = tables.customers
-        for p in products:
-            mine = uptakes[uptakes["product"] == p].set_index("customer_id")["month"]
-            taken = mine.reindex(customers["customer_id"].to_numpy()).to_numpy(dtype=np.float64)
-            drift[p] = uptake_rate_drift(
-                customers["start"].to_numpy(), customers["end"].to_numpy(), taken, as_of,
-                season=True,
-            )  # fmt: skip
-            log.info("uptake of %s: level drift %.4f (se %.4f) a month lately", p, *drift[p])
+    drift = _drifts(tables, products, as_of) if (draws or level_trend) else {}
     levels = level_draws(events, draws, seed, drift=drift, horizon=horizon) or None
     trend = None
     if level_trend and products and len(snapshot):
@@ -128,6 +118,21 @@ def forecast_extras(
         total = parts[(product, ALL_AREAS)].mean[1, -1]
         log.info("joiners: %.1f expected uptakes of %s within %d months", total, product, horizon)
     return ForecastExtras(parts, levels, trend)
+
+
+def _drifts(tables: Tables, products: list[str], as_of: int) -> dict[str, tuple[float, float]]:
+    """Each product's `uptake_rate_drift` (with month-of-year terms) up to ``as_of``."""
+    customers, uptakes = tables.customers, tables.uptakes
+    out = {}
+    for p in products:
+        mine = uptakes[uptakes["product"] == p].set_index("customer_id")["month"]
+        taken = mine.reindex(customers["customer_id"].to_numpy()).to_numpy(dtype=np.float64)
+        out[p] = uptake_rate_drift(
+            customers["start"].to_numpy(), customers["end"].to_numpy(), taken, as_of,
+            season=True,
+        )  # fmt: skip
+        log.info("uptake of %s: level drift %.4f (se %.4f) a month lately", p, *out[p])
+    return out
 
 
 def _trend(model, snapshot, hazards, drift, as_of: int, horizon: int, seed: int):
