@@ -184,3 +184,35 @@ def test_the_trend_never_sees_the_months_forecast():
     # and the trend does move when the months up to as_of change
     fewer = up[(up["month"] <= as_of - 6) | (up.index % 2 == 0)]
     assert not np.array_equal(extras(fewer).level_trend["p"], before.level_trend["p"])
+
+
+def test_the_trend_follows_a_fixed_group_not_the_newcomers():
+    # a constant uptake rate of 1 % a month for everybody already there; newcomers joining
+    # through the 24 months take it up at 4 % a month: the rate among all at risk rises, the
+    # rate of the group there at the start does not, so no trend is carried (|d| < 2 se)
+    rng = np.random.default_rng(11)
+    as_of, first = 100, 77
+    old, new = 6000, 3000
+    starts = np.concatenate([np.full(old, first - 5), rng.integers(first + 1, as_of, new)])
+    rate = np.concatenate([np.full(old, 0.01), np.full(new, 0.04)])
+    months = np.arange(first - 5, as_of + 1)
+    u = rng.random((old + new, months.size))
+    take = (u < rate[:, None]) & (months[None, :] >= starts[:, None])
+    taken = np.where(take.any(1), months[take.argmax(1)].astype(float), np.nan)
+    ids = np.arange(old + new)
+    customers = pd.DataFrame({"customer_id": ids, "start": starts, "end": np.nan})
+    up = pd.DataFrame({"customer_id": ids, "product": "p", "month": taken}).dropna()
+    up["month"] = up["month"].astype(int)
+    tables = SimpleNamespace(customers=customers, uptakes=up)
+    hazards = np.zeros((100, 12, 2))
+    hazards[:, :, 1] = 0.01
+    made = forecast_extras(tables, SimpleNamespace(causes_=CAUSES), pd.DataFrame({"x": [0]}),
+                           pd.Series(dtype=object), as_of=as_of, horizon=12, joiners=False,
+                           draws=0, hazards=hazards)  # fmt: skip
+    everyone, se = uptake_rate_drift(starts, np.full(old + new, np.nan), taken, as_of, season=True)
+    assert everyone > 4 * se
+    group = (starts <= first) & ~(taken < first)
+    _, group_se = uptake_rate_drift(
+        starts[group], np.full(group.sum(), np.nan), taken[group], as_of, season=True
+    )
+    assert abs(made.level_trend["p"][1]) < 2 * group_se  # ln g_2 = d

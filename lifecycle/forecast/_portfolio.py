@@ -10,6 +10,7 @@ from dataclasses import dataclass
 import numpy as np
 import pandas as pd
 
+from .._months import format_month
 from ..data import Tables
 from ..panel._layout import UPTAKE_PREFIX
 from ..value._hazards import uptake_incidence
@@ -26,6 +27,8 @@ from ._joiners import (
 from ._trend import SAMPLE, model_rate_slope, trend_path
 
 log = logging.getLogger(__name__)
+
+DRIFT_MONTHS = 24
 
 
 @dataclass
@@ -96,7 +99,8 @@ def forecast_extras(
     levels = level_draws(events, draws, seed, drift=drift, horizon=horizon) or None
     trend = None
     if level_trend and products and len(snapshot):
-        trend = _trend(model, snapshot, hazards, drift, as_of, horizon, seed)
+        cohort = _drifts(tables, products, as_of, cohort=True)
+        trend = _trend(model, snapshot, hazards, cohort, as_of, horizon, seed)
     if not joiners or len(snapshot) == 0:
         return ForecastExtras(None, levels, trend)
     customers = tables.customers
@@ -120,18 +124,28 @@ def forecast_extras(
     return ForecastExtras(parts, levels, trend)
 
 
-def _drifts(tables: Tables, products: list[str], as_of: int) -> dict[str, tuple[float, float]]:
-    """Each product's `uptake_rate_drift` (with month-of-year terms) up to ``as_of``."""
+def _drifts(
+    tables: Tables, products: list[str], as_of: int, *, cohort: bool = False
+) -> dict[str, tuple[float, float]]:
+    """Each product's `uptake_rate_drift` (with month-of-year terms) over the 24 months up to
+    ``as_of``; with ``cohort``, among the customers active and not holding the product at the
+    window's first month only (`lifecycle.forecast._trend`)."""
     customers, uptakes = tables.customers, tables.uptakes
+    starts = customers["start"].to_numpy(dtype=np.float64)
+    ends = customers["end"].to_numpy(dtype=np.float64)
+    first = as_of - DRIFT_MONTHS + 1
     out = {}
     for p in products:
         mine = uptakes[uptakes["product"] == p].set_index("customer_id")["month"]
         taken = mine.reindex(customers["customer_id"].to_numpy()).to_numpy(dtype=np.float64)
+        keep = np.ones(len(starts), dtype=bool)
+        if cohort:
+            keep = (starts <= first) & ~(ends < first) & ~(taken < first)
         out[p] = uptake_rate_drift(
-            customers["start"].to_numpy(), customers["end"].to_numpy(), taken, as_of,
-            season=True,
-        )  # fmt: skip
-        log.info("uptake of %s: level drift %.4f (se %.4f) a month lately", p, *out[p])
+            starts[keep], ends[keep], taken[keep], as_of, DRIFT_MONTHS, season=True
+        )
+        what = "among the customers of " + format_month(first) if cohort else "lately"
+        log.info("uptake of %s: level drift %.4f (se %.4f) a month %s", p, *out[p], what)
     return out
 
 

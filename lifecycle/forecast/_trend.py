@@ -3,24 +3,31 @@
 The hazard models forecast months 1..H from features held at their snapshot values (except
 tenure, season and `[panel] known_future` schedules), so a level that keeps moving — nearby
 adoption spreading, say — is missed, and the forecast falls behind more each month. From
-what was observed up to the forecast's start, two slopes of the log monthly uptake rate per
-customer at risk (active, not holding the product) are compared:
+what was observed up to the forecast's start, two slopes of the log monthly uptake rate of a
+fixed group of customers as it ages are compared:
 
-    b̂_obs   = slope of ln(uptakes_m / at_risk_m) over the last 24 observed months
-              (`uptake_rate_drift`, Poisson regression with the at-risk count as offset and
-              month-of-year terms sin, cos of 2πm/12),
-    b̂_model = slope of ln r_t over the forecast months t = 1..H of the model's own forecast,
+    b̂_obs   = slope of ln(uptakes_m / at_risk_m) over the last 24 observed months among the
+              customers active and not holding the product at the first of those months
+              (at risk: still active, not holding it; `uptake_rate_drift`, Poisson regression
+              with the at-risk count as offset and month-of-year terms sin, cos of 2πm/12),
+    b̂_model = slope of ln r_t over the forecast months t = 1..H of the model's own forecast
+              for today's customers,
               r_t = Σ_i S_i(t−1)·h_i(t) / Σ_i S_i(t−1)   (customers not holding the product;
               S_i(t−1) = Π_{s<t}(1 − h_i(s) − Σ_k h_k,i(s)), exits k competing), by least
-              squares on 1, t (and sin, cos of the calendar month when H ≥ 12),
+              squares on 1, t (and sin, cos of the calendar month when H ≥ 12).
 
-and the part the model lacks, d = b̂_obs − b̂_model (standard error se(b̂_obs)), is carried
-forward: month t's expected uptakes — current customers' and joiners' — are multiplied by
+Both follow a fixed group as it ages and thins out (those most inclined take the product up
+first), so tenure and selection enter both; what the observed one has beyond the model's is
+the calendar drift the held features miss. That part, d = b̂_obs − b̂_model (standard error
+se(b̂_obs)), is carried forward: month t's expected uptakes — current customers' and
+joiners' — are multiplied by
 
     g_t = exp(d·(t − 1)),
 
 month 1 being the month the snapshot's features describe. The log-level draws keep their
-spread around this path (`level_draws`: ε_b,t = ε_b + δ_b·t, δ_b ~ N(0, b̂_obs² + se²)).
+spread around this path (`level_draws`: ε_b,t = ε_b + δ_b·t, δ_b ~ N(0, b̂² + se²), b̂ the
+slope among all customers at risk), so the intervals allow the drift to stop or to double.
+A model whose level is off from month 1 is not mended by this (it compares slopes only).
 Only months up to the forecast's start enter (no realised value of a forecast month).
 ``[forecast] level_trend = false`` turns the correction off (g_t = 1).
 """
