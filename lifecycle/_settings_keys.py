@@ -315,6 +315,8 @@ _STAGES = (
             "its drift, joiner coefficients) mixed into the intervals; 0: outcome noise only",
             between(0, 10_000)),
         Key("seed", WHOLE, 0, "seed of those draws and of the joiners' template sample", _SEED),
+        Key("level_trend", FLAG, True, "carry the recent trend of the uptake rate that the "
+            "models' held features lack (observed slope minus the forecast's own)"),
     )),
     Section("forecast.launch", "a launch without history (`lifecycle forecast --launch-month`) "
             "when no comparable product is given: the Bass model's coefficients", (

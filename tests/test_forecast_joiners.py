@@ -167,7 +167,7 @@ def test_forecast_uptake_adds_joiners_and_keeps_the_current_part():
 
 @pytest.mark.parametrize(
     ("setting", "value"),
-    [("joiners", "yes"), ("joiner_months", 0), ("draws", -1), ("seed", 1.5)],
+    [("joiners", "yes"), ("joiner_months", 0), ("draws", -1), ("seed", 1.5), ("level_trend", 1)],
 )
 def test_forecast_settings_refuse_bad_values(setting, value):
     config = Config(raw={"forecast": {setting: value}})
@@ -178,6 +178,8 @@ def test_forecast_settings_refuse_bad_values(setting, value):
 def test_forecast_settings_defaults():
     s = forecast_settings(Config(raw={}))
     assert (s.joiners, s.joiner_months, s.joiner_trend, s.draws, s.seed) == (True, 36, True, 200, 0)
+    assert s.level_trend is True
+    assert forecast_settings(Config(raw={"forecast": {"level_trend": False}})).level_trend is False
 
 
 def test_joiner_counts_without_joiners_expect_none():

@@ -287,14 +287,14 @@ def forecast_extras(
     config: Config,
     customer_areas: pd.Series | None = None,
 ) -> dict:
-    """`forecast_uptake`'s ``joiners`` and ``level_draws`` for the scored portfolio (``{}``
-    without a model, or when ``[forecast]`` turns both off)."""
+    """`forecast_uptake`'s ``joiners``, ``level_draws`` and ``level_trend`` for the scored
+    portfolio (``{}`` without a model, or when ``[forecast]`` turns all three off)."""
     from ..forecast import forecast_settings
     from ..forecast._portfolio import forecast_extras as extras_of
     from ..spatial import premise_areas
 
     settings = forecast_settings(config)
-    if model is None or (not settings.joiners and not settings.draws):
+    if model is None or not (settings.joiners or settings.draws or settings.level_trend):
         return {}
     if customer_areas is None:
         customer_areas = premise_areas(tables, config)
@@ -311,6 +311,8 @@ def forecast_extras(
         draws=settings.draws,
         seed=settings.seed,
         window_months=int(config.panel.window_months),
+        level_trend=settings.level_trend,
+        hazards=scored.hazards,
     ).as_kwargs()
 
 

@@ -263,9 +263,12 @@ def level_draws(
 
     1/D is the variance of the hazard's overall level estimated from D uptake events (as for a
     Poisson rate); δ is a drift of the level during the horizon, as fast as the product's
-    observed uptake rate moved per month lately (b̂, from `uptake_rate_drift`), either way:
-    covariates are held at their values at the start of the forecast, so a level that keeps
-    moving (e.g. as neighbours adopt) is something the models do not know."""
+    observed uptake rate moved per month lately (b̂, from `uptake_rate_drift`, with month-of-year
+    terms in the forecast), either way: covariates are held at their values at the start of
+    the forecast, so a level that keeps moving (e.g. as neighbours adopt) is something the
+    models do not know. The draws spread around the forecast's path, which carries the part of
+    that trend the models lack when ``[forecast] level_trend`` is on
+    (`lifecycle.forecast._trend`)."""
     if not draws:
         return {}
     out = {}
@@ -286,11 +289,14 @@ def uptake_rate_drift(
     taken: np.ndarray,
     as_of: int,
     months: int = 24,
+    *,
+    season: bool = False,
 ) -> tuple[float, float]:
     """Slope b̂ (per month) of the log monthly uptake rate over the last ``months`` months up
     to ``as_of``, and its standard error: Poisson regression of the month's uptakes on
-    a + b·(m − as_of) with the log of the customers at risk (active, not holding the product)
-    as offset.
+    a + b·(m − as_of) (with ``season``, plus c·sin(2πm/12) + e·cos(2πm/12), so that a season
+    does not pass for a trend) with the log of the customers at risk (active, not holding the
+    product) as offset.
 
     ``starts``, ``ends`` (NaN while active) and ``taken`` (uptake month, NaN if never) are per
     customer."""
@@ -304,10 +310,15 @@ def uptake_rate_drift(
     keep = at_risk > 0
     if keep.sum() < 3 or events[keep].sum() < 1:
         return 0.0, 0.0
-    x = np.column_stack([np.ones(keep.sum()), (m[keep] - as_of).astype(np.float64)])
+    columns = [np.ones(keep.sum()), (m[keep] - as_of).astype(np.float64)]
+    if season and keep.sum() >= 6:
+        angle = 2.0 * np.pi * m[keep] / 12.0
+        columns += [np.sin(angle), np.cos(angle)]
+    x = np.column_stack(columns)
     offset = np.log(at_risk[keep])
     y = events[keep]
-    beta = np.array([np.log(y.sum() / at_risk[keep].sum()), 0.0])
+    beta = np.zeros(x.shape[1])
+    beta[0] = np.log(y.sum() / at_risk[keep].sum())
     for _ in range(50):
         mu = np.exp(offset + x @ beta)
         info = (x * mu[:, None]).T @ x

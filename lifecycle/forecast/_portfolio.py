@@ -1,5 +1,6 @@
 """What the uptake forecast of a portfolio needs besides the current customers' hazards: the
-joiners (`lifecycle.forecast._joiners`) and the draws of the uptake hazards' level."""
+joiners (`lifecycle.forecast._joiners`), the trend of the uptake rate the models lack
+(`lifecycle.forecast._trend`) and the draws of the uptake hazards' level."""
 
 from __future__ import annotations
 
@@ -9,6 +10,7 @@ from dataclasses import dataclass
 import numpy as np
 import pandas as pd
 
+from .._months import format_month
 from ..data import Tables
 from ..panel._layout import UPTAKE_PREFIX
 from ..value._hazards import uptake_incidence
@@ -22,8 +24,11 @@ from ._joiners import (
     template_rows,
     uptake_rate_drift,
 )
+from ._trend import SAMPLE, model_rate_slope, trend_path
 
 log = logging.getLogger(__name__)
+
+DRIFT_MONTHS = 24
 
 
 @dataclass
@@ -32,9 +37,14 @@ class ForecastExtras:
 
     joiners: dict[tuple[str, str], JoinerPart] | None
     level_draws: dict[str, np.ndarray] | None
+    level_trend: dict[str, np.ndarray] | None = None
 
     def as_kwargs(self) -> dict:
-        return {"joiners": self.joiners, "level_draws": self.level_draws}
+        return {
+            "joiners": self.joiners,
+            "level_draws": self.level_draws,
+            "level_trend": self.level_trend,
+        }
 
 
 def forecast_extras(
@@ -51,6 +61,8 @@ def forecast_extras(
     draws: int = 200,
     seed: int = 0,
     window_months: int = 48,
+    level_trend: bool = True,
+    hazards: np.ndarray | None = None,
 ) -> ForecastExtras:
     """Joiners' uptakes and level draws for the forecast of the portfolio at ``as_of``.
 
@@ -73,24 +85,24 @@ def forecast_extras(
         Draws of what is not known about the models (0: none).
     window_months
         The fitted panel's window (the uptake events in it set each level's uncertainty).
+    level_trend
+        Whether to carry the uptake rate's trend the model lacks (`lifecycle.forecast._trend`).
+    hazards
+        The model's hazards ``(n, ≥ horizon, K)`` of the snapshot's customers, if already
+        computed (else those of a sample of the snapshot are computed for the trend).
     """
     products = [c.removeprefix(UPTAKE_PREFIX) for c in model.causes_ if c.startswith(UPTAKE_PREFIX)]
     uptakes = tables.uptakes
     recent = uptakes[(uptakes["month"] > as_of - window_months) & (uptakes["month"] <= as_of)]
     events = {p: float((recent["product"] == p).sum()) for p in products}
-    drift = {}
-    if draws:
-        customers = tables.customers
-        for p in products:
-            mine = uptakes[uptakes["product"] == p].set_index("customer_id")["month"]
-            taken = mine.reindex(customers["customer_id"].to_numpy()).to_numpy(dtype=np.float64)
-            drift[p] = uptake_rate_drift(
-                customers["start"].to_numpy(), customers["end"].to_numpy(), taken, as_of
-            )
-            log.info("uptake of %s: level drift %.4f (se %.4f) a month lately", p, *drift[p])
+    drift = _drifts(tables, products, as_of) if (draws or level_trend) else {}
     levels = level_draws(events, draws, seed, drift=drift, horizon=horizon) or None
+    trend = None
+    if level_trend and products and len(snapshot):
+        cohort = _drifts(tables, products, as_of, cohort=True)
+        trend = _trend(model, snapshot, hazards, cohort, as_of, horizon, seed)
     if not joiners or len(snapshot) == 0:
-        return ForecastExtras(None, levels)
+        return ForecastExtras(None, levels, trend)
     customers = tables.customers
     ends = customers["end"].to_numpy(dtype=np.float64)
     first_complete = int(np.nanmin(ends)) if np.isfinite(ends).any() else None
@@ -109,7 +121,57 @@ def forecast_extras(
     for product in products:
         total = parts[(product, ALL_AREAS)].mean[1, -1]
         log.info("joiners: %.1f expected uptakes of %s within %d months", total, product, horizon)
-    return ForecastExtras(parts, levels)
+    return ForecastExtras(parts, levels, trend)
+
+
+def _drifts(
+    tables: Tables, products: list[str], as_of: int, *, cohort: bool = False
+) -> dict[str, tuple[float, float]]:
+    """Each product's `uptake_rate_drift` (with month-of-year terms) over the 24 months up to
+    ``as_of``; with ``cohort``, among the customers active and not holding the product at the
+    window's first month only (`lifecycle.forecast._trend`)."""
+    customers, uptakes = tables.customers, tables.uptakes
+    starts = customers["start"].to_numpy(dtype=np.float64)
+    ends = customers["end"].to_numpy(dtype=np.float64)
+    first = as_of - DRIFT_MONTHS + 1
+    out = {}
+    for p in products:
+        mine = uptakes[uptakes["product"] == p].set_index("customer_id")["month"]
+        taken = mine.reindex(customers["customer_id"].to_numpy()).to_numpy(dtype=np.float64)
+        keep = np.ones(len(starts), dtype=bool)
+        if cohort:
+            keep = (starts <= first) & ~(ends < first) & ~(taken < first)
+        out[p] = uptake_rate_drift(
+            starts[keep], ends[keep], taken[keep], as_of, DRIFT_MONTHS, season=True
+        )
+        what = "among the customers of " + format_month(first) if cohort else "lately"
+        log.info("uptake of %s: level drift %.4f (se %.4f) a month %s", p, *out[p], what)
+    return out
+
+
+def _trend(model, snapshot, hazards, drift, as_of: int, horizon: int, seed: int):
+    """ln g_t per product (`lifecycle.forecast._trend`)."""
+    if hazards is None:
+        rows = np.arange(len(snapshot))
+        if len(rows) > SAMPLE:
+            rng = np.random.default_rng([seed, 16, 7])
+            rows = np.sort(rng.choice(len(rows), SAMPLE, replace=False))
+        hazards = model.hazard_array(snapshot.iloc[rows], horizon)
+    causes = list(model.causes_)
+    terminal = [k for k, c in enumerate(causes) if not c.startswith(UPTAKE_PREFIX)]
+    out = {}
+    for j, cause in enumerate(causes):
+        if not cause.startswith(UPTAKE_PREFIX):
+            continue
+        product = cause.removeprefix(UPTAKE_PREFIX)
+        own = model_rate_slope(hazards[:, :horizon], terminal, j, as_of + 1, seed=seed)
+        observed = drift[product][0]
+        log.info(
+            "uptake of %s: rate slope %.4f a month observed, %.4f in the model's forecast",
+            product, observed, own,
+        )  # fmt: skip
+        out[product] = trend_path(observed, own, horizon)
+    return out
 
 
 def joiner_curves(

@@ -4,7 +4,9 @@ what happened.
 For a cutoff c (a month of the backtest, whose fits are reused: no model is fitted for the
 track record), the uptake forecast of months c+1..c+H is made exactly as the run makes it —
 the current customers' hazards from the family fitted at c, plus the customers who join after
-c (joiner counts fitted on the months up to c), with the draws of the models' uncertainty —
+c (joiner counts fitted on the months up to c), with the trend of the uptake rate the
+models lack (`lifecycle.forecast._trend`, from months up to c) and the draws of the models'
+uncertainty —
 and set beside the uptakes realised in those months, all customers' and the joiners' (those
 who started after c). H is the ``[forecast]`` horizon, shortened to the months observed.
 
@@ -54,12 +56,14 @@ def track_record_hook(tables: Tables, config: Config, customer_areas: pd.Series)
             joiner_trend=settings.joiner_trend,
             draws=settings.draws, seed=settings.seed,
             window_months=int(config.panel.window_months),
+            level_trend=settings.level_trend, hazards=hazards[:, :horizon],
         )  # fmt: skip
         joiners = extras.joiners and {k: v for k, v in extras.joiners.items() if k[1] == ALL_AREAS}
         made = forecast_uptake(
             hazards[:, :horizon], model.causes_, start_month=cutoff + 1,
             levels=settings.levels, method=settings.method, exact_max=settings.exact_max,
             joiners=joiners or None, level_draws=extras.level_draws,
+            level_trend=extras.level_trend,
         )  # fmt: skip
         made = made.drop(columns="area_id").assign(made_at=format_month(cutoff))
         return _with_realised(made, tables, cutoff, horizon)

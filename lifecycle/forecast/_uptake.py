@@ -14,6 +14,8 @@ Settings in ``lifecycle.toml`` (all optional; ``lifecycle settings`` prints ever
     draws = 200                # draws of what is not known about the models (hazard level,
                                # joiner counts) mixed into the intervals; 0: outcome noise only
     seed = 0                   # seed of those draws
+    level_trend = true         # carry the recent trend of the uptake rate that the models'
+                               # held features lack (lifecycle.forecast._trend)
 
     [forecast.launch]          # a launch without history (see lifecycle.forecast._bass)
 """
@@ -59,6 +61,7 @@ class ForecastSettings:
     joiner_trend: bool = True
     draws: int = 200
     seed: int = 0
+    level_trend: bool = True
 
 
 def forecast_settings(config: Config) -> ForecastSettings:
@@ -69,7 +72,7 @@ def forecast_settings(config: Config) -> ForecastSettings:
         raise UsageError(f"{src}: [forecast] must be a table of settings")
     allowed = [
         "draws", "exact_max", "horizon_months", "joiner_months", "joiner_trend", "joiners",
-        "launch", "levels", "method", "seed",
+        "launch", "level_trend", "levels", "method", "seed",
     ]  # fmt: skip
     unknown = sorted(set(raw) - set(allowed))
     if unknown:
@@ -95,7 +98,7 @@ def forecast_settings(config: Config) -> ForecastSettings:
             "number >= 0"
         )
     flags = {}
-    for key in ("joiners", "joiner_trend"):
+    for key in ("joiners", "joiner_trend", "level_trend"):
         flags[key] = raw.get(key, True)
         if not isinstance(flags[key], bool):
             raise UsageError(
@@ -135,6 +138,7 @@ def forecast_uptake(
     customer_ids: Sequence[object] | np.ndarray | None = None,
     joiners: Mapping[tuple[str, str], JoinerPart] | None = None,
     level_draws: Mapping[str, np.ndarray] | None = None,
+    level_trend: Mapping[str, np.ndarray] | None = None,
 ) -> pd.DataFrame:
     """Expected new adopters of each product per month, by area and in total, with intervals.
 
@@ -164,7 +168,11 @@ def forecast_uptake(
     month ``(B, T)``) and the joiners' own coefficient draws, the intervals are those of the
     mixture over the B draws of the expected count, Σ_t e^{ε_b,t}·(current_t + joiners_b,t)
     (`lifecycle.forecast._intervals`), so they carry what is not known about the models as
-    well as the outcome noise.
+    well as the outcome noise. With ``level_trend`` (ln g_t of each product, ``(T,)``, from
+    `lifecycle.forecast._trend`: the trend of the uptake rate the models' held features
+    lack), month t's uptake probabilities of the current customers become g_t·p_i(t) (the
+    cumulative F_u,i capped at 1) and the joiners' monthly means and variances are multiplied
+    by g_t, before everything above.
 
     Parameters
     ----------
@@ -212,9 +220,13 @@ def forecast_uptake(
         product = h.causes[j].removeprefix(UPTAKE_PREFIX)
         cum = uptake_incidence(h.array[:, :horizon_], h.terminal, j)
         monthly = np.diff(cum, axis=1, prepend=0.0)
+        growth = _growth(level_trend, product, horizon_)
+        if growth is not None:
+            cum = np.minimum(np.cumsum(monthly * growth, axis=1), 1.0)
+            monthly = np.diff(cum, axis=1, prepend=0.0)
         levels_b = None if not level_draws else np.asarray(level_draws[product], dtype=float)
         for area, rows in groups:
-            extra = _joiner_part(joiners, product, area, horizon_)
+            extra = _grown(_joiner_part(joiners, product, area, horizon_), growth)
             frame = {"month": months, "area_id": area, "product": product}
             for kind, prefix, probs in ((0, "", monthly), (1, "cumulative_", cum)):
                 current = probs[rows].sum(axis=0)
@@ -324,6 +336,39 @@ def _joiner_part(
     cut = slice(0, horizon)
     draws = None if part.draws is None else part.draws[..., cut]
     return JoinerPart(part.mean[:, cut], part.var[:, cut], draws)
+
+
+def _growth(
+    level_trend: Mapping[str, np.ndarray] | None, product: str, horizon: int
+) -> np.ndarray | None:
+    """g_t = exp(ln g_t), t = 1..horizon, of a product (``None`` without a trend)."""
+    if not level_trend or level_trend.get(product) is None:
+        return None
+    path = np.asarray(level_trend[product], dtype=np.float64)
+    if path.ndim != 1 or path.size < horizon or not np.isfinite(path[:horizon]).all():
+        raise UsageError(
+            f"level_trend of {product} needs {horizon} finite monthly values; it has shape "
+            f"{path.shape}"
+        )
+    return np.exp(path[:horizon])
+
+
+def _grown(part: JoinerPart | None, growth: np.ndarray | None) -> JoinerPart | None:
+    """The joiners' part with month t's mean and variance multiplied by g_t (cumulative: the
+    sums of the grown months; its variance by the ratio of the grown to the plain mean)."""
+    if part is None or growth is None:
+        return part
+    monthly = part.mean[0] * growth
+    cumulative = np.cumsum(monthly)
+    ratio = np.divide(cumulative, part.mean[1], out=np.ones_like(cumulative),
+                      where=part.mean[1] > 0)  # fmt: skip
+    mean = np.stack([monthly, cumulative])
+    var = np.stack([part.var[0] * growth, part.var[1] * ratio])
+    draws = None
+    if part.draws is not None:
+        grown = part.draws[:, 0] * growth[None, :]
+        draws = np.stack([grown, np.cumsum(grown, axis=1)], axis=1)
+    return JoinerPart(mean, var, draws)
 
 
 def _put(frame: dict, prefix: str, levels: tuple[float, ...], bounds: np.ndarray) -> None:
