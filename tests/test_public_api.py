@@ -43,13 +43,15 @@ def test_forecast_names_are_pinned():
 
 
 EVALUATION_CAMPAIGN = {"expected_maximum_profit", "qini_coefficient", "qini_curve"}
+VALUE_CAMPAIGN = {"OfferEffectModel", "campaign_covariates", "customer_offer_effects"}
 
 
 def test_campaign_metrics_and_effects_are_pinned():
-    """The uplift metrics are public, documented and typed."""
+    """The uplift metrics and the per-customer offer effects are public, documented and typed."""
     import lifecycle.evaluation as evaluation
+    import lifecycle.value as value
 
-    for module, names in ((evaluation, EVALUATION_CAMPAIGN),):
+    for module, names in ((evaluation, EVALUATION_CAMPAIGN), (value, VALUE_CAMPAIGN)):
         assert names <= set(module.__all__)
         for name in names:
             obj = getattr(module, name)
