@@ -9,7 +9,10 @@ IEEE TKDE 25(5), for EMP), scikit-uplift's ``qini_curve``/``qini_auc_score`` and
 from __future__ import annotations
 
 import numpy as np
+import pandas as pd
 import pytest
+from hypothesis import given, settings
+from hypothesis import strategies as st
 from scipy import integrate, stats
 
 from lifecycle.errors import UsageError
@@ -198,3 +201,24 @@ def test_emp_edge_cases_and_bad_input():
         expected_maximum_profit([0.1, 0.2], [1, 3])
     with pytest.raises(UsageError, match="clv was -1"):
         expected_maximum_profit([0.1, 0.2], [1, 0], clv=-1)
+
+
+@settings(max_examples=40, deadline=None)
+@given(
+    data=st.lists(
+        st.tuples(st.integers(0, 5), st.integers(0, 1), st.integers(0, 1)), min_size=4, max_size=40
+    ),
+    seed=st.integers(0, 1000),
+)
+def test_qini_depends_only_on_the_order_of_the_scores(data, seed):
+    """Property: shuffling the customers, or any strictly increasing change of the score
+    (here 3·s³ + 1), leaves the curve and the coefficient unchanged."""
+    score, t, y = (np.array(v, dtype=float) for v in zip(*data, strict=True))
+    if t.min() == t.max():
+        t[0] = 1 - t[0]
+    perm = np.random.default_rng(seed).permutation(len(score))
+    base = qini_curve(score, t, y)
+    pd.testing.assert_frame_equal(qini_curve(score[perm], t[perm], y[perm]), base)
+    pd.testing.assert_frame_equal(qini_curve(3 * score**3 + 1, t, y), base)
+    a = qini_coefficient(score, t, y, normalize=False)
+    assert qini_coefficient(score[perm], t[perm], y[perm], normalize=False) == pytest.approx(a)
