@@ -179,6 +179,7 @@ def test_campaign_covariates_take_the_offer_month_row():
         (lambda f, x: (f, x.iloc[:10]), "covariates has 10 rows"),
         (lambda f, x: (f, x.assign(x1=np.nan)), "missing or infinite"),
         (lambda f, x: (f.assign(event=np.where(f["offered"] == 1, 0, f["event"])), x), "none"),
+        (lambda f, x: (f.assign(offered=2), x), "'offered' must hold only 0 and 1"),
     ],
 )
 def test_bad_input_is_named(change, match):

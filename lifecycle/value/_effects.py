@@ -300,6 +300,14 @@ def _design(
         raise UsageError(f"covariates {bad} hold missing or infinite values; fill or drop them")
     offered = follow["offered"].to_numpy(dtype=np.float64)
     event = follow["event"].to_numpy(dtype=np.float64)
+    for name, values in (("offered", offered), ("event", event)):
+        if not np.isin(values, (0.0, 1.0)).all():
+            raise UsageError(f"follow column {name!r} must hold only 0 and 1")
+    if follow["customer_id"].duplicated().any():
+        log.warning(
+            "offer effects: some customers have several campaign rows; the rows are treated "
+            "as independent, so the test of variation is too ready to find it"
+        )
     for arm in (1.0, 0.0):
         if not (event[offered == arm] == 1).any():
             raise UsageError(
@@ -331,7 +339,9 @@ def _cross_validate(
     split = StratifiedKFold(n_splits=folds, shuffle=True, random_state=seed)
     qini = {p: [] for p in penalizers}
     loglik = {p: [] for p in penalizers}
-    for train, test in split.split(data, strata):
+    with library_warnings("offer effects"):  # e.g. a stratum smaller than the folds
+        splits = list(split.split(data, strata))
+    for train, test in splits:
         fit_part, held = data.iloc[train], data.iloc[test]
         for p in penalizers:
             fit = _fit(fit_part, _penalty(data, x_cols, p))
