@@ -52,3 +52,16 @@ def test_known_truth_cohort_is_recovered():
 def test_bad_counts_are_refused(alive):
     with pytest.raises(UsageError, match="alive"):
         fit_shifted_beta_geometric(alive)
+
+
+def test_a_cohort_without_heterogeneity_reaches_the_geometric_limit():
+    """Regression: a small cohort losing one customer every other month ([10, 10, 9, 9, 8, 8,
+    7]) drives α and β toward infinity, where differences of log-beta functions lost every
+    digit (a positive log-likelihood and a survival of 1.5e111). In that limit the sBG is the
+    geometric model with θ = α/(α + β) (Fader & Hardie 2007): worked by hand, leavers at t = 2,
+    4, 6 give 3·ln θ + (1 + 3 + 5)·ln(1 − θ), the 7 still alive 7·6·ln(1 − θ), so θ̂ = 3/54 and
+    ℓ = 3·ln(3/54) + 51·ln(51/54) = −11.586; S(12) = (51/54)^12 = 0.5036."""
+    fit = fit_shifted_beta_geometric([10, 10, 9, 9, 8, 8, 7])
+    theta = 3 / 54
+    assert fit.loglik == pytest.approx(3 * np.log(theta) + 51 * np.log(1 - theta), abs=1e-3)
+    np.testing.assert_allclose(fit.survival([12, 24]), (1 - theta) ** np.array([12, 24]), rtol=1e-3)

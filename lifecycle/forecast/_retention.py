@@ -41,9 +41,14 @@ class ShiftedBetaGeometric:
         ts = np.asarray(t, dtype=np.float64)
         if np.any(ts < 0):
             raise UsageError(f"t must be >= 0; got {ts[ts < 0][:3].tolist()}")
-        out = np.exp(
-            special.betaln(self.alpha, self.beta + ts) - special.betaln(self.alpha, self.beta)
-        )
+        if np.all(ts == np.round(ts)) and ts.size and ts.max() <= 10_000:
+            # the product of retention rates: exact, and stable however large α and β are
+            log_s = _log_survival(self.alpha, self.beta, int(ts.max()))
+            out = np.exp(log_s[ts.astype(np.int64)])
+        else:
+            out = np.exp(
+                special.betaln(self.alpha, self.beta + ts) - special.betaln(self.alpha, self.beta)
+            )
         return out if out.ndim else out[()]
 
     def retention(self, t: int | Sequence[int] | np.ndarray) -> np.ndarray:
@@ -82,10 +87,12 @@ def fit_shifted_beta_geometric(alive: Sequence[float] | np.ndarray) -> ShiftedBe
     periods = np.arange(1, n.size)
 
     def nll(log_ab: np.ndarray) -> float:
+        # Through the recursion above rather than differences of log-beta functions, which
+        # lose every digit once α and β are large (a cohort with little heterogeneity).
         a, b = np.exp(log_ab)
-        log_p = special.betaln(a + 1.0, b + periods - 1.0) - special.betaln(a, b)
-        log_s = special.betaln(a, b + periods[-1]) - special.betaln(a, b)
-        return -float(np.sum(lost * log_p) + n[-1] * log_s)
+        log_s = _log_survival(a, b, int(periods[-1]))
+        log_p = log_s[periods - 1] - np.log1p((b + periods - 1.0) / a)
+        return -float(np.sum(lost * log_p) + n[-1] * log_s[-1])
 
     best = None
     for start in ((0.0, 0.0), (-1.0, 1.0), (1.0, 2.0)):
@@ -95,3 +102,9 @@ def fit_shifted_beta_geometric(alive: Sequence[float] | np.ndarray) -> ShiftedBe
             best = found
     a, b = np.exp(best.x)
     return ShiftedBetaGeometric(alpha=float(a), beta=float(b), size=float(n[0]), loglik=-best.fun)
+
+
+def _log_survival(alpha: float, beta: float, periods: int) -> np.ndarray:
+    """ln S(t) for t = 0..periods: Σ_{i<t} ln r(i + 1), r(i + 1) = (β + i)/(α + β + i)."""
+    i = np.arange(periods, dtype=np.float64)
+    return np.r_[0.0, np.cumsum(-np.log1p(alpha / (beta + i)))]
