@@ -65,3 +65,14 @@ def test_a_cohort_without_heterogeneity_reaches_the_geometric_limit():
     theta = 3 / 54
     assert fit.loglik == pytest.approx(3 * np.log(theta) + 51 * np.log(1 - theta), abs=1e-3)
     np.testing.assert_allclose(fit.survival([12, 24]), (1 - theta) ** np.array([12, 24]), rtol=1e-3)
+
+
+def test_a_cohort_of_immediate_leavers_and_stayers_reaches_its_supremum():
+    """Regression: [10, 9, 9, ..., 9] drives α and β toward 0, where the fit's parameters
+    underflowed. The supremum is the mixture of customers who leave at once (share 0.1) and
+    customers who never leave (worked by hand: ℓ = ln 0.1 + 9·ln 0.9 = −3.2508, S(t) = 0.9 for
+    every t >= 1); the old log-beta differences reported −3.2488, above that bound."""
+    fit = fit_shifted_beta_geometric([10] + [9] * 9)
+    bound = np.log(0.1) + 9 * np.log(0.9)
+    assert bound - 1e-3 <= fit.loglik <= bound + 1e-9
+    np.testing.assert_allclose(fit.survival([1, 12, 24]), 0.9, rtol=1e-3)

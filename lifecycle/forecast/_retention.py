@@ -43,7 +43,9 @@ class ShiftedBetaGeometric:
             raise UsageError(f"t must be >= 0; got {ts[ts < 0][:3].tolist()}")
         if np.all(ts == np.round(ts)) and ts.size and ts.max() <= 10_000:
             # the product of retention rates: exact, and stable however large α and β are
-            log_s = _log_survival(self.alpha, self.beta, int(ts.max()))
+            with np.errstate(divide="ignore"):  # α or β of 0: a log of −inf is right
+                log_ab = np.log(self.alpha), np.log(self.beta)
+            log_s, _ = _log_terms(*log_ab, int(ts.max()))
             out = np.exp(log_s[ts.astype(np.int64)])
         else:
             out = np.exp(
@@ -89,9 +91,8 @@ def fit_shifted_beta_geometric(alive: Sequence[float] | np.ndarray) -> ShiftedBe
     def nll(log_ab: np.ndarray) -> float:
         # Through the recursion above rather than differences of log-beta functions, which
         # lose every digit once α and β are large (a cohort with little heterogeneity).
-        a, b = np.exp(log_ab)
-        log_s = _log_survival(a, b, int(periods[-1]))
-        log_p = log_s[periods - 1] - np.log1p((b + periods - 1.0) / a)
+        log_s, log_leave = _log_terms(log_ab[0], log_ab[1], int(periods[-1]))
+        log_p = log_s[periods - 1] + log_leave[periods - 1]
         return -float(np.sum(lost * log_p) + n[-1] * log_s[-1])
 
     best = None
@@ -100,11 +101,19 @@ def fit_shifted_beta_geometric(alive: Sequence[float] | np.ndarray) -> ShiftedBe
         found = optimize.minimize(nll, np.array(start), method="Nelder-Mead", options=options)
         if best is None or found.fun < best.fun:
             best = found
-    a, b = np.exp(best.x)
+    a, b = np.exp(np.clip(best.x, -700.0, 700.0))  # finite and above 0 in float64
     return ShiftedBetaGeometric(alpha=float(a), beta=float(b), size=float(n[0]), loglik=-best.fun)
 
 
-def _log_survival(alpha: float, beta: float, periods: int) -> np.ndarray:
-    """ln S(t) for t = 0..periods: Σ_{i<t} ln r(i + 1), r(i + 1) = (β + i)/(α + β + i)."""
-    i = np.arange(periods, dtype=np.float64)
-    return np.r_[0.0, np.cumsum(-np.log1p(alpha / (beta + i)))]
+def _log_terms(log_alpha: float, log_beta: float, periods: int) -> tuple[np.ndarray, np.ndarray]:
+    """ln S(t) for t = 0..periods, and ln(1 − r(t + 1)) for t = 0..periods − 1, from ln α, ln β.
+
+    r(i + 1) = (β + i)/(α + β + i), so ln r(i + 1) = −ln(1 + e^{ln α − ln(β + i)}) and
+    ln(1 − r(i + 1)) = −ln(1 + e^{ln(β + i) − ln α}); ln S(t) = Σ_{i<t} ln r(i + 1). Written
+    with ``logaddexp`` so that no step overflows, underflows or cancels for any α, β.
+    """
+    i = np.arange(1, periods, dtype=np.float64)
+    log_b_i = np.r_[log_beta, np.logaddexp(log_beta, np.log(i))][:periods]
+    log_r = -np.logaddexp(0.0, log_alpha - log_b_i)
+    log_leave = -np.logaddexp(0.0, log_b_i - log_alpha)
+    return np.r_[0.0, np.cumsum(log_r)], log_leave
