@@ -23,7 +23,7 @@ from sklearn.model_selection import StratifiedKFold
 
 from .._warnings import library_warnings
 from ..errors import UsageError
-from ..evaluation._uplift import qini_coefficient
+from ..evaluation import qini_coefficient
 
 log = logging.getLogger(__name__)
 
