@@ -148,7 +148,9 @@ def test_no_variation_falls_back_to_the_average_effect():
     np.testing.assert_allclose(model.effects["hazard_ratio"], model.average_hazard_ratio)
     assert (model.features["interaction"] == 0).all()
     np.testing.assert_allclose(model.predict_hazard_ratio(x), model.average_hazard_ratio)
-    # the average is the known common ratio (within 4 standard errors, se ≈ √(1/d1 + 1/d0))
+    # the average is the known common ratio within 4 standard errors, se ≈ √(1/d1 + 1/d0)
+    # (the arm-only ratio leaves x1 out, which pulls it slightly toward 1: Cox ratios are not
+    # collapsible; this seed's draw is 2.6 se below 0.6)
     d1 = follow.loc[follow["offered"] == 1, "event"].sum()
     d0 = follow.loc[follow["offered"] == 0, "event"].sum()
     se = math.sqrt(1 / d1 + 1 / d0)
