@@ -136,21 +136,22 @@ CAMPAIGN = {
     "segments": (
         {
             "name": "complained",
-            "rule": "complaints_3m >= 1",
-            "hazard_ratio": 1.8,
+            "rule": "complaints_3m >= 2",
+            "hazard_ratio": 2.5,
             "story": (
-                "a credit offered soon after a complaint reads as a brush-off: it prompts the "
-                "customer to shop around"
+                "a credit offered after repeated complaints (two or more in the three months "
+                "before the offer) reads as a brush-off: it prompts the customer to shop around"
             ),
         },
         {
             "name": "contract_end",
-            "rule": "contract_ending == 1 or tenure_start < 36",
-            "hazard_ratio": 0.4,
+            "rule": "contract_ending == 1 or tenure_start < 48",
+            "hazard_ratio": 0.3,
             "story": (
-                "near a contract end: the fixed term ends within a month, or the first 12- or "
-                "24-month term ended within about the last two years, so the customer is "
-                "weighing a switch and a credit tips the balance"
+                "near a contract end: the fixed term ends within a month, or the customer is "
+                "in its first four years, so its first 12- or 24-month term ended within the "
+                "last three years; such a customer is still weighing a switch and a credit "
+                "tips the balance"
             ),
         },
         {

@@ -307,8 +307,8 @@ def readme_text(truth: dict) -> str:
         "models fitted on them can be checked against `truth.json`: baseline hazards by "
         "tenure, the effect of every panel column on each cause, season terms, the campaign's "
         "true hazard ratios (they differ between customer segments: strong near a contract "
-        "end, none for settled customers, harmful after a complaint), and how each spatial "
-        "feature is defined.",
+        "end, none for settled customers, harmful after repeated complaints), and how each "
+        "spatial feature is defined.",
         f"Panel window: {w['start']} to {w['end']} ({w['months']} months); data extracted "
         f"{truth['extract_month']}. The simulation starts {truth['burn_in_months']} months "
         "earlier, so that every lagged feature is defined from the window's first month.",
