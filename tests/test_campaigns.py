@@ -276,10 +276,13 @@ def test_the_demo_campaign_interval_covers_the_true_hazard_ratio(tmp_path):
     effects = estimate_offer_effects(tables, horizon_months=truth["effect_months"])
     row = effects.set_index("offer").loc[truth["offer"]]
     assert row["target"] == truth["target_cause"] == "churn"
+    # The demo's effect varies by segment; one hazard ratio of offered vs held out estimates
+    # the churn-hazard-weighted average ratio truth.json gives as hazard_ratio_average (to
+    # first order, with randomised arms and six months of follow-up).
     # One fixed demo: its 95 % interval misses the truth one time in twenty by design, so the
     # check uses the 99.9 % interval (|z| < 3.29, the style of the demo's own checks), with the
     # standard error recovered from the reported 95 % bounds, exp(β̂ ± 1.96·se).
     se = (math.log(row["upper_95"]) - math.log(row["lower_95"])) / (2 * stats.norm.ppf(0.975))
-    z = (math.log(row["hazard_ratio"]) - math.log(truth["hazard_ratio"])) / se
+    z = (math.log(row["hazard_ratio"]) - math.log(truth["hazard_ratio_average"])) / se
     assert abs(z) < stats.norm.ppf(0.9995)
     assert row["n_offered"] + row["n_held_out"] <= truth["eligible"]

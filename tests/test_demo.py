@@ -71,10 +71,25 @@ def true_hazards(features: pd.DataFrame, truth: dict) -> dict[str, np.ndarray]:
             lin += beta * np.nan_to_num(features[column].to_numpy(dtype=np.float64))
         out[cause] = baseline(truth["baseline"][cause], features["tenure_start"]) * np.exp(lin)
     offered = features["offer_loyalty_credit"].to_numpy() == 1
-    out["churn"] = np.where(offered, out["churn"] * truth["campaign"]["hazard_ratio"], out["churn"])
+    ratio = features["customer_id"].astype(str).map(campaign_ratios(features, truth)).to_numpy()
+    out["churn"] = np.where(offered, out["churn"] * ratio, out["churn"])
     holds = features["holds_backup_line"].to_numpy() == 1
     out[f"uptake_{PRODUCT}"] = np.where(holds, np.nan, out[f"uptake_{PRODUCT}"])
     return out
+
+
+def campaign_ratios(features: pd.DataFrame, truth: dict) -> pd.Series:
+    """Each customer's true campaign hazard ratio, from truth.json alone: the first segment
+    whose rule (a pandas ``eval`` expression) holds on the features of the offer month."""
+    campaign = truth["campaign"]
+    rows = features[features["month"].astype(str) == campaign["month"]]
+    ratio = pd.Series(np.nan, index=rows.index)
+    for segment in campaign["segments"]:
+        hit = True if segment["rule"] == "otherwise" else rows.eval(segment["rule"])
+        ratio = ratio.where(
+            ratio.notna() | ~pd.Series(hit, index=rows.index), segment["hazard_ratio"]
+        )
+    return pd.Series(ratio.to_numpy(), index=rows["customer_id"].astype(str).to_numpy())
 
 
 def event_probabilities(hazards: dict[str, np.ndarray]) -> dict[str, np.ndarray]:
@@ -451,7 +466,8 @@ def test_true_effects_come_back(medium, cause):
     effect = np.ones(mask.sum())
     if cause == "churn":
         offered = f["offer_loyalty_credit"].to_numpy() == 1
-        effect = np.where(offered, truth["campaign"]["hazard_ratio"], 1.0)
+        ratio = f["customer_id"].astype(str).map(campaign_ratios(f, truth)).to_numpy()
+        effect = np.where(offered, ratio, 1.0)
     offset = np.log(base * g * effect)
     fit = _poisson_fit(f, cause, betas, offset, mask)
     assert abs(fit.params["const"]) <= 4 * fit.bse["const"]
@@ -474,26 +490,40 @@ def test_contagion_is_visible(medium):
 
 
 def test_campaign_effect_within_its_binomial_interval(medium):
-    """Churn in the six months after the offer, offered vs held out.
+    """Churn in the six months after the offer, offered vs held out, segment by segment.
 
-    With random assignment and churn hazard ratio HR, conditional on the D churns in both arms,
-    the offered arm's count is Binomial(D, HR·n1/(HR·n1 + n0)), n1 and n0 the arms' customer-
-    months at risk (the exact conditional test of a Poisson rate ratio); the count must lie in
-    the 99.9 % interval (scipy.stats.binom).
+    Within a segment of truth.json the hazard ratio HR is one number. With random assignment,
+    conditional on the D churns in both arms, the offered arm's count is Binomial(D,
+    HR·n1/(HR·n1 + n0)), n1 and n0 the arms' customer-months at risk (the exact conditional
+    test of a Poisson rate ratio); the count must lie in the 99.9 % interval (scipy.stats.binom).
     """
     f, truth = medium.features, medium.truth
     camp = medium.campaigns
-    hr = truth["campaign"]["hazard_ratio"]
     arm = f["customer_id"].astype(str).map(dict(zip(camp["customer_id"], camp["arm"], strict=True)))
+    ratio = f["customer_id"].astype(str).map(campaign_ratios(f, truth))
     window = f["month"].astype(str).isin(truth["campaign"]["effect_months_list"])
-    rows = f[window & arm.notna()]
-    arm = arm[rows.index]
-    n1, n0 = (arm == "offered").sum(), (arm == "held_out").sum()
-    d1 = rows.loc[arm == "offered", "churn"].sum()
-    d0 = rows.loc[arm == "held_out", "churn"].sum()
-    assert n1 > 0 and n0 > 0 and d1 + d0 > 0
-    lo, hi = stats.binom.interval(0.999, d1 + d0, hr * n1 / (hr * n1 + n0))
-    assert lo <= d1 <= hi, (d1, d0, n1, n0)
+    sizes = {}
+    for segment in truth["campaign"]["segments"]:
+        hr = segment["hazard_ratio"]
+        rows = f[window & arm.notna() & (ratio == hr)]
+        a = arm[rows.index]
+        n1, n0 = (a == "offered").sum(), (a == "held_out").sum()
+        d1 = rows.loc[a == "offered", "churn"].sum()
+        d0 = rows.loc[a == "held_out", "churn"].sum()
+        assert n1 > 0 and n0 > 0 and d1 + d0 > 0
+        lo, hi = stats.binom.interval(0.999, d1 + d0, hr * n1 / (hr * n1 + n0))
+        assert lo <= d1 <= hi, (segment["name"], d1, d0, n1, n0)
+        sizes[segment["name"]] = segment["eligible"]
+    # The segments' sizes in truth.json add up to the campaign, and each is recomputed here.
+    in_campaign = ratio[(f["month"].astype(str) == truth["campaign"]["month"]) & arm.notna()]
+    for segment in truth["campaign"]["segments"]:
+        assert (in_campaign == segment["hazard_ratio"]).sum() == segment["eligible"]
+    assert sum(sizes.values()) == truth["campaign"]["eligible"]
+    # Strong for some, none for most, harmful for a small segment (issue 15, item 2).
+    by_name = {s["name"]: s for s in truth["campaign"]["segments"]}
+    assert by_name["contract_end"]["hazard_ratio"] < 1 == by_name["others"]["hazard_ratio"]
+    assert by_name["complained"]["hazard_ratio"] > 1
+    assert by_name["complained"]["eligible"] < 0.25 * truth["campaign"]["eligible"]
     # Eligible customers were at the contract end: their churn hazard is raised meanwhile.
     assert len(camp) == truth["campaign"]["eligible"] > 100
 

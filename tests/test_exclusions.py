@@ -1,9 +1,11 @@
 """Who is never contacted: do-not-contact and hardship flags, added flags, consent, the guard.
 
 Each case plans the invented demo portfolio with one fitted model and checks the plan against
-the flags as written in ``customers.csv``. The demo has 25 do-not-contact and 17 hardship
-customers among 1,377; without the exclusion, some of them would be planned (checked below,
-so that these tests can fail).
+the flags as written in ``customers.csv``. The demo (seed 4) has 30 do-not-contact and 19
+hardship customers among 1,370; without the exclusion, some of them would be planned (checked
+below, so that these tests can fail). The plan holds a few dozen of some 600 customers, so
+whether a flagged one would be among them depends on the seed: seed 3 stopped giving one when
+the demo campaign's effect came to vary by customer, and the control below caught it.
 """
 
 from __future__ import annotations
@@ -28,7 +30,7 @@ AS_OF = "2026-10"
 @pytest.fixture(scope="module")
 def demo(tmp_path_factory):
     root = tmp_path_factory.mktemp("exclusions")
-    write_demo(root / "data", customers=600, seed=3)
+    write_demo(root / "data", customers=600, seed=4)
     model = root / "model"
     assert (
         main(["fit", str(root / "data"), "--as-of", AS_OF, "--family", "cox", "--out", str(model)])

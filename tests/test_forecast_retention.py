@@ -52,3 +52,27 @@ def test_known_truth_cohort_is_recovered():
 def test_bad_counts_are_refused(alive):
     with pytest.raises(UsageError, match="alive"):
         fit_shifted_beta_geometric(alive)
+
+
+def test_a_cohort_without_heterogeneity_reaches_the_geometric_limit():
+    """Regression: a small cohort losing one customer every other month ([10, 10, 9, 9, 8, 8,
+    7]) drives α and β toward infinity, where differences of log-beta functions lost every
+    digit (a positive log-likelihood and a survival of 1.5e111). In that limit the sBG is the
+    geometric model with θ = α/(α + β) (Fader & Hardie 2007): worked by hand, leavers at t = 2,
+    4, 6 give 3·ln θ + (1 + 3 + 5)·ln(1 − θ), the 7 still alive 7·6·ln(1 − θ), so θ̂ = 3/54 and
+    ℓ = 3·ln(3/54) + 51·ln(51/54) = −11.586; S(12) = (51/54)^12 = 0.5036."""
+    fit = fit_shifted_beta_geometric([10, 10, 9, 9, 8, 8, 7])
+    theta = 3 / 54
+    assert fit.loglik == pytest.approx(3 * np.log(theta) + 51 * np.log(1 - theta), abs=1e-3)
+    np.testing.assert_allclose(fit.survival([12, 24]), (1 - theta) ** np.array([12, 24]), rtol=1e-3)
+
+
+def test_a_cohort_of_immediate_leavers_and_stayers_reaches_its_supremum():
+    """Regression: [10, 9, 9, ..., 9] drives α and β toward 0, where the fit's parameters
+    underflowed. The supremum is the mixture of customers who leave at once (share 0.1) and
+    customers who never leave (worked by hand: ℓ = ln 0.1 + 9·ln 0.9 = −3.2508, S(t) = 0.9 for
+    every t >= 1); the old log-beta differences reported −3.2488, above that bound."""
+    fit = fit_shifted_beta_geometric([10] + [9] * 9)
+    bound = np.log(0.1) + 9 * np.log(0.9)
+    assert bound - 1e-3 <= fit.loglik <= bound + 1e-9
+    np.testing.assert_allclose(fit.survival([1, 12, 24]), 0.9, rtol=1e-3)

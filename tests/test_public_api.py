@@ -42,6 +42,25 @@ def test_forecast_names_are_pinned():
         assert inspect.getdoc(getattr(forecast, name)), f"{name} has no docstring"
 
 
+EVALUATION_CAMPAIGN = {"expected_maximum_profit", "qini_coefficient", "qini_curve"}
+VALUE_CAMPAIGN = {"OfferEffectModel", "campaign_covariates", "customer_offer_effects"}
+
+
+def test_campaign_metrics_and_effects_are_pinned():
+    """The uplift metrics and the per-customer offer effects are public, documented and typed."""
+    import lifecycle.evaluation as evaluation
+    import lifecycle.value as value
+
+    for module, names in ((evaluation, EVALUATION_CAMPAIGN), (value, VALUE_CAMPAIGN)):
+        assert names <= set(module.__all__)
+        for name in names:
+            obj = getattr(module, name)
+            assert inspect.getdoc(obj), f"{name} has no docstring"
+            if inspect.isfunction(obj):
+                ret = inspect.signature(obj).return_annotation
+                assert ret is not inspect.Signature.empty, f"{name} has no return type"
+
+
 def test_public_functions_are_documented_and_typed():
     for name in lifecycle.__all__:
         obj = getattr(lifecycle, name)

@@ -12,6 +12,7 @@ import math
 from dataclasses import dataclass
 
 import numpy as np
+import pandas as pd
 
 PROVIDER = "Brenvaskmere Community Broadband Co-operative"
 DISTRICT = "Brenvaskmere"
@@ -120,7 +121,6 @@ CAMPAIGN = {
     "offer": "loyalty_credit",
     "month": CAMPAIGN_MONTH,
     "target_cause": "churn",
-    "hazard_ratio": 0.65,
     "effect_months": 6,
     "eligibility": (
         "active in the offer month with the panel feature contract_months_left <= 1 (the "
@@ -129,8 +129,42 @@ CAMPAIGN = {
     ),
     "randomisation": "complete: a seeded random half of the eligible customers is offered",
     "effect": (
-        "churn hazard multiplied by hazard_ratio in the effect_months months after the offer "
-        "month (not in the offer month itself); the arm held_out is unaffected"
+        "churn hazard of an offered customer multiplied by the hazard_ratio of the customer's "
+        "segment in the effect_months months after the offer month (not in the offer month "
+        "itself); the arm held_out is unaffected"
+    ),
+    "segments": (
+        {
+            "name": "complained",
+            "rule": "complaints_3m >= 2",
+            "hazard_ratio": 2.5,
+            "story": (
+                "a credit offered after repeated complaints (two or more in the three months "
+                "before the offer) reads as a brush-off: it prompts the customer to shop around"
+            ),
+        },
+        {
+            "name": "contract_end",
+            "rule": "contract_ending == 1 or tenure_start < 48",
+            "hazard_ratio": 0.3,
+            "story": (
+                "near a contract end: the fixed term ends within a month, or the customer is "
+                "in its first four years, so its first 12- or 24-month term ended within the "
+                "last three years; such a customer is still weighing a switch and a credit "
+                "tips the balance"
+            ),
+        },
+        {
+            "name": "others",
+            "rule": "otherwise",
+            "hazard_ratio": 1.0,
+            "story": "long out of contract and settled: the credit changes nothing",
+        },
+    ),
+    "segment_rules": (
+        "pandas DataFrame.eval expressions on the panel's feature columns of the offer month "
+        "(known at the end of the month before it); the first segment whose rule holds is the "
+        "customer's"
     ),
 }
 
@@ -194,3 +228,17 @@ def season_terms(month_index: np.ndarray | int) -> tuple[np.ndarray, np.ndarray]
     moy0 = np.asarray(month_index) % 12
     angle = 2.0 * np.pi * moy0 / 12.0
     return np.sin(angle), np.cos(angle)
+
+
+def campaign_hazard_ratios(features: pd.DataFrame) -> np.ndarray:
+    """The true hazard ratio of the campaign offer for each row of ``features`` (the panel's
+    feature columns of the offer month): the ratio of the first segment of
+    ``CAMPAIGN["segments"]`` whose rule holds."""
+    out = np.full(len(features), np.nan)
+    for segment in CAMPAIGN["segments"]:
+        rule = segment["rule"]
+        hit = np.ones(len(features), dtype=bool)
+        if rule != "otherwise":
+            hit = features.eval(rule).to_numpy(dtype=bool)
+        out = np.where(np.isnan(out) & hit, segment["hazard_ratio"], out)
+    return out

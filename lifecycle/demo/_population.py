@@ -50,6 +50,7 @@ class Population:
         self.complaint_mu = np.zeros(capacity, dtype=np.float64)
         self.contract_end = np.full(capacity, NO_TERM, dtype=np.int64)
         self.offered = np.zeros(capacity, dtype=bool)
+        self.offer_hr = np.ones(capacity, dtype=np.float64)  # true effect if offered
         self.prev = {name: np.full(capacity, np.nan, dtype=np.float64) for name in ACTIVITY_NAMES}
         self.complaints_hist = np.zeros((capacity, 3), dtype=np.float64)
 
@@ -59,7 +60,7 @@ class Population:
         if need <= self.start.size:
             return
         size = max(need, int(self.start.size * 1.5))
-        fills = {"end": -1, "uptake": -1, "contract_end": NO_TERM}
+        fills = {"end": -1, "uptake": -1, "contract_end": NO_TERM, "offer_hr": 1.0}
         for name, value in list(vars(self).items()):
             if isinstance(value, np.ndarray):
                 setattr(self, name, _grow(value, size, fills.get(name, 0)))

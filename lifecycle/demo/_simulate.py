@@ -9,7 +9,8 @@ the panel defines them (DEVELOPERS.md), from what was known at the end of month 
 
 with the uptake drawn independently of the exit. A feature that is NaN in the panel (the lagged
 activity of a customer's first month) contributes 0 to the sum. The campaign multiplies the churn
-hazard of offered customers by its hazard ratio in the months after the offer month.
+hazard of each offered customer by the hazard ratio of its segment (`_params.CAMPAIGN`, from the
+features of the offer month) in the months after the offer month.
 """
 
 from __future__ import annotations
@@ -87,6 +88,7 @@ class SimulationResult:
     features: dict[str, np.ndarray]
     campaigns: pd.DataFrame
     n_pairs: int
+    effect_sums: np.ndarray
 
 
 def calendar_for(months: int) -> Calendar:
@@ -125,6 +127,9 @@ class World:
     exposure: np.ndarray
     n_pairs: int = 0  # premise pairs within the radius
     campaign: pd.DataFrame | None = None
+    # Σ over offered customer-months in the effect window of the churn hazard without the
+    # offer times the customer's hazard ratio, and of the hazard without it.
+    effect_sums: np.ndarray = dataclasses.field(default_factory=lambda: np.zeros(2))
 
     def branch(self) -> World:
         """A copy whose future can be simulated without touching this one (the district and
@@ -135,6 +140,7 @@ class World:
             occupant=self.occupant.copy(),
             moveouts=self.moveouts.copy(),
             exposure=self.exposure.copy(),
+            effect_sums=self.effect_sums.copy(),
         )
 
 
@@ -227,6 +233,7 @@ def simulate(
         features=_stack(feature_parts) if feature_parts else {},
         campaigns=world.campaign,
         n_pairs=world.n_pairs,
+        effect_sums=world.effect_sums,
     )
 
 
@@ -266,7 +273,12 @@ def simulate_month(world: World, m: int, rng: dict[str, np.random.Generator]) ->
     effect = np.zeros(active.size, dtype=np.int8)
     if cal.campaign < m <= cal.campaign + P.CAMPAIGN["effect_months"]:
         effect = pop.offered[active].astype(np.int8)
-        lam["churn"] = lam["churn"] * np.where(effect == 1, P.CAMPAIGN["hazard_ratio"], 1.0)
+        ratio = np.where(effect == 1, pop.offer_hr[active], 1.0)
+        world.effect_sums += [
+            (lam["churn"] * ratio)[effect == 1].sum(),
+            lam["churn"][effect == 1].sum(),
+        ]
+        lam["churn"] = lam["churn"] * ratio
     holds = x[P.HOLDS] == 1
     lam_u = P.BASELINE[P.PRODUCT](x["tenure"]) * np.exp(linear_predictor(P.PRODUCT, x))
     lam_u[holds] = np.nan
@@ -279,7 +291,7 @@ def simulate_month(world: World, m: int, rng: dict[str, np.random.Generator]) ->
     takes_up = ~holds & (ev.random(active.size) < -np.expm1(-np.nan_to_num(lam_u)))
 
     if m == cal.campaign:
-        world.campaign = _run_campaign(pop, active, x["contract_months_left"], m, rng["campaign"])
+        world.campaign = _run_campaign(pop, active, x, m, rng["campaign"])
 
     # --- activity of month m ----------------------------------------------------------------
     n_areas = district.area_id.size
@@ -385,11 +397,16 @@ def _features(
 
 
 def _run_campaign(
-    pop: Population, active: np.ndarray, months_left: np.ndarray, m: int, rng
+    pop: Population, active: np.ndarray, x: dict[str, np.ndarray], m: int, rng
 ) -> pd.DataFrame:
     """Offer the loyalty credit to a random half of the eligible customers of month ``m``:
-    those whose fixed term ends within a month or who are already out of contract."""
-    eligible = active[(months_left <= 1) & ~pop.do_not_contact[active] & ~pop.hardship[active]]
+    those whose fixed term ends within a month or who are already out of contract. Each
+    eligible customer's true hazard ratio comes from its segment (features of month ``m``)."""
+    keep = (x["contract_months_left"] <= 1) & ~pop.do_not_contact[active] & ~pop.hardship[active]
+    eligible = active[keep]
+    frame = pd.DataFrame({name: values[keep] for name, values in x.items()})
+    frame["tenure_start"] = x["tenure"][keep]
+    pop.offer_hr[eligible] = P.campaign_hazard_ratios(frame)
     order = rng.permutation(eligible.size)
     offered = np.zeros(eligible.size, dtype=bool)
     offered[order[: eligible.size // 2]] = True

@@ -13,7 +13,7 @@ from .._months import format_month
 from . import _params as P
 from ._simulate import STREAMS, SimulationResult
 
-TRUTH_VERSION = 1
+TRUTH_VERSION = 2  # 2: the campaign's effect varies by customer segment
 GENERATOR = "lifecycle.demo"
 _TENURE_TABLE_MONTHS = 121  # baseline table for tenure 0..120
 
@@ -47,6 +47,7 @@ def build_truth(sim: SimulationResult, *, customers: int, seed: int, months: int
     campaign["eligible"] = len(sim.campaigns)
     campaign["offered"] = offered
     campaign["held_out"] = len(sim.campaigns) - offered
+    campaign.update(_campaign_segments(sim))
     ends = pop.reason[:n]
     truth: dict[str, Any] = {
         "generator": GENERATOR,
@@ -97,7 +98,10 @@ def build_truth(sim: SimulationResult, *, customers: int, seed: int, months: int
                 "simulated month) contributes 0; columns not listed in beta have no effect"
             ),
             "tenure": "months since the start month (the panel's tenure_start)",
-            "campaign": "churn hazard of offered customers times campaign.hazard_ratio",
+            "campaign": (
+                "churn hazard of an offered customer times the hazard_ratio of its segment "
+                "(campaign.segments) in the months of campaign.effect_months_list"
+            ),
         },
         "baseline": baseline,
         "baseline_by_tenure": table,
@@ -141,6 +145,37 @@ def build_truth(sim: SimulationResult, *, customers: int, seed: int, months: int
         },
     }
     return _rounded(truth)
+
+
+def _campaign_segments(sim: SimulationResult) -> dict[str, Any]:
+    """The campaign's segments with their realised sizes, and the average effect.
+
+    ``hazard_ratio_average`` is Σ λ·HR / Σ λ over the offered customers' months at risk in the
+    effect window, λ being each month's true churn hazard without the offer: the ratio of the
+    churn hazard with the offer to the hazard without it, averaged with the untreated hazard as
+    weight. With randomised arms and short follow-up this is, to first order, what a single
+    Cox hazard ratio of offered against held out estimates (the arms have the same mix of
+    segments, and each month's events are weighted by the hazard that produces them).
+    """
+    camp = sim.campaigns
+    ratio = sim.pop.offer_hr[camp["customer"].to_numpy()]
+    offered = (camp["arm"] == "offered").to_numpy()
+    segments = []
+    for segment in P.CAMPAIGN["segments"]:
+        mine = ratio == segment["hazard_ratio"]
+        segments.append(
+            {**segment, "eligible": int(mine.sum()), "offered": int((mine & offered).sum())}
+        )
+    with_offer, without = (float(v) for v in sim.effect_sums)
+    return {
+        "segments": segments,
+        "hazard_ratio_average": with_offer / without if without > 0 else 1.0,
+        "hazard_ratio_average_definition": (
+            "sum of lambda * hazard_ratio / sum of lambda over the offered customers' months "
+            "at risk in the effect window, lambda being the true churn hazard without the "
+            "offer: to first order what one Cox hazard ratio of offered vs held out estimates"
+        ),
+    }
 
 
 def truth_json(truth: dict) -> str:
@@ -271,7 +306,9 @@ def readme_text(truth: dict) -> str:
         f"months. The data were simulated from a known process (seed {truth['seed']}), so "
         "models fitted on them can be checked against `truth.json`: baseline hazards by "
         "tenure, the effect of every panel column on each cause, season terms, the campaign's "
-        "true hazard ratio, and how each spatial feature is defined.",
+        "true hazard ratios (they differ between customer segments: strong near a contract "
+        "end, none for settled customers, harmful after repeated complaints), and how each "
+        "spatial feature is defined.",
         f"Panel window: {w['start']} to {w['end']} ({w['months']} months); data extracted "
         f"{truth['extract_month']}. The simulation starts {truth['burn_in_months']} months "
         "earlier, so that every lagged feature is defined from the window's first month.",

@@ -1,4 +1,5 @@
-"""Evaluation: accuracy metrics on censored follow-up, observed outcomes and backtests."""
+"""Evaluation: accuracy metrics on censored follow-up, observed outcomes and backtests;
+the Qini curve and the expected maximum profit measure for campaigns."""
 
 from ._backtest import BacktestResult, backtest, champions
 from ._baseline import TenureLifeTable
@@ -6,16 +7,19 @@ from ._calibration import calibration_table, lift_and_capture
 from ._choice import CHOICE_COLUMNS, DEFAULT_SWITCH_MARGIN, choose_champions
 from ._metrics import CensoringCurve, brier_score, time_dependent_auc, uno_concordance
 from ._outcomes import observed_outcomes, outcome_for_cause
+from ._profit import expected_maximum_profit
 from ._statistics import (
     LogrankResult,
     harrell_concordance,
     integrated_brier_score,
     logrank_test,
 )
+from ._uplift import QINI_COLUMNS, qini_coefficient, qini_curve
 
 __all__ = [
     "CHOICE_COLUMNS",
     "DEFAULT_SWITCH_MARGIN",
+    "QINI_COLUMNS",
     "BacktestResult",
     "CensoringCurve",
     "LogrankResult",
@@ -25,12 +29,15 @@ __all__ = [
     "calibration_table",
     "champions",
     "choose_champions",
+    "expected_maximum_profit",
     "harrell_concordance",
     "integrated_brier_score",
     "lift_and_capture",
     "logrank_test",
     "observed_outcomes",
     "outcome_for_cause",
+    "qini_coefficient",
+    "qini_curve",
     "time_dependent_auc",
     "uno_concordance",
 ]

@@ -41,9 +41,16 @@ class ShiftedBetaGeometric:
         ts = np.asarray(t, dtype=np.float64)
         if np.any(ts < 0):
             raise UsageError(f"t must be >= 0; got {ts[ts < 0][:3].tolist()}")
-        out = np.exp(
-            special.betaln(self.alpha, self.beta + ts) - special.betaln(self.alpha, self.beta)
-        )
+        if np.all(ts == np.round(ts)) and ts.size and ts.max() <= 10_000:
+            # the product of retention rates: exact, and stable however large α and β are
+            with np.errstate(divide="ignore"):  # α or β of 0: a log of −inf is right
+                log_ab = np.log(self.alpha), np.log(self.beta)
+            log_s, _ = _log_terms(*log_ab, int(ts.max()))
+            out = np.exp(log_s[ts.astype(np.int64)])
+        else:
+            out = np.exp(
+                special.betaln(self.alpha, self.beta + ts) - special.betaln(self.alpha, self.beta)
+            )
         return out if out.ndim else out[()]
 
     def retention(self, t: int | Sequence[int] | np.ndarray) -> np.ndarray:
@@ -82,10 +89,11 @@ def fit_shifted_beta_geometric(alive: Sequence[float] | np.ndarray) -> ShiftedBe
     periods = np.arange(1, n.size)
 
     def nll(log_ab: np.ndarray) -> float:
-        a, b = np.exp(log_ab)
-        log_p = special.betaln(a + 1.0, b + periods - 1.0) - special.betaln(a, b)
-        log_s = special.betaln(a, b + periods[-1]) - special.betaln(a, b)
-        return -float(np.sum(lost * log_p) + n[-1] * log_s)
+        # Through the recursion above rather than differences of log-beta functions, which
+        # lose every digit once α and β are large (a cohort with little heterogeneity).
+        log_s, log_leave = _log_terms(log_ab[0], log_ab[1], int(periods[-1]))
+        log_p = log_s[periods - 1] + log_leave[periods - 1]
+        return -float(np.sum(lost * log_p) + n[-1] * log_s[-1])
 
     best = None
     for start in ((0.0, 0.0), (-1.0, 1.0), (1.0, 2.0)):
@@ -93,5 +101,19 @@ def fit_shifted_beta_geometric(alive: Sequence[float] | np.ndarray) -> ShiftedBe
         found = optimize.minimize(nll, np.array(start), method="Nelder-Mead", options=options)
         if best is None or found.fun < best.fun:
             best = found
-    a, b = np.exp(best.x)
+    a, b = np.exp(np.clip(best.x, -700.0, 700.0))  # finite and above 0 in float64
     return ShiftedBetaGeometric(alpha=float(a), beta=float(b), size=float(n[0]), loglik=-best.fun)
+
+
+def _log_terms(log_alpha: float, log_beta: float, periods: int) -> tuple[np.ndarray, np.ndarray]:
+    """ln S(t) for t = 0..periods, and ln(1 − r(t + 1)) for t = 0..periods − 1, from ln α, ln β.
+
+    r(i + 1) = (β + i)/(α + β + i), so ln r(i + 1) = −ln(1 + e^{ln α − ln(β + i)}) and
+    ln(1 − r(i + 1)) = −ln(1 + e^{ln(β + i) − ln α}); ln S(t) = Σ_{i<t} ln r(i + 1). Written
+    with ``logaddexp`` so that no step overflows, underflows or cancels for any α, β.
+    """
+    i = np.arange(1, periods, dtype=np.float64)
+    log_b_i = np.r_[log_beta, np.logaddexp(log_beta, np.log(i))][:periods]
+    log_r = -np.logaddexp(0.0, log_alpha - log_b_i)
+    log_leave = -np.logaddexp(0.0, log_b_i - log_alpha)
+    return np.r_[0.0, np.cumsum(log_r)], log_leave

@@ -1,6 +1,8 @@
-"""Value: lifetime value, the expected value of offers, and offer effects from past campaigns."""
+"""Value: lifetime value, the expected value of offers, and offer effects from past campaigns
+(the average effect, and each customer's own)."""
 
 from ._campaigns import campaign_follow_up, estimate_offer_effects
+from ._effects import OfferEffectModel, campaign_covariates, customer_offer_effects
 from ._lifetime import (
     ValueSettings,
     discount_factors,
@@ -13,8 +15,11 @@ from ._offer_value import offer_values
 
 __all__ = [
     "MONEY_COLUMNS",
+    "OfferEffectModel",
     "ValueSettings",
+    "campaign_covariates",
     "campaign_follow_up",
+    "customer_offer_effects",
     "discount_factors",
     "estimate_offer_effects",
     "lifetime_value",
