@@ -5,7 +5,7 @@ from ._baseline import TenureLifeTable
 from ._calibration import calibration_table, lift_and_capture
 from ._choice import CHOICE_COLUMNS, DEFAULT_SWITCH_MARGIN, choose_champions
 from ._metrics import CensoringCurve, brier_score, time_dependent_auc, uno_concordance
-from ._outcomes import observed_outcomes, outcome_for_cause
+from ._outcomes import CENSORED, COMPETING, EVENT, observed_outcomes, outcome_for_cause
 from ._statistics import (
     LogrankResult,
     harrell_concordance,
@@ -14,8 +14,11 @@ from ._statistics import (
 )
 
 __all__ = [
+    "CENSORED",
     "CHOICE_COLUMNS",
+    "COMPETING",
     "DEFAULT_SWITCH_MARGIN",
+    "EVENT",
     "BacktestResult",
     "CensoringCurve",
     "LogrankResult",

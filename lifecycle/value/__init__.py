@@ -1,8 +1,10 @@
 """Value: lifetime value, the expected value of offers, and offer effects from past campaigns."""
 
 from ._campaigns import campaign_follow_up, estimate_offer_effects
+from ._hazards import HazardInput, read_hazards
 from ._lifetime import (
     ValueSettings,
+    check_horizon,
     discount_factors,
     lifetime_value,
     monthly_discount_rate,
@@ -13,13 +15,16 @@ from ._offer_value import offer_values
 
 __all__ = [
     "MONEY_COLUMNS",
+    "HazardInput",
     "ValueSettings",
     "campaign_follow_up",
+    "check_horizon",
     "discount_factors",
     "estimate_offer_effects",
     "lifetime_value",
     "monthly_discount_rate",
     "offer_values",
+    "read_hazards",
     "round_money",
     "value_settings",
 ]

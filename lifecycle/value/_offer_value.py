@@ -19,9 +19,9 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
+from .._layout import UPTAKE_PREFIX
 from ..errors import UsageError
-from ..models._competing import survival_and_incidence, valid_hazards
-from ..panel._layout import UPTAKE_PREFIX
+from ..models import survival_and_incidence, valid_hazards
 from ._hazards import HazardInput, read_hazards, uptake_incidence
 from ._lifetime import DEFAULT_ANNUAL_DISCOUNT, check_horizon, discount_factors, margin_matrix
 
