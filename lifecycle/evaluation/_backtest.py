@@ -135,16 +135,8 @@ def backtest(
     """
     config = config or Config()
     families = _checked_families(families)
-    horizons = sorted({int(h) for h in horizons})
-    if not horizons or horizons[0] < 1:
-        raise UsageError(f"horizons were {list(horizons)} but must be whole months ≥ 1")
-    cutoffs = _checked_cutoffs(tables, cutoffs, horizons)
-    if build_snapshot_fn is None:
-        build_snapshot_fn = (
-            _default_snapshot if build_panel_fn is None else _snapshot_from(build_panel_fn)
-        )
-    build_panel_fn = build_panel_fn or _default_panel
-
+    horizons, cutoffs = _checked_times(tables, horizons, cutoffs)
+    build_panel_fn, build_snapshot_fn = _builders(build_panel_fn, build_snapshot_fn)
     found = _Collected()
     for cutoff in cutoffs:
         usable, panel, snapshot, outcomes = _cutoff_data(
@@ -154,21 +146,32 @@ def backtest(
             step = cutoffs.index(cutoff) * len(families) + j
             what = f"cutoff {format_month(cutoff)}, family {name}"
             progress("backtest", step, len(cutoffs) * len(families), what)
-            log.info("backtest %s: fitting %s", format_month(cutoff), name)
-            model = clone(family).fit(panel)
-            importance = getattr(model, "feature_importances_", None)
-            if importance is not None and len(importance):  # cutoffs ascend: the latest stays
-                found.importances[name] = importance.assign(
-                    family=name, cutoff=format_month(cutoff)
-                )
-            hazards = model.hazard_array(snapshot, max(max(usable), after_fit_months))
-            array = incidence_from_hazards(hazards[:, : max(usable)], len(model.terminal_causes_))
-            if after_fit is not None:
-                made = after_fit(name, cutoff, model, snapshot, hazards)
-                if made is not None and len(made):
-                    found.forecasts.append(made.assign(family=name))
-            found.score_family(name, model.causes_, array, cutoff, usable, outcomes)
+            found.fit_family(
+                name, family, cutoff, usable, panel, snapshot, outcomes, after_fit,
+                after_fit_months,
+            )  # fmt: skip
     return found.result()
+
+
+def _checked_times(
+    tables: Tables, horizons: Sequence[int], cutoffs: Iterable[str | int]
+) -> tuple[list[int], list[int]]:
+    """The horizons (whole months ≥ 1, ascending) and the checked cutoffs."""
+    horizons = sorted({int(h) for h in horizons})
+    if not horizons or horizons[0] < 1:
+        raise UsageError(f"horizons were {list(horizons)} but must be whole months ≥ 1")
+    return horizons, _checked_cutoffs(tables, cutoffs, horizons)
+
+
+def _builders(
+    build_panel_fn: PanelBuilder | None, build_snapshot_fn: PanelBuilder | None
+) -> tuple[PanelBuilder, PanelBuilder]:
+    """The panel and snapshot builders, with their defaults (see `backtest`)."""
+    if build_snapshot_fn is None:
+        build_snapshot_fn = (
+            _default_snapshot if build_panel_fn is None else _snapshot_from(build_panel_fn)
+        )
+    return build_panel_fn or _default_panel, build_snapshot_fn
 
 
 def _cutoff_data(
@@ -214,6 +217,33 @@ class _Collected:
     calibrations: list[pd.DataFrame] = field(default_factory=list)
     importances: dict[str, pd.DataFrame] = field(default_factory=dict)
     forecasts: list[pd.DataFrame] = field(default_factory=list)
+
+    def fit_family(
+        self,
+        name: str,
+        family: HazardModel,
+        cutoff: int,
+        usable: list[int],
+        panel: pd.DataFrame,
+        snapshot: pd.DataFrame,
+        outcomes: pd.DataFrame,
+        after_fit: AfterFit | None,
+        after_fit_months: int,
+    ) -> None:
+        """Fit a clone of one family at one cutoff, keep its importances and what
+        ``after_fit`` makes of it, and score its predictions."""
+        log.info("backtest %s: fitting %s", format_month(cutoff), name)
+        model = clone(family).fit(panel)
+        importance = getattr(model, "feature_importances_", None)
+        if importance is not None and len(importance):  # cutoffs ascend: the latest stays
+            self.importances[name] = importance.assign(family=name, cutoff=format_month(cutoff))
+        hazards = model.hazard_array(snapshot, max(max(usable), after_fit_months))
+        array = incidence_from_hazards(hazards[:, : max(usable)], len(model.terminal_causes_))
+        if after_fit is not None:
+            made = after_fit(name, cutoff, model, snapshot, hazards)
+            if made is not None and len(made):
+                self.forecasts.append(made.assign(family=name))
+        self.score_family(name, model.causes_, array, cutoff, usable, outcomes)
 
     def score_family(
         self,

@@ -108,32 +108,40 @@ def compare_with_outcomes(
         raise UsageError(f"history must be a ScoreHistory; got {type(history).__name__}")
     label = _month_label(previous_month)
     horizon, groups = _checked_counts(horizon, groups)
-    _check_outcomes(outcomes)
     h, elapsed, notes = _horizon_used(outcomes, label, horizon)
     scores = history.scores(label)
+    predicted, column, interpolated = _prediction(scores, cause, h, label, notes)
+    matched = _Matched.of(scores, outcomes, predicted, cause, label, notes)
+    realised = (matched.code == 1) & (matched.months <= h)
+    deciles = _decile_table(matched.risk, realised, matched.ids, groups)
+    summary = _summary(matched, realised, h, cause, notes)
+    summary.update(month=label, horizon_requested=horizon, months_elapsed=elapsed)
+    summary.update(predicted_column=column, interpolated=interpolated)
+    return Comparison(deciles=deciles, summary=_ordered_and_logged(summary))
+
+
+def _prediction(
+    scores: pd.DataFrame, cause: str, h: int, label: str, notes: list[str]
+) -> tuple[np.ndarray, str, bool]:
+    """`_predicted_at`, with a note when the prediction is interpolated."""
     predicted, column, interpolated = _predicted_at(scores, cause, h)
     if interpolated:
         notes.append(
             f"the scores of {label} hold no cif_{cause}_{h}m; it is interpolated from "
             f"{column} assuming constant monthly hazards between the stored horizons"
         )
-    matched = _Matched.of(scores, outcomes, predicted, cause, label, notes)
-    realised = (matched.code == 1) & (matched.months <= h)
-    deciles = _decile_table(matched.risk, realised, matched.ids, groups)
-    summary = _summary(matched, realised, h, cause, notes)
-    summary.update(
-        month=label,
-        horizon_requested=horizon,
-        months_elapsed=elapsed,
-        predicted_column=column,
-        interpolated=interpolated,
-    )
+    return predicted, column, interpolated
+
+
+def _ordered_and_logged(summary: dict[str, object]) -> dict[str, object]:
+    """The summary's keys in their documented order, logged in a line."""
     summary = {key: summary[key] for key in _SUMMARY_KEYS}
     log.info(
         "predictions of %s for %s over %d month(s): %d customers, %d events, %.1f expected",
-        label, cause, h, summary["n"], summary["events"], summary["expected_events"],
+        summary["month"], summary["cause"], summary["horizon_used"], summary["n"],
+        summary["events"], summary["expected_events"],
     )  # fmt: skip
-    return Comparison(deciles=deciles, summary=summary)
+    return summary
 
 
 _SUMMARY_KEYS = (
@@ -180,7 +188,8 @@ def _horizon_used(
     outcomes: pd.DataFrame, label: str, horizon: int
 ) -> tuple[int, int | None, list[str]]:
     """The months compared (``horizon``, or fewer if fewer have passed), the months elapsed,
-    and the notes so far."""
+    and the notes so far; the outcomes are checked first."""
+    _check_outcomes(outcomes)
     elapsed = _months_elapsed(outcomes)
     if elapsed == 0:
         raise UsageError(
