@@ -161,7 +161,7 @@ def load_config(path: str | Path | None) -> Config:
     data, panel, spatial = raw.get("data", {}), raw.get("panel", {}), raw.get("spatial", {})
     formats = _formats(raw, path)
     campaigns = _campaigns(raw, path)
-    from .panel._future import check_known_future
+    from .panel import check_known_future
 
     known_future = check_known_future(panel.get("known_future"))
     if data.get("extract_month"):
@@ -198,7 +198,7 @@ def load_config(path: str | Path | None) -> Config:
 def _check_stages(config: Config) -> None:
     """Each stage's rules across settings (an uptake offer's hazard ratio >= 1, a reason
     phrase's placeholders, ...), so that they too fail before any work."""
-    from .cycle._run import run_settings
+    from .cycle import run_settings
     from .decisions import offers_from_config, phrases_from_config, plan_settings_from_config
     from .forecast import forecast_settings
     from .value import value_settings

@@ -353,17 +353,22 @@ def test_fan_chart_refuses_unknown_products_and_areas(portfolio):
 
 def test_the_public_surface_of_forecast():
     assert sorted(lifecycle.forecast.__all__) == [
+        "ALL_AREAS",
         "ForecastSettings",
         "ShiftedBetaGeometric",
         "fan_chart",
         "fit_shifted_beta_geometric",
         "forecast_coverage",
+        "forecast_extras",
         "forecast_settings",
         "forecast_uptake",
+        "launch_forecast",
+        "launch_settings",
         "mixture_quantiles",
         "poisson_binomial_cdf",
         "poisson_binomial_pmf",
         "poisson_binomial_quantiles",
         "save_fan_chart",
         "track_record",
+        "track_record_hook",
     ]

@@ -27,10 +27,11 @@ def test_public_names_are_pinned():
 
 
 FORECAST = {
-    "ForecastSettings", "ShiftedBetaGeometric", "fan_chart", "fit_shifted_beta_geometric",
-    "forecast_coverage", "forecast_settings", "forecast_uptake", "mixture_quantiles",
+    "ALL_AREAS", "ForecastSettings", "ShiftedBetaGeometric", "fan_chart",
+    "fit_shifted_beta_geometric", "forecast_coverage", "forecast_extras", "forecast_settings",
+    "forecast_uptake", "launch_forecast", "launch_settings", "mixture_quantiles",
     "poisson_binomial_cdf", "poisson_binomial_pmf", "poisson_binomial_quantiles",
-    "save_fan_chart", "track_record",
+    "save_fan_chart", "track_record", "track_record_hook",
 }  # fmt: skip
 
 

@@ -50,7 +50,7 @@ from lifecycle.report import (
     wilson_interval,
     write_report,
 )
-from lifecycle.report._sections_action import attribute_quarters
+from lifecycle.report._sections_plan import attribute_quarters
 
 from ._builders import make_tables
 
@@ -729,6 +729,7 @@ def test_public_surface_is_pinned():
         "area_risk",
         "build_report_inputs",
         "check_inputs",
+        "cohort_alive",
         "drift_table",
         "incidence_by_segment",
         "key_figures_json",
@@ -747,7 +748,7 @@ def test_public_surface_is_pinned():
 
 
 def test_a_plan_that_contacts_nobody_says_so(report_case):
-    from lifecycle.report._sections_action import plan_section
+    from lifecycle.report._sections_plan import plan_section
 
     inputs = report_case.inputs
     nobody = dataclasses.replace(

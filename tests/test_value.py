@@ -425,14 +425,17 @@ def test_a_fitted_model_feeds_lifetime_value_and_offer_values_consistently():
 
 def test_the_public_surface_of_value():
     assert sorted(lifecycle.value.__all__) == [
+        "HazardInput",
         "MONEY_COLUMNS",
         "ValueSettings",
         "campaign_follow_up",
+        "check_horizon",
         "discount_factors",
         "estimate_offer_effects",
         "lifetime_value",
         "monthly_discount_rate",
         "offer_values",
+        "read_hazards",
         "round_money",
         "value_settings",
     ]

@@ -146,8 +146,7 @@ def twelve_month_concordance(
 
     Returns the concordance and the number of events within the horizon, per cause.
     """
-    from ..evaluation import outcome_for_cause, uno_concordance
-    from ..evaluation._outcomes import EVENT
+    from ..evaluation import EVENT, outcome_for_cause, uno_concordance
 
     concordance, events = {}, {}
     for j, cause in enumerate(causes):
@@ -190,7 +189,7 @@ def fit_and_score(
     from ..cycle import panel_with_context, snapshot_with_context
     from ..data import load_tables
     from ..evaluation import observed_outcomes
-    from ..models._families import make_model
+    from ..models import make_model
 
     folder = Path(folder)
     config = load_config(folder / "lifecycle.toml")
@@ -365,6 +364,13 @@ def run_models_bench(
                 truth_file=str(truths[size]),
             )
             results[case.key] = json.loads(result_file.read_text(encoding="utf-8"))
+    return _with_notes(cases, measured, results)
+
+
+def _with_notes(
+    cases, measured: dict[str, Measurement], results: dict[str, dict]
+) -> list[Measurement]:
+    """The measurements in case order, each with the comparison of its note appended."""
     notes = {
         "cox_weighted": _cox_note(results["cox_full"], results["cox_weighted"]),
         "boosted": _tree_note(results["boosted"], results["forest"]),

@@ -78,8 +78,7 @@ def truth_comparison(
     cause (its ``horizon``-month incidence). The customers compared are those of
     ``outcomes``; each must be in ``truth``.
     """
-    from ..evaluation import brier_score, outcome_for_cause, uno_concordance
-    from ..evaluation._outcomes import EVENT
+    from ..evaluation import EVENT, brier_score, outcome_for_cause, uno_concordance
 
     where = pd.Index(truth["customer_id"].astype(str)).get_indexer(
         outcomes["customer_id"].astype(str)

@@ -41,7 +41,7 @@ def _data_arguments(p: argparse.ArgumentParser) -> None:
 
 def _keep_key_outside(args: argparse.Namespace, *folders: Path) -> None:
     """Refuse a model signing key kept inside the data, config or model folders."""
-    from ..models._signing import keep_key_outside
+    from ..models import keep_key_outside
 
     config = Path(args.config).parent if getattr(args, "config", None) else None
     keep_key_outside([args.data, config, *folders])
@@ -50,7 +50,7 @@ def _keep_key_outside(args: argparse.Namespace, *folders: Path) -> None:
 def _load(args: argparse.Namespace):
     """The checked tables and config; ``--as-of`` (when the command has one) is then checked
     against the data's first month."""
-    from ..cycle._checks import check_as_of
+    from ..cycle import check_as_of
     from ..data import load_tables
 
     config = _config_for(args.data, args.config)
@@ -260,11 +260,9 @@ def _backtest_arguments(p: argparse.ArgumentParser) -> None:
 
 
 def _backtest_run(args: argparse.Namespace) -> None:
-    from ..cycle import default_cutoffs
-    from ..cycle._checks import check_as_of
+    from ..cycle import check_as_of, default_cutoffs
     from ..evaluation import TenureLifeTable, backtest, choose_champions
-    from ..models._families import make_model
-    from ..models._fittable import min_events_setting
+    from ..models import make_model, min_events_setting
 
     parse_month(args.as_of, what="--as-of")
     horizons = horizons_argument(args.horizons)
@@ -363,8 +361,7 @@ def _forecast_run(args: argparse.Namespace) -> None:
 
 def _launch(args: argparse.Namespace):
     from ..data import tables_as_of
-    from ..forecast import forecast_settings
-    from ..forecast._bass import launch_forecast, launch_settings
+    from ..forecast import forecast_settings, launch_forecast, launch_settings
     from ..spatial import premise_areas
 
     as_of = parse_month(args.as_of, what="--as-of")

@@ -1,5 +1,6 @@
 """The monthly cycle: its steps as functions, and the whole cycle in one call."""
 
+from ._checks import check_as_of
 from ._explain import explain_customer
 from ._run import RunResult, RunSettings, run_cycle, run_settings
 from ._steps import (
@@ -18,6 +19,7 @@ __all__ = [
     "RunResult",
     "RunSettings",
     "Scored",
+    "check_as_of",
     "default_cutoffs",
     "explain_customer",
     "fit_model",

@@ -71,7 +71,7 @@ def save_entry(dest: Path, write) -> None:
 
 def save_frames(folder: Path, frames: Mapping[str, pd.DataFrame]) -> None:
     """Write each frame as ``<name>.parquet`` and a signed manifest of their SHA-256."""
-    from ..models._signing import sign, signing_key
+    from ..models import sign, signing_key
 
     hashes = {}
     for name, frame in frames.items():
@@ -84,7 +84,7 @@ def save_frames(folder: Path, frames: Mapping[str, pd.DataFrame]) -> None:
 
 def load_frames(folder: Path, names: tuple[str, ...]) -> dict[str, pd.DataFrame] | None:
     """The frames saved by `save_frames`, or None (logged) when the entry fails verification."""
-    from ..models._signing import signature_matches, signing_key
+    from ..models import signature_matches, signing_key
 
     if not folder.is_dir():
         return None

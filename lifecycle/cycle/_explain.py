@@ -67,7 +67,7 @@ def explain_customer(
     UsageError
         When the customer is not in the data, or was not a customer at the end of ``as_of``.
     """
-    from ..models._base import incidence_from_hazards, survival_from_hazards
+    from ..models import incidence_from_hazards, survival_from_hazards
     from ..value import value_settings
     from ._steps import score_portfolio
 
@@ -188,8 +188,7 @@ def _exclusions(one: pd.DataFrame, offer, settings, last: pd.Series, month: str)
     """Why the customer may not receive ``offer``, in words (empty: it may)."""
     import dataclasses
 
-    from ..decisions import Eligibility, cooldown_ok, eligible_mask, excluded_mask
-    from ..decisions._exclusions import consent_mask
+    from ..decisions import Eligibility, consent_mask, cooldown_ok, eligible_mask, excluded_mask
 
     out = []
     rules = offer.eligible

@@ -51,6 +51,7 @@ from .._months import format_month, parse_month
 from ..config import Config
 from ..errors import ModelFileError, OutputError, UsageError
 from ._cache import candidates, entry_name, load_frames, save_entry, save_frames
+from ._checks import checked_inputs, refuse_existing
 from ._lock import run_lock
 from ._publish import HistoryEntry, mend, publish_with_history, staging_folder
 
@@ -93,7 +94,7 @@ def run_settings(config: Config, *, reports: str | Path | None = None) -> RunSet
         return (p if p.is_absolute() else base / p).resolve()
 
     families = tuple(raw.get("families", ("cox", "boosted", "forest")))
-    from ..models._families import FAMILY_NAMES
+    from ..models import FAMILY_NAMES
 
     bad = [f for f in families if f not in FAMILY_NAMES]
     if bad or not families:
@@ -178,14 +179,14 @@ def run_cycle(
     same up to floating-point rounding.
     """
     from ..history import ScoreHistory
-    from ..models._signing import keep_key_outside
+    from ..models import keep_key_outside
 
     tick = step or (lambda name: None)
     settings = run_settings(config, reports=reports)
     config_dir = config.source.parent if config.source else None
     keep_key_outside([source, settings.work, settings.reports, config_dir])
     tick("check")
-    checked = _checked_inputs(source, config, settings, as_of, force)  # reads only
+    checked = checked_inputs(source, config, as_of)  # reads only
     with run_lock(settings.reports):  # before any computation: one run per reports folder
         history = ScoreHistory(settings.history_path)
         mend(settings.reports, history, settings.work)
@@ -208,122 +209,36 @@ def _disk_full(exc: Exception) -> bool:
     return "No space left on device" in str(exc)
 
 
-def _checked_inputs(source, config: Config, settings: RunSettings, as_of, force: bool) -> dict:
-    """Every check of the inputs, before the run takes its lock or writes anything (it only
-    reads): the tables, the month, the plan's flags and offers. Whether the month exists is
-    asked under the lock, after an earlier crash is mended."""
-    from ..data import load_tables, tables_as_of
-    from ..models._fittable import min_events_setting
-    from ..spatial import premise_areas
-    from ._checks import check_as_of
-    from ._steps import plan_offers
-
-    tables = load_tables(source, config)
-    premise_areas(tables, config)  # as `lifecycle check` does: refused before anything is written
-    month = as_of or format_month(tables.extract_month)
-    month_index = parse_month(month, what="as_of")
-    if month_index > tables.extract_month:
-        raise UsageError(
-            f"as_of was {month} but the data only covers months up to "
-            f"{format_month(tables.extract_month)}"
-        )
-    check_as_of(tables, month_index, what="as_of")
-    tables = tables_as_of(tables, month_index)  # a past month sees only what it knew
-    _check_plan_inputs(tables, config)
-    return {
-        "tables": tables,
-        "month": month,
-        "month_index": month_index,
-        "offers": plan_offers(tables, config),
-        "min_events": min_events_setting(config),
-    }
-
-
-def _refuse_existing(folder: Path, month: str, force: bool) -> None:
-    if folder.exists() and not force:
-        raise UsageError(
-            f"{folder} exists: month {month} was run already; pass --force to rewrite it"
-        )
-
-
 def _locked_run(source, config, settings, checked, force, tick, client, history) -> RunResult:
     """`run_cycle` once the inputs are checked and the reports folder is locked: the
     computation, then the month folder and its history rows together, then the work folder's
     saved steps."""
-    from ..evaluation import TenureLifeTable, backtest, choose_champions
-    from ..models._families import make_model
-    from ..models._fittable import check_fittable
-    from ..report import write_report
-    from ..value import round_money
-    from ._steps import (
-        default_cutoffs,
-        forecast_portfolio,
-        panel_with_context,
-        plan_contacts,
-        score_on_cluster,
-        score_portfolio,
-    )
+    from ..models import check_fittable
+    from ._steps import panel_with_context
 
     tables, month, month_index = checked["tables"], checked["month"], checked["month_index"]
     offers, min_events = checked["offers"], checked["min_events"]
     folder = settings.reports / month
-    _refuse_existing(folder, month, force)  # under the lock, after `mend`
+    refuse_existing(folder, month, force)  # under the lock, after `mend`
     fingerprint = hashlib.sha256(f"{data_fingerprint(source, config)}:{month}".encode()).hexdigest()
     keys = (month, fingerprint, _config_hash(config))
     saves = []  # saved steps, written to the work folder only once the month is published
     staging = staging_folder(settings.reports, month)
     try:
         tick("backtest")
-        families = {"life_table": TenureLifeTable()}
-        for name in settings.families:
-            families[name] = make_model(name, config)
-        result = _cached_backtest(
-            settings.work, keys, settings.backtest_months, force, saves, lambda: backtest(
-                tables,
-                families=families,
-                cutoffs=default_cutoffs(month, 12, count=settings.cutoffs),
-                config=config,
-                min_events=min_events,
-                **_track_record_hook(tables, config),
-            ),
-        )  # fmt: skip
-        previous = history.previous_month(month)
-        choice = choose_champions(
-            result["metrics"],
-            previous=_previous_champions(history, previous),
-            margin=settings.switch_margin,
+        families, result, champions, previous = _backtest_and_choose(
+            tables, config, settings, month, keys, min_events, force, saves, history
         )
-        result = {**result, "champions": choice}
-        champions = dict(zip(choice["cause"], choice["family"], strict=True))
         tick("fit")
         panel = panel_with_context(tables, month, config)
         check_fittable(panel, min_events=min_events)
         model = _champion_model(
             settings.work, keys, panel, families, champions, settings.refit_months, force, saves
         )
-        tick("score")
-        if client is None:
-            scored = score_portfolio(tables, model, month, config)
-            values = None
-        else:
-            scored, values, forecast = score_on_cluster(
-                client, tables, model, month, config, offers
-            )
-        tick("plan")
-        plan = plan_contacts(tables, model, scored, config, offers=offers, expected_values=values)
-        tick("forecast")
-        if client is None:
-            forecast = forecast_portfolio(tables, scored, config, model)
-        forecast_track = _forecast_track(result)
-        files = {
-            "scores": write_csv_atomic(staging / "scores.csv", round_money(scored.scores)),
-            "plan": write_csv_atomic(staging / "contact_plan.csv", round_money(plan.table)),
-            "forecast": write_csv_atomic(staging / "uptake_forecast.csv", forecast),
-            "backtest": write_csv_atomic(staging / "backtest_metrics.csv", result["metrics"]),
-            "forecast_backtest": write_csv_atomic(
-                staging / "forecast_backtest.csv", forecast_track
-            ),
-        }
+        scored, plan, forecast = _score_plan_forecast(
+            tables, model, month, config, offers, client, tick
+        )
+        files = _write_tables(staging, scored, plan, forecast, result)
         summary = {
             "month": month,
             "customers_scored": len(scored.scores),
@@ -336,25 +251,15 @@ def _locked_run(source, config, settings, checked, force, tick, client, history)
             staging / "run_summary.json", json.dumps(summary, indent=2, sort_keys=True, default=str)
         )
         tick("report")
-        inputs = _report_inputs(
-            tables, config, month, panel, scored, model, result, plan, forecast, history, previous
-        )
-        inputs.forecast_track = result["forecasts"]  # every family: shown side by side
-        inputs.uptake_history = _uptake_history(tables, month_index)
-        inputs.cohort_alive = _cohort_alive(panel, month_index)
-        files.update(write_report(inputs, staging))
+        files.update(
+            _write_month_report(
+                staging, tables, config, month, month_index, panel, scored, model, result,
+                plan, forecast, history, previous,
+            )
+        )  # fmt: skip
         tick("publish")
-        entry = HistoryEntry(
-            month=month,
-            scores=scored.scores,
-            plan=plan.table,
-            metrics=_key_metrics(summary, plan),
-            meta={
-                "created": pd.Timestamp(month_index // 12, month_index % 12 + 1, 1),
-                "families": champions,
-                "config_hash": _config_hash(config),
-                "data_hash": fingerprint,
-            },
+        entry = _history_entry(
+            month, month_index, scored, plan, summary, champions, config, fingerprint
         )
         publish_with_history(staging, folder, entry, history, force=force)
     finally:
@@ -368,13 +273,100 @@ def _locked_run(source, config, settings, checked, force, tick, client, history)
     )
 
 
-def _check_plan_inputs(tables, config: Config) -> None:
-    """The plan's settings and exclusion flags, checked before any computation."""
-    from ..decisions import plan_settings_from_config
-    from ..decisions._exclusions import require_flag_columns
+def _backtest_and_choose(tables, config, settings, month, keys, min_events, force, saves, history):
+    """The families (the tenure life table among them), the (cached) backtest with the
+    champion per cause chosen against last month's, the champions and last month."""
+    from ..evaluation import TenureLifeTable, backtest, choose_champions
+    from ..models import make_model
+    from ._steps import default_cutoffs
 
-    plan = plan_settings_from_config(config)
-    require_flag_columns(tables.customers, plan.exclusions, plan.flags_absent, plan.consent_column)
+    families = {"life_table": TenureLifeTable()}
+    for name in settings.families:
+        families[name] = make_model(name, config)
+    result = _cached_backtest(
+        settings.work, keys, settings.backtest_months, force, saves, lambda: backtest(
+            tables,
+            families=families,
+            cutoffs=default_cutoffs(month, 12, count=settings.cutoffs),
+            config=config,
+            min_events=min_events,
+            **_track_record_hook(tables, config),
+        ),
+    )  # fmt: skip
+    previous = history.previous_month(month)
+    choice = choose_champions(
+        result["metrics"],
+        previous=_previous_champions(history, previous),
+        margin=settings.switch_margin,
+    )
+    result = {**result, "champions": choice}
+    champions = dict(zip(choice["cause"], choice["family"], strict=True))
+    return families, result, champions, previous
+
+
+def _score_plan_forecast(tables, model, month, config, offers, client, tick):
+    """Scores, the contact plan and the uptake forecast (scores, offer values and the
+    forecast on the cluster's workers when there is a client)."""
+    from ._steps import forecast_portfolio, plan_contacts, score_on_cluster, score_portfolio
+
+    tick("score")
+    if client is None:
+        scored = score_portfolio(tables, model, month, config)
+        values = None
+    else:
+        scored, values, forecast = score_on_cluster(client, tables, model, month, config, offers)
+    tick("plan")
+    plan = plan_contacts(tables, model, scored, config, offers=offers, expected_values=values)
+    tick("forecast")
+    if client is None:
+        forecast = forecast_portfolio(tables, scored, config, model)
+    return scored, plan, forecast
+
+
+def _write_tables(staging: Path, scored, plan, forecast, result) -> dict[str, Path]:
+    """The month's CSV files, written atomically into the staging folder."""
+    from ..value import round_money
+
+    forecast_track = _forecast_track(result)
+    return {
+        "scores": write_csv_atomic(staging / "scores.csv", round_money(scored.scores)),
+        "plan": write_csv_atomic(staging / "contact_plan.csv", round_money(plan.table)),
+        "forecast": write_csv_atomic(staging / "uptake_forecast.csv", forecast),
+        "backtest": write_csv_atomic(staging / "backtest_metrics.csv", result["metrics"]),
+        "forecast_backtest": write_csv_atomic(staging / "forecast_backtest.csv", forecast_track),
+    }
+
+
+def _write_month_report(
+    staging, tables, config, month, month_index, panel, scored, model, result, plan,
+    forecast, history, previous,
+) -> dict[str, Path]:  # fmt: skip
+    """The report's inputs gathered and the report written into the staging folder."""
+    from ..report import write_report
+
+    inputs = _report_inputs(
+        tables, config, month, panel, scored, model, result, plan, forecast, history, previous
+    )
+    inputs.forecast_track = result["forecasts"]  # every family: shown side by side
+    inputs.uptake_history = _uptake_history(tables, month_index)
+    inputs.cohort_alive = _cohort_alive(panel, month_index)
+    return write_report(inputs, staging)
+
+
+def _history_entry(month, month_index, scored, plan, summary, champions, config, fingerprint):
+    """The month's rows for the score history."""
+    return HistoryEntry(
+        month=month,
+        scores=scored.scores,
+        plan=plan.table,
+        metrics=_key_metrics(summary, plan),
+        meta={
+            "created": pd.Timestamp(month_index // 12, month_index % 12 + 1, 1),
+            "families": champions,
+            "config_hash": _config_hash(config),
+            "data_hash": fingerprint,
+        },
+    )
 
 
 def _previous_champions(history, previous: str | None) -> dict[str, str] | None:
@@ -422,8 +414,7 @@ def _champion_model(work, keys, panel, families, champions, refit_months, force,
     than ``refit_months`` months before with the same settings whose causes and features the
     panel still has (the refit schedule), else a new fit. ``force`` does not take the month's
     own saved model."""
-    from ..models import load_model, save_model
-    from ..models._champion import ChampionModel
+    from ..models import ChampionModel, load_model, save_model
 
     folder = work / "models"
     for candidate in candidates(folder, "champion", *keys, refit_months)[force:]:
@@ -463,8 +454,7 @@ def _champion_model(work, keys, panel, families, champions, refit_months, force,
 def _track_record_hook(tables, config: Config) -> dict:
     """The backtest's ``after_fit`` that keeps each fit's uptake forecast beside what happened
     (the forecast's track record, made from the backtest's own fits)."""
-    from ..forecast import forecast_settings
-    from ..forecast._track import track_record_hook
+    from ..forecast import forecast_settings, track_record_hook
     from ..spatial import premise_areas
 
     if not tables.products:
@@ -489,13 +479,13 @@ def _uptake_history(tables, month: int, months: int = 24) -> pd.DataFrame:
 
 
 def _cohort_alive(panel: pd.DataFrame, month: int) -> pd.DataFrame:
-    from ..report._sections_cohorts import cohort_alive
+    from ..report import cohort_alive
 
     return cohort_alive(panel, month)
 
 
 def _forecast_track(result: dict) -> pd.DataFrame:
-    from ..forecast._track import track_record
+    from ..forecast import track_record
 
     return track_record(result.get("forecasts"), result["champions"])
 

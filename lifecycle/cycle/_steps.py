@@ -17,8 +17,7 @@ from .._months import categorical_to_index, format_month, parse_month
 from ..config import Config
 from ..data import Tables
 from ..errors import UsageError
-from ..models import HazardModel, score_customers
-from ..models._families import make_model
+from ..models import HazardModel, make_model, score_customers
 from ..panel import build_panel, build_snapshot
 
 log = logging.getLogger(__name__)
@@ -50,7 +49,7 @@ def fit_model(
     tables: Tables, as_of: str | int, family: str, config: Config
 ) -> tuple[HazardModel, tuple[str, str]]:
     """Fit ``family`` on the panel of ``as_of``; returns the model and its training window."""
-    from ..models._fittable import check_fittable, min_events_setting
+    from ..models import check_fittable, min_events_setting
 
     panel = panel_with_context(tables, as_of, config)
     check_fittable(panel, min_events=min_events_setting(config))
@@ -118,7 +117,7 @@ def score_portfolio(
 
 
 def _survival(hazards: np.ndarray, n_terminal: int) -> np.ndarray:
-    from ..models._base import survival_from_hazards
+    from ..models import survival_from_hazards
 
     return survival_from_hazards(hazards, n_terminal)
 
@@ -150,12 +149,13 @@ def plan_contacts(
     ``expected_value``).
     """
     from ..decisions import (
+        guard_plan,
         last_contact_months,
         make_plan,
         phrases_from_config,
         plan_settings_from_config,
+        require_flag_columns,
     )
-    from ..decisions._exclusions import guard_plan, require_flag_columns
     from ..value import offer_values, value_settings
 
     offers = plan_offers(tables, config) if offers is None else offers
@@ -289,8 +289,8 @@ def forecast_extras(
 ) -> dict:
     """`forecast_uptake`'s ``joiners``, ``level_draws`` and ``level_trend`` for the scored
     portfolio (``{}`` without a model, or when ``[forecast]`` turns all three off)."""
+    from ..forecast import forecast_extras as extras_of
     from ..forecast import forecast_settings
-    from ..forecast._portfolio import forecast_extras as extras_of
     from ..spatial import premise_areas
 
     settings = forecast_settings(config)

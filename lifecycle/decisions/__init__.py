@@ -7,6 +7,7 @@ optimality gap), schedules the contacts into weeks, most urgent first, and gives
 top reasons in plain words.
 """
 
+from ._exclusions import consent_mask, guard_plan, require_flag_columns
 from ._offers import (
     Eligibility,
     Offer,
@@ -54,10 +55,12 @@ __all__ = [
     "PlanSettings",
     "allocate",
     "cause_words",
+    "consent_mask",
     "cooldown_ok",
     "eligible_mask",
     "excluded_mask",
     "expected_value_matrix",
+    "guard_plan",
     "join_reasons",
     "last_contact_months",
     "make_plan",
@@ -67,6 +70,7 @@ __all__ = [
     "plan_settings_from_config",
     "portfolio_reference",
     "reason_concept",
+    "require_flag_columns",
     "risk_reason",
     "schedule_weeks",
     "top_reasons",

@@ -202,57 +202,35 @@ def make_plan(
     offers = tuple(offers)
     if not offers:
         raise UsageError("no offers are configured; add [[offers]] tables to the config")
-    ids = frame["customer_id"] if "customer_id" in frame else None
-    if ids is None:
-        raise UsageError("the planning frame needs a customer_id column")
-    if ids.duplicated().any():
-        dup = ids[ids.duplicated(keep=False)]
-        raise InputError(
-            table="scores",
-            column="customer_id",
-            problem="customer_id is not unique",
-            count=len(dup),
-            examples=dup,
-        )
-    n = len(frame)
-    if isinstance(expected_values, pd.DataFrame):
-        ev = expected_value_matrix(expected_values, ids.to_numpy(), offers)
-    else:
-        ev = np.asarray(expected_values, dtype=float)
-        if ev.shape != (n, len(offers)):
-            raise UsageError(
-                f"expected values have shape {ev.shape} but the plan has {n} customers × "
-                f"{len(offers)} offers"
-            )
-    urgency_columns = [settings.urgency_column(o) for o in offers]
-    absent = sorted({c for c in urgency_columns if c not in frame})
-    if absent:
-        raise UsageError(
-            f"[plan] urgency names column(s) {absent}, which the planning frame lacks; "
-            "score with those horizons or change [plan] urgency"
-        )
-
-    allowed = np.column_stack([eligible_mask(frame, o) for o in offers])
-    flags = settings.exclusions
-    require_flag_columns(
-        frame, flags, settings.flags_absent, settings.consent_column, table="planning frame"
+    ids = _checked_ids(frame)
+    ev = _value_matrix(expected_values, ids, offers)
+    urgency_columns = _urgency_columns(frame, settings, offers)
+    rules, excluded, allowed = _allowed_pairs(
+        frame, ids, offers, settings, last_contact, plan_month
     )
-    excluded = excluded_mask(frame, flags) | ~consent_mask(frame, settings.consent_column)
-    rules = allowed.copy()
-    allowed &= ~excluded[:, None]
-    if last_contact is not None:
-        month = _plan_month(frame, plan_month)
-        last = pd.Series(last_contact).reindex(ids.to_numpy()).to_numpy(dtype=float)
-        for j, offer in enumerate(offers):
-            allowed[:, j] &= cooldown_ok(last, month, offer.cooldown_months)
-    log.info(
-        "plan: %d customers, %d excluded by flags or consent, %d allowed pairs",
-        n,
-        int(excluded.sum()),
-        int(allowed.sum()),
+    allocation = _allocation(ev, offers, settings, allowed)
+    urgency_all = np.column_stack([_numbers(frame[c]) for c in urgency_columns])
+    table, rows, chosen, urgency = _scheduled_table(
+        ids, ev, offers, settings, allocation, urgency_all
     )
+    if model is not None and settings.reasons > 0 and len(table):
+        source = frame if snapshot is None else snapshot
+        causes = [offers[o].target for o in chosen]
+        hidden = () if settings.area_reasons else tuple(area_features)
+        table["reasons"] = _model_reasons(
+            model, source, snapshot is not None, table, rows, causes, settings.reasons,
+            phrases, hidden,
+        )  # fmt: skip
+    if settings.reasons > 0 and len(table):
+        _risk_reasons(table, urgency_all, urgency_columns, chosen, urgency)
+    return _plan_result(table, ids, ev, offers, settings, allocation, rules, excluded, allowed)
 
-    allocation = allocate(
+
+def _allocation(
+    ev: np.ndarray, offers: tuple[Offer, ...], settings: PlanSettings, allowed: np.ndarray
+) -> Allocation:
+    """At most one offer per customer within the budget and the offers' capacities."""
+    return allocate(
         ev,
         np.array([o.cost for o in offers]),
         np.array([o.capacity(settings.weeks) for o in offers]),
@@ -263,49 +241,20 @@ def make_plan(
         time_limit_s=settings.time_limit_s,
         mip_gap=settings.mip_gap,
     )
-    rows = np.flatnonzero(allocation.choice >= 0)
-    chosen = allocation.choice[rows]
-    urgency_all = np.column_stack([_numbers(frame[c]) for c in urgency_columns])
-    urgency = urgency_all[rows, chosen]
-    value = ev[rows, chosen]
-    week = schedule_weeks(
-        chosen, urgency, [o.weekly_capacity for o in offers], settings.weeks, tiebreak=value
-    )
-    table = pd.DataFrame(
-        {
-            "customer_id": ids.to_numpy()[rows],
-            "offer": np.array([o.name for o in offers], dtype=object)[chosen],
-            "week": week,
-            "expected_value": value,
-            "cost": np.array([o.cost for o in offers])[chosen],
-            "reasons": "",
-        }
-    )
-    order = np.lexsort((-value, -np.nan_to_num(urgency, nan=-np.inf), week))
-    table = table.iloc[order].reset_index(drop=True)
-    if model is not None and settings.reasons > 0 and len(table):
-        rows_sorted = rows[order]
-        source = (frame if snapshot is None else snapshot).reset_index(drop=True)
-        if snapshot is not None:
-            position = pd.Index(source["customer_id"]).get_indexer(table["customer_id"])
-            if (position < 0).any():
-                raise UsageError("the snapshot lacks planned customers; pass the matching snapshot")
-        else:
-            position = rows_sorted
-        causes = [offers[o].target for o in allocation.choice[rows_sorted]]
-        hidden = () if settings.area_reasons else tuple(area_features)
-        reasons = top_reasons(
-            model,
-            source.iloc[position],
-            causes,
-            settings.reasons,
-            reference=portfolio_reference(model, source),  # against everyone, not the planned
-            phrases=phrases,
-            hidden=hidden,
-        )
-        table["reasons"] = join_reasons(reasons, table["customer_id"].tolist())
-    if settings.reasons > 0 and len(table):
-        _risk_reasons(table, urgency_all, urgency_columns, chosen[order], urgency[order])
+
+
+def _plan_result(
+    table: pd.DataFrame,
+    ids: pd.Series,
+    ev: np.ndarray,
+    offers: tuple[Offer, ...],
+    settings: PlanSettings,
+    allocation: Allocation,
+    rules: np.ndarray,
+    excluded: np.ndarray,
+    allowed: np.ndarray,
+) -> Plan:
+    """The `Plan` with its per-offer figures, logged."""
     log.info(
         "plan: %d contacts, expected value %.2f (bound %.2f, gap %.3g%%), %s solver",
         len(table),
@@ -328,6 +277,148 @@ def make_plan(
             allowed, index=pd.Index(ids.to_numpy()), columns=[o.name for o in offers]
         ),
     )
+
+
+def _checked_ids(frame: pd.DataFrame) -> pd.Series:
+    """The planning frame's ``customer_id`` column, which must be present and unique."""
+    ids = frame["customer_id"] if "customer_id" in frame else None
+    if ids is None:
+        raise UsageError("the planning frame needs a customer_id column")
+    if ids.duplicated().any():
+        dup = ids[ids.duplicated(keep=False)]
+        raise InputError(
+            table="scores",
+            column="customer_id",
+            problem="customer_id is not unique",
+            count=len(dup),
+            examples=dup,
+        )
+    return ids
+
+
+def _value_matrix(
+    expected_values: np.ndarray | pd.DataFrame, ids: pd.Series, offers: tuple[Offer, ...]
+) -> np.ndarray:
+    """The ``(n, O)`` expected values, from a matrix or a long table (see `make_plan`)."""
+    if isinstance(expected_values, pd.DataFrame):
+        return expected_value_matrix(expected_values, ids.to_numpy(), offers)
+    ev = np.asarray(expected_values, dtype=float)
+    if ev.shape != (len(ids), len(offers)):
+        raise UsageError(
+            f"expected values have shape {ev.shape} but the plan has {len(ids)} customers × "
+            f"{len(offers)} offers"
+        )
+    return ev
+
+
+def _urgency_columns(
+    frame: pd.DataFrame, settings: PlanSettings, offers: tuple[Offer, ...]
+) -> list[str]:
+    """Each offer's urgency column, which the frame must hold."""
+    urgency_columns = [settings.urgency_column(o) for o in offers]
+    absent = sorted({c for c in urgency_columns if c not in frame})
+    if absent:
+        raise UsageError(
+            f"[plan] urgency names column(s) {absent}, which the planning frame lacks; "
+            "score with those horizons or change [plan] urgency"
+        )
+    return urgency_columns
+
+
+def _allowed_pairs(
+    frame: pd.DataFrame,
+    ids: pd.Series,
+    offers: tuple[Offer, ...],
+    settings: PlanSettings,
+    last_contact: pd.Series | None,
+    plan_month: str | int | None,
+) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Which customer-offer pairs are allowed: the offers' rules (``(n, O)``), the customers
+    excluded by flags or consent (``(n,)``), and the pairs left after both and the cooldown."""
+    allowed = np.column_stack([eligible_mask(frame, o) for o in offers])
+    flags = settings.exclusions
+    require_flag_columns(
+        frame, flags, settings.flags_absent, settings.consent_column, table="planning frame"
+    )
+    excluded = excluded_mask(frame, flags) | ~consent_mask(frame, settings.consent_column)
+    rules = allowed.copy()
+    allowed &= ~excluded[:, None]
+    if last_contact is not None:
+        month = _plan_month(frame, plan_month)
+        last = pd.Series(last_contact).reindex(ids.to_numpy()).to_numpy(dtype=float)
+        for j, offer in enumerate(offers):
+            allowed[:, j] &= cooldown_ok(last, month, offer.cooldown_months)
+    log.info(
+        "plan: %d customers, %d excluded by flags or consent, %d allowed pairs",
+        len(frame),
+        int(excluded.sum()),
+        int(allowed.sum()),
+    )
+    return rules, excluded, allowed
+
+
+def _scheduled_table(
+    ids: pd.Series,
+    ev: np.ndarray,
+    offers: tuple[Offer, ...],
+    settings: PlanSettings,
+    allocation: Allocation,
+    urgency_all: np.ndarray,
+) -> tuple[pd.DataFrame, np.ndarray, np.ndarray, np.ndarray]:
+    """The chosen rows scheduled into weeks and sorted by week, urgency and value; returns the
+    table and, in its order, each row's position in the frame, offer index and urgency."""
+    rows = np.flatnonzero(allocation.choice >= 0)
+    chosen = allocation.choice[rows]
+    urgency = urgency_all[rows, chosen]
+    value = ev[rows, chosen]
+    week = schedule_weeks(
+        chosen, urgency, [o.weekly_capacity for o in offers], settings.weeks, tiebreak=value
+    )
+    table = pd.DataFrame(
+        {
+            "customer_id": ids.to_numpy()[rows],
+            "offer": np.array([o.name for o in offers], dtype=object)[chosen],
+            "week": week,
+            "expected_value": value,
+            "cost": np.array([o.cost for o in offers])[chosen],
+            "reasons": "",
+        }
+    )
+    order = np.lexsort((-value, -np.nan_to_num(urgency, nan=-np.inf), week))
+    table = table.iloc[order].reset_index(drop=True)
+    return table, rows[order], chosen[order], urgency[order]
+
+
+def _model_reasons(
+    model: Any,
+    source: pd.DataFrame,
+    own_snapshot: bool,
+    table: pd.DataFrame,
+    rows: np.ndarray,
+    causes: list[str],
+    n_reasons: int,
+    phrases: Sequence[Phrase],
+    hidden: tuple[str, ...],
+) -> list[str]:
+    """Each planned row's top reasons from the model, joined into text. ``source`` is the
+    snapshot (``own_snapshot``: looked up by id) or the planning frame (by ``rows``)."""
+    source = source.reset_index(drop=True)
+    if own_snapshot:
+        position = pd.Index(source["customer_id"]).get_indexer(table["customer_id"])
+        if (position < 0).any():
+            raise UsageError("the snapshot lacks planned customers; pass the matching snapshot")
+    else:
+        position = rows
+    reasons = top_reasons(
+        model,
+        source.iloc[position],
+        causes,
+        n_reasons,
+        reference=portfolio_reference(model, source),  # against everyone, not the planned
+        phrases=phrases,
+        hidden=hidden,
+    )
+    return join_reasons(reasons, table["customer_id"].tolist())
 
 
 LIMITS = ("no positive value", "eligibility", "capacity", "budget", "none")

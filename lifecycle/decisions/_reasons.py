@@ -290,12 +290,36 @@ def top_reasons(
         raise UsageError(f"cause(s) {unknown} are not modelled; the model's causes are {known}")
     if n == 0 or k < 1:
         return _empty()
-    at = np.array([known.index(c) for c in causes])
-    rows = np.arange(n)
     snapshot = snapshot.reset_index(drop=True)
-    base = _one_month(model, snapshot)[rows, at]
     stored = reference if reference is not None else getattr(model, "feature_reference_", None)
     features = _candidates(model, snapshot, hidden)
+    base, effects, refs = _feature_effects(model, snapshot, causes, known, features, stored)
+    effects = _strongest_of_each_concept(effects, features)
+    order = np.argsort(-effects, axis=1, kind="stable")[:, :k]
+    top = np.take_along_axis(effects, order, axis=1)
+    floor = np.maximum(1e-12, min_relative_effect * base)[:, None]
+    keep = top >= floor  # sorted, so the kept reasons of a row come first
+    i, r = np.nonzero(keep)
+    if len(i) == 0:
+        return _empty()
+    return _reason_rows(snapshot, features, refs, causes, order, top, i, r, phrases)
+
+
+def _feature_effects(
+    model: Any,
+    snapshot: pd.DataFrame,
+    causes: list[str],
+    known: list[str],
+    features: list[str],
+    stored: Mapping[str, Any] | None,
+) -> tuple[np.ndarray, np.ndarray, list[Any]]:
+    """Each customer's 1-month hazard of its cause ``(n,)``, each feature's effect on it
+    ``(n, F)`` (the hazard less the hazard with the feature at its reference) and the
+    references."""
+    n = len(snapshot)
+    at = np.array([known.index(c) for c in causes])
+    rows = np.arange(n)
+    base = _one_month(model, snapshot)[rows, at]
     effects = np.zeros((n, len(features)))
     refs = []
     for j, feature in enumerate(features):
@@ -310,14 +334,21 @@ def top_reasons(
         if feature.startswith("holds_"):
             # holding a product makes its own uptake hazard 0 by construction: not a reason
             effects[np.array(causes) == "uptake_" + feature.removeprefix("holds_"), j] = 0.0
-    effects = _strongest_of_each_concept(effects, features)
-    order = np.argsort(-effects, axis=1, kind="stable")[:, :k]
-    top = np.take_along_axis(effects, order, axis=1)
-    floor = np.maximum(1e-12, min_relative_effect * base)[:, None]
-    keep = top >= floor  # sorted, so the kept reasons of a row come first
-    i, r = np.nonzero(keep)
-    if len(i) == 0:
-        return _empty()
+    return base, effects, refs
+
+
+def _reason_rows(
+    snapshot: pd.DataFrame,
+    features: list[str],
+    refs: list[Any],
+    causes: list[str],
+    order: np.ndarray,
+    top: np.ndarray,
+    i: np.ndarray,
+    r: np.ndarray,
+    phrases: Sequence[Phrase],
+) -> pd.DataFrame:
+    """The kept reasons (customer row ``i``, rank ``r``) as the table `top_reasons` returns."""
     j = order[i, r]
     values = np.empty(len(i), dtype=object)
     for f in np.unique(j):

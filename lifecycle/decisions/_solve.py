@@ -130,31 +130,8 @@ def allocate(
     time_limit_s, mip_gap
         The exact solver's time limit and relative gap at which it may stop.
     """
-    ev = np.asarray(ev, dtype=float)
-    if ev.ndim != 2:
-        raise UsageError(
-            f"expected values must be an (customers, offers) array; got shape {ev.shape}"
-        )
+    ev, cost, capacity = _checked_inputs(ev, cost, capacity, budget, solver)
     n, n_offers = ev.shape
-    cost = np.asarray(cost, dtype=float).reshape(-1)
-    capacity = np.asarray(capacity, dtype=float).reshape(-1)
-    if cost.shape != (n_offers,) or capacity.shape != (n_offers,):
-        raise UsageError(
-            f"cost and capacity need one value per offer ({n_offers}); got {cost.shape[0]} and "
-            f"{capacity.shape[0]}"
-        )
-    if np.any(~np.isfinite(cost)) or np.any(cost < 0) or np.any(np.isnan(capacity)):
-        raise UsageError(
-            f"costs must be finite and ≥ 0, capacities numbers; got {cost}, {capacity}"
-        )
-    if math.isnan(budget) or budget < 0:
-        raise UsageError(f"budget was {budget} but must be ≥ 0")
-    if solver not in ("auto", "exact", "greedy"):
-        raise UsageError(
-            f"solver was {solver!r} but is expected to be in ['auto', 'exact', 'greedy']"
-        )
-    if np.isinf(ev).any():
-        raise UsageError("expected values must be finite (NaN marks a pair that is not allowed)")
     mask = np.isfinite(ev) & (ev > 0)
     if allowed is not None:
         allowed = np.asarray(allowed, dtype=bool)
@@ -175,6 +152,72 @@ def allocate(
         len(rows),
         "exact" if use_exact else "greedy",
     )
+    picked, bound, name, status = _solve(
+        values, cost, capacity, budget, candidates, use_exact, time_limit_s, mip_gap
+    )
+    choice = np.full(n, -1, dtype=np.int64)
+    choice[rows] = picked if candidates else -1
+    chosen = choice >= 0
+    objective = float(ev[chosen, choice[chosen]].sum())
+    spent = float(cost[choice[chosen]].sum())
+    counts = tuple(int(c) for c in np.bincount(choice[chosen], minlength=n_offers))
+    return Allocation(
+        choice=choice,
+        objective=objective,
+        bound=max(float(bound), objective),
+        solver=name,
+        status=status,
+        budget_used=spent,
+        counts=counts,
+        candidates=candidates,
+    )
+
+
+def _checked_inputs(
+    ev: np.ndarray, cost: np.ndarray, capacity: np.ndarray, budget: float, solver: str
+) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """The expected values ``(n, O)``, costs and capacities ``(O,)`` as float arrays, checked
+    with the budget and the solver's name (see `allocate`)."""
+    ev = np.asarray(ev, dtype=float)
+    if ev.ndim != 2:
+        raise UsageError(
+            f"expected values must be an (customers, offers) array; got shape {ev.shape}"
+        )
+    n_offers = ev.shape[1]
+    cost = np.asarray(cost, dtype=float).reshape(-1)
+    capacity = np.asarray(capacity, dtype=float).reshape(-1)
+    if cost.shape != (n_offers,) or capacity.shape != (n_offers,):
+        raise UsageError(
+            f"cost and capacity need one value per offer ({n_offers}); got {cost.shape[0]} and "
+            f"{capacity.shape[0]}"
+        )
+    if np.any(~np.isfinite(cost)) or np.any(cost < 0) or np.any(np.isnan(capacity)):
+        raise UsageError(
+            f"costs must be finite and ≥ 0, capacities numbers; got {cost}, {capacity}"
+        )
+    if math.isnan(budget) or budget < 0:
+        raise UsageError(f"budget was {budget} but must be ≥ 0")
+    if solver not in ("auto", "exact", "greedy"):
+        raise UsageError(
+            f"solver was {solver!r} but is expected to be in ['auto', 'exact', 'greedy']"
+        )
+    if np.isinf(ev).any():
+        raise UsageError("expected values must be finite (NaN marks a pair that is not allowed)")
+    return ev, cost, capacity
+
+
+def _solve(
+    values: np.ndarray,
+    cost: np.ndarray,
+    capacity: np.ndarray,
+    budget: float,
+    candidates: int,
+    use_exact: bool,
+    time_limit_s: float,
+    mip_gap: float,
+) -> tuple[np.ndarray, float, str, str]:
+    """The chosen offer per candidate customer (−1: none), the bound, the solver used and its
+    status; the greedy when the exact solver finds no plan in time."""
     if candidates == 0:
         picked, bound, name, status = (
             np.full(0, -1),
@@ -194,22 +237,7 @@ def allocate(
     else:
         picked, bound, status = _greedy(values, cost, capacity, budget)
         name = "greedy"
-    choice = np.full(n, -1, dtype=np.int64)
-    choice[rows] = picked if candidates else -1
-    chosen = choice >= 0
-    objective = float(ev[chosen, choice[chosen]].sum())
-    spent = float(cost[choice[chosen]].sum())
-    counts = tuple(int(c) for c in np.bincount(choice[chosen], minlength=n_offers))
-    return Allocation(
-        choice=choice,
-        objective=objective,
-        bound=max(float(bound), objective),
-        solver=name,
-        status=status,
-        budget_used=spent,
-        counts=counts,
-        candidates=candidates,
-    )
+    return picked, bound, name, status
 
 
 def _spendable(budget: float, cost: np.ndarray) -> float:
@@ -257,6 +285,44 @@ def _exact(
         picked = np.full(m, -1, dtype=np.int64)  # one candidate each, and everything fits
         picked[cust] = offer
         return picked, float(gain.sum()), "every candidate fits"
+    constraint = _constraints(cust, offer, m, n_offers, cost, top, budget)
+    objective = np.concatenate([-gain, np.zeros(n_offers)])
+    high = np.concatenate([np.ones(n_pairs), top])
+    options = {"time_limit": float(time_limit_s), "disp": False, "presolve": False}
+    res = milp(
+        objective,
+        integrality=np.concatenate([np.zeros(n_pairs), np.ones(n_offers)]),
+        bounds=Bounds(np.zeros(n_pairs + n_offers), high),
+        constraints=constraint,
+        options={**options, "mip_rel_gap": float(mip_gap)},
+    )
+    if res.x is None:
+        return None, math.inf, str(res.message)
+    x = _whole_pairs(res, objective, high, constraint, options, n_pairs)
+    take = x > 0.5
+    picked = np.full(m, -1, dtype=np.int64)
+    picked[cust[take]] = offer[take]
+    picked = _repair(picked, values, cost, capacity, budget)
+    dual = getattr(res, "mip_dual_bound", None)
+    bound = -float(dual) if dual is not None and np.isfinite(dual) else math.inf
+    if not np.isfinite(bound):
+        bound = _lagrangian_bound(values, cost, capacity, budget)[0]
+    return picked, bound, str(res.message)
+
+
+def _constraints(
+    cust: np.ndarray,
+    offer: np.ndarray,
+    m: int,
+    n_offers: int,
+    cost: np.ndarray,
+    top: np.ndarray,
+    budget: float,
+) -> LinearConstraint:
+    """The MILP's rows over the pair variables and the O counts k_o: at most one offer per
+    customer with more than one pair, ``Σ_i x_io − k_o = 0``, and the budget on the counts
+    when the capacities alone could exceed it."""
+    n_pairs = len(cust)
     blocks, lower, upper = [], [], []
     per_customer = np.bincount(cust, minlength=m)
     shared = per_customer[cust] > 1  # a customer with one pair needs no row: its bound is 1
@@ -291,19 +357,11 @@ def _exact(
         ),
         shape=(int(offsets[-1]), n_pairs + n_offers),
     )
-    constraint = LinearConstraint(matrix, np.concatenate(lower), np.concatenate(upper))
-    objective = np.concatenate([-gain, np.zeros(n_offers)])
-    high = np.concatenate([np.ones(n_pairs), top])
-    options = {"time_limit": float(time_limit_s), "disp": False, "presolve": False}
-    res = milp(
-        objective,
-        integrality=np.concatenate([np.zeros(n_pairs), np.ones(n_offers)]),
-        bounds=Bounds(np.zeros(n_pairs + n_offers), high),
-        constraints=constraint,
-        options={**options, "mip_rel_gap": float(mip_gap)},
-    )
-    if res.x is None:
-        return None, math.inf, str(res.message)
+    return LinearConstraint(matrix, np.concatenate(lower), np.concatenate(upper))
+
+
+def _whole_pairs(res, objective, high, constraint, options, n_pairs: int) -> np.ndarray:
+    """The pair variables of the MILP's solution, at a whole vertex (see `_exact`)."""
     x = res.x[:n_pairs]
     if np.abs(x - np.round(x)).max(initial=0.0) > 1e-6:
         # not a vertex (e.g. from a primal heuristic): fix the counts and take a simplex
@@ -319,15 +377,7 @@ def _exact(
         )
         if fixed.x is not None:
             x = fixed.x[:n_pairs]
-    take = x > 0.5
-    picked = np.full(m, -1, dtype=np.int64)
-    picked[cust[take]] = offer[take]
-    picked = _repair(picked, values, cost, capacity, budget)
-    dual = getattr(res, "mip_dual_bound", None)
-    bound = -float(dual) if dual is not None and np.isfinite(dual) else math.inf
-    if not np.isfinite(bound):
-        bound = _lagrangian_bound(values, cost, capacity, budget)[0]
-    return picked, bound, str(res.message)
+    return x
 
 
 def _repair(

@@ -23,14 +23,54 @@ def build_tables(sim: SimulationResult) -> dict[str, pd.DataFrame]:
     Months are ``YYYY-MM`` text (in ``activity`` and ``features`` an ordered categorical of
     that text, to keep millions of rows small); ids are text (categorical in those two).
     """
-    pop, district = sim.pop, sim.district
-    n = pop.n
+    n = sim.pop.n
     ids = customer_ids(n).astype(object)
     id_cat = pd.Categorical.from_codes(np.arange(n), categories=pd.Index(ids, dtype=object))
+    pop = sim.pop
+    took = np.flatnonzero(pop.uptake[:n] >= 0)
+    uptakes = pd.DataFrame(
+        {
+            "customer_id": ids[took],
+            "product": P.PRODUCT,
+            "month": month_labels(pop.uptake[took]),
+        }
+    )
+    act = sim.activity
+    activity = pd.DataFrame(
+        {
+            "customer_id": pd.Categorical.from_codes(act["customer"], dtype=id_cat.dtype),
+            "month": month_categorical(act["month"]),
+            **{name: act[name] for name in ACTIVITY_COLUMNS},
+        },
+        copy=False,
+    )
+    camp = sim.campaigns
+    campaigns = pd.DataFrame(
+        {
+            "customer_id": ids[camp["customer"].to_numpy()],
+            "month": format_month(sim.calendar.campaign),
+            "offer": camp["offer"].to_numpy(),
+            "arm": camp["arm"].to_numpy(),
+        }
+    )
+    return {
+        "customers": _customers(sim, ids),
+        "activity": activity,
+        "uptakes": uptakes,
+        "campaigns": campaigns,
+        "areas": _areas(sim),
+        "features": _features(sim, id_cat.dtype),
+    }
+
+
+def _customers(sim: SimulationResult, ids: np.ndarray) -> pd.DataFrame:
+    """The customers table: one row per simulated customer."""
+    pop, district = sim.pop, sim.district
+    n = pop.n
     ended = pop.end[:n] >= 0
     reasons = np.array(["", *P.CAUSES], dtype=object)[pop.reason[:n]]
     premise = pop.premise[:n]
-    customers = pd.DataFrame(
+    return pd.DataFrame(
         {
             "customer_id": ids,
             "start_month": month_labels(pop.start[:n]),
@@ -45,36 +85,11 @@ def build_tables(sim: SimulationResult) -> dict[str, pd.DataFrame]:
         }
     )
 
-    took = np.flatnonzero(pop.uptake[:n] >= 0)
-    uptakes = pd.DataFrame(
-        {
-            "customer_id": ids[took],
-            "product": P.PRODUCT,
-            "month": month_labels(pop.uptake[took]),
-        }
-    )
 
-    act = sim.activity
-    activity = pd.DataFrame(
-        {
-            "customer_id": pd.Categorical.from_codes(act["customer"], dtype=id_cat.dtype),
-            "month": month_categorical(act["month"]),
-            **{name: act[name] for name in ACTIVITY_COLUMNS},
-        },
-        copy=False,
-    )
-
-    camp = sim.campaigns
-    campaigns = pd.DataFrame(
-        {
-            "customer_id": ids[camp["customer"].to_numpy()],
-            "month": format_month(sim.calendar.campaign),
-            "offer": camp["offer"].to_numpy(),
-            "arm": camp["arm"].to_numpy(),
-        }
-    )
-
-    areas = gpd.GeoDataFrame(
+def _areas(sim: SimulationResult) -> gpd.GeoDataFrame:
+    """The areas: ids, names, rental share and polygons, in the demo's CRS."""
+    district = sim.district
+    return gpd.GeoDataFrame(
         {
             "area_id": district.area_id,
             "area_name": district.area_name,
@@ -84,22 +99,17 @@ def build_tables(sim: SimulationResult) -> dict[str, pd.DataFrame]:
         crs=P.CRS,
     )
 
+
+def _features(sim: SimulationResult, id_dtype: pd.CategoricalDtype) -> pd.DataFrame:
+    """The simulated customer-months with their features and true hazards."""
     columns: dict[str, object] = {}
     for name, values in sim.features.items():
         if name == "customer":
-            columns["customer_id"] = pd.Categorical.from_codes(values, dtype=id_cat.dtype)
+            columns["customer_id"] = pd.Categorical.from_codes(values, dtype=id_dtype)
         elif name == "month":
             columns["month"] = month_categorical(values)
         elif name == "plan_speed":
             columns[name] = pd.Categorical.from_codes(values, categories=list(PLANS))
         else:
             columns[name] = values
-    features = pd.DataFrame(columns, copy=False)
-    return {
-        "customers": customers,
-        "activity": activity,
-        "uptakes": uptakes,
-        "campaigns": campaigns,
-        "areas": areas,
-        "features": features,
-    }
+    return pd.DataFrame(columns, copy=False)

@@ -26,29 +26,6 @@ EVENT_OF[P.PRODUCT] = f"uptake_{P.PRODUCT}"
 def build_truth(sim: SimulationResult, *, customers: int, seed: int, months: int) -> dict:
     """Every true parameter of the scenario, with the realised counts for orientation."""
     cal = sim.calendar
-    pop = sim.pop
-    n = pop.n
-    tenure = np.arange(_TENURE_TABLE_MONTHS)
-    baseline = {EVENT_OF[k]: b.as_dict() for k, b in P.BASELINE.items()}
-    table = {"tenure": tenure.tolist()}
-    table.update({EVENT_OF[k]: b(tenure).tolist() for k, b in P.BASELINE.items()})
-    beta = {
-        EVENT_OF[k]: {c: v for c, v in effects.items() if v != 0.0} for k, effects in P.BETA.items()
-    }
-    season = {
-        EVENT_OF[k]: {c: P.BETA[k].get(c, 0.0) for c in ("season_sin", "season_cos")}
-        for k in P.BETA
-    }
-    offered = int((sim.campaigns["arm"] == "offered").sum())
-    campaign = dict(P.CAMPAIGN)
-    campaign["effect_months_list"] = [
-        format_month(cal.campaign + i) for i in range(1, P.CAMPAIGN["effect_months"] + 1)
-    ]
-    campaign["eligible"] = len(sim.campaigns)
-    campaign["offered"] = offered
-    campaign["held_out"] = len(sim.campaigns) - offered
-    campaign.update(_campaign_segments(sim))
-    ends = pop.reason[:n]
     truth: dict[str, Any] = {
         "generator": GENERATOR,
         "truth_version": TRUTH_VERSION,
@@ -81,70 +58,73 @@ def build_truth(sim: SimulationResult, *, customers: int, seed: int, months: int
         "n_areas": int(sim.district.area_id.size),
         "n_premises": int(sim.district.premise_x.size),
         "n_premise_pairs_within_radius": int(sim.n_pairs),
-        "hazard_model": {
-            "exits": (
-                "lambda_k = baseline_k(tenure) * exp(sum_c beta[k][c] * x_c) for k in churn, "
-                "move_out, other_exit; P(exit in month) = 1 - exp(-sum_k lambda_k); the cause "
-                "is k with probability lambda_k / sum_k lambda_k"
-            ),
-            "uptake": (
-                "lambda_u = baseline_u(tenure) * exp(sum_c beta[u][c] * x_c); while not holding "
-                "the product, P(uptake in month) = 1 - exp(-lambda_u), drawn independently of "
-                "the exit (an uptake and an exit may fall in the same month)"
-            ),
-            "x": (
-                "the panel's feature columns of the month (DEVELOPERS.md): known at the end of "
-                "the previous month; a NaN feature (lagged activity in a customer's first "
-                "simulated month) contributes 0; columns not listed in beta have no effect"
-            ),
-            "tenure": "months since the start month (the panel's tenure_start)",
-            "campaign": (
-                "churn hazard of an offered customer times the hazard_ratio of its segment "
-                "(campaign.segments) in the months of campaign.effect_months_list"
-            ),
-        },
-        "baseline": baseline,
-        "baseline_by_tenure": table,
-        "beta": beta,
-        "season": season,
-        "campaign": campaign,
-        "features": {
-            "season_sin": "sin(2*pi*(month_of_year - 1)/12)",
-            "season_cos": "cos(2*pi*(month_of_year - 1)/12)",
-            "activity": "value of the activity column in the previous month (NaN if no row)",
-            "complaints_3m": "complaints summed over the 3 previous months (missing months 0)",
-            "rental_share": "rental_share of the area holding the premise",
-            "local_move_rate": (
-                "for month m and area a: move-outs with end month in m-12..m-1 among the "
-                "area's customers, over the area's active customer-months in m-12..m-1 (a "
-                "customer is active in month t when start <= t <= end, the end month "
-                "included), shrunk across areas by lifecycle.spatial.gamma_poisson_rates "
-                "month by month"
-            ),
-            P.NEARBY_ADOPTERS: (
-                "other customers within radius_m metres (boundary inclusive) that hold the "
-                "product at the end of the previous month"
-            ),
-            P.NEARBY_SHARE: (
-                "that count over the other customers within radius_m at the end of the previous "
-                "month (0 when there are none); a customer at the end of month t has "
-                "start <= t and (no end or end > t)"
-            ),
-            "move_rate_months": sim.calendar.move_rate_months,
-        },
+        "hazard_model": _HAZARD_MODEL,
+        **_hazard_parameters(),
+        "campaign": _campaign_truth(sim),
+        "features": _feature_definitions(sim.calendar.move_rate_months),
         "activity_process": P.ACTIVITY,
         "static_attributes": P.STATIC,
         "portfolio": P.PORTFOLIO,
-        "realised": {
-            "customers": int(n),
-            "exits": {EVENT_OF[k]: int((ends == i + 1).sum()) for i, k in enumerate(P.CAUSES)},
-            "uptakes": int((pop.uptake[:n] >= 0).sum()),
-            "active_at_as_of": int((pop.end[:n] < 0).sum()),
-            "do_not_contact": int(pop.do_not_contact[:n].sum()),
-            "hardship": int(pop.hardship[:n].sum()),
-        },
+        "realised": _realised(sim),
     }
     return _rounded(truth)
+
+
+_HAZARD_MODEL = {
+    "exits": (
+        "lambda_k = baseline_k(tenure) * exp(sum_c beta[k][c] * x_c) for k in churn, "
+        "move_out, other_exit; P(exit in month) = 1 - exp(-sum_k lambda_k); the cause "
+        "is k with probability lambda_k / sum_k lambda_k"
+    ),
+    "uptake": (
+        "lambda_u = baseline_u(tenure) * exp(sum_c beta[u][c] * x_c); while not holding "
+        "the product, P(uptake in month) = 1 - exp(-lambda_u), drawn independently of "
+        "the exit (an uptake and an exit may fall in the same month)"
+    ),
+    "x": (
+        "the panel's feature columns of the month (DEVELOPERS.md): known at the end of "
+        "the previous month; a NaN feature (lagged activity in a customer's first "
+        "simulated month) contributes 0; columns not listed in beta have no effect"
+    ),
+    "tenure": "months since the start month (the panel's tenure_start)",
+    "campaign": (
+        "churn hazard of an offered customer times the hazard_ratio of its segment "
+        "(campaign.segments) in the months of campaign.effect_months_list"
+    ),
+}
+
+
+def _hazard_parameters() -> dict[str, Any]:
+    """The baselines (as parameters and by tenure month), the coefficients and the season."""
+    tenure = np.arange(_TENURE_TABLE_MONTHS)
+    table = {"tenure": tenure.tolist()}
+    table.update({EVENT_OF[k]: b(tenure).tolist() for k, b in P.BASELINE.items()})
+    return {
+        "baseline": {EVENT_OF[k]: b.as_dict() for k, b in P.BASELINE.items()},
+        "baseline_by_tenure": table,
+        "beta": {
+            EVENT_OF[k]: {c: v for c, v in effects.items() if v != 0.0}
+            for k, effects in P.BETA.items()
+        },
+        "season": {
+            EVENT_OF[k]: {c: P.BETA[k].get(c, 0.0) for c in ("season_sin", "season_cos")}
+            for k in P.BETA
+        },
+    }
+
+
+def _campaign_truth(sim: SimulationResult) -> dict[str, Any]:
+    """The past campaign's settings, effect months and arm sizes."""
+    offered = int((sim.campaigns["arm"] == "offered").sum())
+    campaign = dict(P.CAMPAIGN)
+    campaign["effect_months_list"] = [
+        format_month(sim.calendar.campaign + i) for i in range(1, P.CAMPAIGN["effect_months"] + 1)
+    ]
+    campaign["eligible"] = len(sim.campaigns)
+    campaign["offered"] = offered
+    campaign["held_out"] = len(sim.campaigns) - offered
+    campaign.update(_campaign_segments(sim))
+    return campaign
 
 
 def _campaign_segments(sim: SimulationResult) -> dict[str, Any]:
@@ -178,6 +158,49 @@ def _campaign_segments(sim: SimulationResult) -> dict[str, Any]:
     }
 
 
+def _feature_definitions(move_rate_months: int) -> dict[str, Any]:
+    """How each feature of the hazards is defined, in words."""
+    return {
+        "season_sin": "sin(2*pi*(month_of_year - 1)/12)",
+        "season_cos": "cos(2*pi*(month_of_year - 1)/12)",
+        "activity": "value of the activity column in the previous month (NaN if no row)",
+        "complaints_3m": "complaints summed over the 3 previous months (missing months 0)",
+        "rental_share": "rental_share of the area holding the premise",
+        "local_move_rate": (
+            "for month m and area a: move-outs with end month in m-12..m-1 among the "
+            "area's customers, over the area's active customer-months in m-12..m-1 (a "
+            "customer is active in month t when start <= t <= end, the end month "
+            "included), shrunk across areas by lifecycle.spatial.gamma_poisson_rates "
+            "month by month"
+        ),
+        P.NEARBY_ADOPTERS: (
+            "other customers within radius_m metres (boundary inclusive) that hold the "
+            "product at the end of the previous month"
+        ),
+        P.NEARBY_SHARE: (
+            "that count over the other customers within radius_m at the end of the previous "
+            "month (0 when there are none); a customer at the end of month t has "
+            "start <= t and (no end or end > t)"
+        ),
+        "move_rate_months": move_rate_months,
+    }
+
+
+def _realised(sim: SimulationResult) -> dict[str, Any]:
+    """Realised counts, for orientation."""
+    pop = sim.pop
+    n = pop.n
+    ends = pop.reason[:n]
+    return {
+        "customers": int(n),
+        "exits": {EVENT_OF[k]: int((ends == i + 1).sum()) for i, k in enumerate(P.CAUSES)},
+        "uptakes": int((pop.uptake[:n] >= 0).sum()),
+        "active_at_as_of": int((pop.end[:n] < 0).sum()),
+        "do_not_contact": int(pop.do_not_contact[:n].sum()),
+        "hardship": int(pop.hardship[:n].sum()),
+    }
+
+
 def truth_json(truth: dict) -> str:
     """Deterministic JSON text: sorted keys, floats to 10 significant digits."""
     return json.dumps(_rounded(truth), sort_keys=True, indent=2, ensure_ascii=False) + "\n"
@@ -199,6 +222,11 @@ def _rounded(value: Any) -> Any:
 
 def config_text(months: int, move_rate_months: int) -> str:
     """``lifecycle.toml`` for the demo data (every setting: ``lifecycle settings``)."""
+    return _data_and_models_text(months, move_rate_months) + _offers_and_run_text()
+
+
+def _data_and_models_text(months: int, move_rate_months: int) -> str:
+    """The settings of the data, panel, spatial context, models, value and forecast."""
     return f"""# Settings for the invented demo scenario, written by `lifecycle demo`.
 [data]
 extract_month = "{P.AS_OF}"
@@ -239,6 +267,12 @@ currency = "EUR"
 [forecast]
 horizon_months = 12
 
+"""
+
+
+def _offers_and_run_text() -> str:
+    """The offers, the plan and the run."""
+    return f"""\
 # The offers of the invented provider. The loyalty credit's hazard ratio here is the team's
 # guess; the past campaign with a random hold-out replaces it with an estimate.
 [[offers]]

@@ -52,6 +52,32 @@ class TrueIncidence:
         return out
 
 
+def _one_future(future, streams, cohort: np.ndarray, c: int, horizon: int) -> np.ndarray:
+    """The cohort's expected cumulative incidence ``(customers, horizon, exits + uptake)`` in
+    one simulated future: each month adds, for every customer still present, the month's
+    probability of each exit (split by the causes' shares) and of the uptake."""
+    k_exit = len(P.CAUSES)
+    total = np.zeros((cohort.size, horizon, k_exit + 1))
+    running = np.zeros((cohort.size, k_exit + 1))
+    for h in range(horizon):
+        month = simulate_month(future, c + 1 + h, streams)
+        if month.active.size:
+            where = np.minimum(np.searchsorted(month.active, cohort), month.active.size - 1)
+            present = month.active[where] == cohort  # still a customer in this future
+        else:
+            where, present = np.zeros(cohort.size, dtype=np.int64), np.zeros(cohort.size, bool)
+        rows, cols = np.flatnonzero(present), where[present]
+        lam = np.column_stack([month.lam[k][cols] for k in P.CAUSES])
+        everything = lam.sum(axis=1)
+        p_exit = -np.expm1(-everything)
+        share = np.divide(lam, everything[:, None], out=np.zeros_like(lam),
+                          where=everything[:, None] > 0)  # fmt: skip
+        running[rows, :k_exit] += p_exit[:, None] * share
+        running[rows, k_exit] += -np.expm1(-np.nan_to_num(month.lam_u[cols]))
+        total[:, h] = running
+    return total
+
+
 def true_incidence(
     cutoff: str | int,
     *,
@@ -117,25 +143,7 @@ def true_incidence(
         horizon,
     )
     for path in range(paths):
-        future = world.branch()
-        streams = random_streams([seed, c, path])
-        running = np.zeros((cohort.size, k_exit + 1))
-        for h in range(horizon):
-            month = simulate_month(future, c + 1 + h, streams)
-            if month.active.size:
-                where = np.minimum(np.searchsorted(month.active, cohort), month.active.size - 1)
-                present = month.active[where] == cohort  # still a customer in this future
-            else:
-                where, present = np.zeros(cohort.size, dtype=np.int64), np.zeros(cohort.size, bool)
-            rows, cols = np.flatnonzero(present), where[present]
-            lam = np.column_stack([month.lam[k][cols] for k in P.CAUSES])
-            everything = lam.sum(axis=1)
-            p_exit = -np.expm1(-everything)
-            share = np.divide(lam, everything[:, None], out=np.zeros_like(lam),
-                              where=everything[:, None] > 0)  # fmt: skip
-            running[rows, :k_exit] += p_exit[:, None] * share
-            running[rows, k_exit] += -np.expm1(-np.nan_to_num(month.lam_u[cols]))
-            total[:, h] += running
+        total += _one_future(world.branch(), random_streams([seed, c, path]), cohort, c, horizon)
     return TrueIncidence(
         cutoff=format_month(c),
         customer_id=customer_ids(pop.n)[cohort],

@@ -28,12 +28,13 @@ from .._months import categorical_to_index
 from ..config import Config
 from ..data import Tables
 from ..errors import UsageError
-from ..spatial import local_move_rates, nearby_counts
-from ..spatial._areas import area_attributes
-from ..spatial._context import (
+from ..spatial import (
     adoption_columns,
+    area_attributes,
     check_context_names,
     checked_radii,
+    local_move_rates,
+    nearby_counts,
     radius_label,
 )
 from ._remote import item, portable

@@ -19,11 +19,10 @@ import logging
 import numpy as np
 import pandas as pd
 
+from .._layout import UPTAKE_PREFIX
 from ..data import Tables
 from ..errors import UsageError
-from ..forecast import forecast_settings, forecast_uptake
-from ..forecast._uptake import ALL_AREAS
-from ..panel._layout import UPTAKE_PREFIX
+from ..forecast import ALL_AREAS, forecast_settings, forecast_uptake
 from ._context import _local_positions
 from ._remote import portable
 from ._score import DistributedScored

@@ -24,8 +24,7 @@ from .._months import format_month
 from ..config import Config
 from ..errors import UsageError
 from ..forecast import forecast_settings
-from ..models import HazardModel, score_customers
-from ..models._base import survival_from_hazards
+from ..models import HazardModel, score_customers, survival_from_hazards
 from ..value import lifetime_value, value_settings
 from ..value import offer_values as _offer_values
 from ._frame import PartitionedFrame

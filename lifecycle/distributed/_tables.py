@@ -21,9 +21,7 @@ from pyproj import CRS, Transformer
 from ..config import Config
 from ..data import Tables
 from ..errors import InputError
-from ..spatial import distance_crs
-from ..spatial._areas import area_positions
-from ..spatial._crs import project_premises
+from ..spatial import area_positions, distance_crs, project_premises
 from ._remote import portable
 
 if TYPE_CHECKING:

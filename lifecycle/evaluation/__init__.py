@@ -6,7 +6,7 @@ from ._baseline import TenureLifeTable
 from ._calibration import calibration_table, lift_and_capture
 from ._choice import CHOICE_COLUMNS, DEFAULT_SWITCH_MARGIN, choose_champions
 from ._metrics import CensoringCurve, brier_score, time_dependent_auc, uno_concordance
-from ._outcomes import observed_outcomes, outcome_for_cause
+from ._outcomes import CENSORED, COMPETING, EVENT, observed_outcomes, outcome_for_cause
 from ._profit import expected_maximum_profit
 from ._statistics import (
     LogrankResult,
@@ -17,8 +17,11 @@ from ._statistics import (
 from ._uplift import QINI_COLUMNS, qini_coefficient, qini_curve
 
 __all__ = [
+    "CENSORED",
     "CHOICE_COLUMNS",
+    "COMPETING",
     "DEFAULT_SWITCH_MARGIN",
+    "EVENT",
     "QINI_COLUMNS",
     "BacktestResult",
     "CensoringCurve",

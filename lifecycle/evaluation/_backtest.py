@@ -15,9 +15,7 @@ from .._progress import progress
 from ..config import Config
 from ..data import Tables
 from ..errors import UsageError
-from ..models import HazardModel
-from ..models._base import incidence_from_hazards
-from ..models._fittable import check_fittable
+from ..models import HazardModel, check_fittable, incidence_from_hazards
 from ..panel import build_panel, build_snapshot, panel_layout
 from ._calibration import calibration_table, lift_from_tables
 from ._metrics import brier_score, time_dependent_auc, uno_concordance
@@ -137,92 +135,172 @@ def backtest(
     """
     config = config or Config()
     families = _checked_families(families)
-    horizons = sorted({int(h) for h in horizons})
-    if not horizons or horizons[0] < 1:
-        raise UsageError(f"horizons were {list(horizons)} but must be whole months ≥ 1")
-    cutoffs = _checked_cutoffs(tables, cutoffs, horizons)
-    if build_snapshot_fn is None:
-        build_snapshot_fn = (
-            _default_snapshot if build_panel_fn is None else _snapshot_from(build_panel_fn)
-        )
-    build_panel_fn = build_panel_fn or _default_panel
-
-    rows: list[dict] = []
-    tables_out: list[pd.DataFrame] = []
-    importances: dict[str, pd.DataFrame] = {}
-    forecasts: list[pd.DataFrame] = []
+    horizons, cutoffs = _checked_times(tables, horizons, cutoffs)
+    build_panel_fn, build_snapshot_fn = _builders(build_panel_fn, build_snapshot_fn)
+    found = _Collected()
     for cutoff in cutoffs:
-        usable = [h for h in horizons if cutoff + h <= tables.extract_month]
-        skipped = [h for h in horizons if h not in usable]
-        if skipped:
-            log.info(
-                "backtest %s: horizons %s reach past the extract month %s; skipped",
-                format_month(cutoff),
-                skipped,
-                format_month(tables.extract_month),
-            )
-        panel = build_panel_fn(tables, cutoff, config)
-        if min_events is not None:
-            where = f"backtest cutoff {format_month(cutoff)}: "
-            check_fittable(panel, min_events=min_events, where=where)
-        snapshot = build_snapshot_fn(tables, cutoff, config)
-        outcomes = _aligned_outcomes(tables, cutoff, snapshot)
-        log.info(
-            "backtest %s: panel of %d rows, %d customers to predict",
-            format_month(cutoff),
-            len(panel),
-            len(snapshot),
+        usable, panel, snapshot, outcomes = _cutoff_data(
+            tables, cutoff, horizons, config, build_panel_fn, build_snapshot_fn, min_events
         )
         for j, (name, family) in enumerate(families.items()):
             step = cutoffs.index(cutoff) * len(families) + j
             what = f"cutoff {format_month(cutoff)}, family {name}"
             progress("backtest", step, len(cutoffs) * len(families), what)
-            log.info("backtest %s: fitting %s", format_month(cutoff), name)
-            model = clone(family).fit(panel)
-            found = getattr(model, "feature_importances_", None)
-            if found is not None and len(found):  # cutoffs ascend: the latest one stays
-                importances[name] = found.assign(family=name, cutoff=format_month(cutoff))
-            hazards = model.hazard_array(snapshot, max(max(usable), after_fit_months))
-            array = incidence_from_hazards(hazards[:, : max(usable)], len(model.terminal_causes_))
-            if after_fit is not None:
-                made = after_fit(name, cutoff, model, snapshot, hazards)
-                if made is not None and len(made):
-                    forecasts.append(made.assign(family=name))
-            for j, cause in enumerate(model.causes_):
-                months, code, at_risk = outcome_for_cause(outcomes, cause)
-                if not at_risk.any():
-                    log.info("backtest %s: nobody at risk of %s", format_month(cutoff), cause)
-                    continue
-                for h in usable:
-                    label = dict(family=name, cause=cause, horizon=h, cutoff=format_month(cutoff))
-                    values, calibration = _score(
-                        months[at_risk], code[at_risk], array[at_risk, h - 1, j], h
+            found.fit_family(
+                name, family, cutoff, usable, panel, snapshot, outcomes, after_fit,
+                after_fit_months,
+            )  # fmt: skip
+    return found.result()
+
+
+def _checked_times(
+    tables: Tables, horizons: Sequence[int], cutoffs: Iterable[str | int]
+) -> tuple[list[int], list[int]]:
+    """The horizons (whole months ≥ 1, ascending) and the checked cutoffs."""
+    horizons = sorted({int(h) for h in horizons})
+    if not horizons or horizons[0] < 1:
+        raise UsageError(f"horizons were {list(horizons)} but must be whole months ≥ 1")
+    return horizons, _checked_cutoffs(tables, cutoffs, horizons)
+
+
+def _builders(
+    build_panel_fn: PanelBuilder | None, build_snapshot_fn: PanelBuilder | None
+) -> tuple[PanelBuilder, PanelBuilder]:
+    """The panel and snapshot builders, with their defaults (see `backtest`)."""
+    if build_snapshot_fn is None:
+        build_snapshot_fn = (
+            _default_snapshot if build_panel_fn is None else _snapshot_from(build_panel_fn)
+        )
+    return build_panel_fn or _default_panel, build_snapshot_fn
+
+
+def _cutoff_data(
+    tables: Tables,
+    cutoff: int,
+    horizons: list[int],
+    config: Config,
+    build_panel_fn: PanelBuilder,
+    build_snapshot_fn: PanelBuilder,
+    min_events: int | None,
+) -> tuple[list[int], pd.DataFrame, pd.DataFrame, pd.DataFrame]:
+    """At one cutoff: the horizons that can be scored, the panel to fit on, the snapshot to
+    predict and its observed outcomes."""
+    usable = [h for h in horizons if cutoff + h <= tables.extract_month]
+    skipped = [h for h in horizons if h not in usable]
+    if skipped:
+        log.info(
+            "backtest %s: horizons %s reach past the extract month %s; skipped",
+            format_month(cutoff),
+            skipped,
+            format_month(tables.extract_month),
+        )
+    panel = build_panel_fn(tables, cutoff, config)
+    if min_events is not None:
+        where = f"backtest cutoff {format_month(cutoff)}: "
+        check_fittable(panel, min_events=min_events, where=where)
+    snapshot = build_snapshot_fn(tables, cutoff, config)
+    outcomes = _aligned_outcomes(tables, cutoff, snapshot)
+    log.info(
+        "backtest %s: panel of %d rows, %d customers to predict",
+        format_month(cutoff),
+        len(panel),
+        len(snapshot),
+    )
+    return usable, panel, snapshot, outcomes
+
+
+@dataclass
+class _Collected:
+    """What the backtest gathers over cutoffs and families, until `result` stacks it."""
+
+    rows: list[dict] = field(default_factory=list)
+    calibrations: list[pd.DataFrame] = field(default_factory=list)
+    importances: dict[str, pd.DataFrame] = field(default_factory=dict)
+    forecasts: list[pd.DataFrame] = field(default_factory=list)
+
+    def fit_family(
+        self,
+        name: str,
+        family: HazardModel,
+        cutoff: int,
+        usable: list[int],
+        panel: pd.DataFrame,
+        snapshot: pd.DataFrame,
+        outcomes: pd.DataFrame,
+        after_fit: AfterFit | None,
+        after_fit_months: int,
+    ) -> None:
+        """Fit a clone of one family at one cutoff, keep its importances and what
+        ``after_fit`` makes of it, and score its predictions."""
+        log.info("backtest %s: fitting %s", format_month(cutoff), name)
+        model = clone(family).fit(panel)
+        importance = getattr(model, "feature_importances_", None)
+        if importance is not None and len(importance):  # cutoffs ascend: the latest stays
+            self.importances[name] = importance.assign(family=name, cutoff=format_month(cutoff))
+        hazards = model.hazard_array(snapshot, max(max(usable), after_fit_months))
+        array = incidence_from_hazards(hazards[:, : max(usable)], len(model.terminal_causes_))
+        if after_fit is not None:
+            made = after_fit(name, cutoff, model, snapshot, hazards)
+            if made is not None and len(made):
+                self.forecasts.append(made.assign(family=name))
+        self.score_family(name, model.causes_, array, cutoff, usable, outcomes)
+
+    def score_family(
+        self,
+        name: str,
+        causes: Sequence[str],
+        array: np.ndarray,
+        cutoff: int,
+        usable: list[int],
+        outcomes: pd.DataFrame,
+    ) -> None:
+        """The metrics and calibration of one fitted family at one cutoff, per cause and
+        usable horizon, from its cumulative incidence ``array`` (customer, month, cause)."""
+        for j, cause in enumerate(causes):
+            months, code, at_risk = outcome_for_cause(outcomes, cause)
+            if not at_risk.any():
+                log.info("backtest %s: nobody at risk of %s", format_month(cutoff), cause)
+                continue
+            for h in usable:
+                label = dict(family=name, cause=cause, horizon=h, cutoff=format_month(cutoff))
+                values, calibration = _score(
+                    months[at_risk], code[at_risk], array[at_risk, h - 1, j], h
+                )
+                n = int(at_risk.sum())
+                events = int(np.sum((code[at_risk] == EVENT) & (months[at_risk] <= h)))
+                for metric, value in values.items():
+                    self.rows.append(
+                        {**label, "metric": metric, "value": value, "n": n, "events": events}
                     )
-                    n = int(at_risk.sum())
-                    events = int(np.sum((code[at_risk] == EVENT) & (months[at_risk] <= h)))
-                    for metric, value in values.items():
-                        rows.append(
-                            {**label, "metric": metric, "value": value, "n": n, "events": events}
-                        )
-                    tables_out.append(calibration.assign(**label))
-    metrics = pd.DataFrame(
-        rows, columns=["family", "cause", "horizon", "cutoff", "metric", "value", "n", "events"]
-    )
-    calibration = pd.concat(tables_out, ignore_index=True) if tables_out else pd.DataFrame()
-    if not calibration.empty:
-        front = ["family", "cause", "horizon", "cutoff"]
-        calibration = calibration[front + [c for c in calibration if c not in front]]
-    found = pd.concat(list(importances.values()), ignore_index=True) if importances else None
-    if found is not None:
-        front = ["family", "cutoff"]
-        found = found[front + [c for c in found if c not in front]]
-    return BacktestResult(
-        metrics=metrics,
-        champions=champions(metrics),
-        calibration=calibration,
-        importances=found if found is not None else pd.DataFrame(),
-        forecasts=pd.concat(forecasts, ignore_index=True) if forecasts else pd.DataFrame(),
-    )
+                self.calibrations.append(calibration.assign(**label))
+
+    def result(self) -> BacktestResult:
+        metrics = pd.DataFrame(
+            self.rows,
+            columns=["family", "cause", "horizon", "cutoff", "metric", "value", "n", "events"],
+        )
+        calibration = pd.concat(self.calibrations, ignore_index=True) if self.calibrations else None
+        calibration = pd.DataFrame() if calibration is None else calibration
+        if not calibration.empty:
+            front = ["family", "cause", "horizon", "cutoff"]
+            calibration = calibration[front + [c for c in calibration if c not in front]]
+        found = (
+            pd.concat(list(self.importances.values()), ignore_index=True)
+            if self.importances
+            else None
+        )
+        if found is not None:
+            front = ["family", "cutoff"]
+            found = found[front + [c for c in found if c not in front]]
+        return BacktestResult(
+            metrics=metrics,
+            champions=champions(metrics),
+            calibration=calibration,
+            importances=found if found is not None else pd.DataFrame(),
+            forecasts=(
+                pd.concat(self.forecasts, ignore_index=True) if self.forecasts else pd.DataFrame()
+            ),
+        )
 
 
 def champions(metrics: pd.DataFrame) -> pd.DataFrame:

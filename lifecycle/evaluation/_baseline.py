@@ -6,8 +6,7 @@ import numpy as np
 import pandas as pd
 
 from ..errors import UsageError
-from ..models import HazardModel
-from ..models._smooth import smoothed_rates
+from ..models import HazardModel, smoothed_rates
 from ..panel import life_table
 
 

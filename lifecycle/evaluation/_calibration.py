@@ -65,31 +65,13 @@ def calibration_table(
         ``observed``, ``lower``, ``upper``, ``events`` (weighted events of cause 1 by h).
     """
     months, event, predicted = _checked(months, event, predicted, horizon)
-    if groups < 1:
-        raise UsageError(f"groups was {groups} but must be at least 1")
-    if not 0 < level < 1:
-        raise UsageError(f"level was {level} but must lie between 0 and 1")
+    _check_groups_and_level(groups, level)
     n_causes = max(int(event.max(initial=0)), 1)
     weight, group, mass = _group_weights(predicted, groups)
 
-    width = horizon + 2
-    size = np.zeros(groups)
-    predicted_sum = np.zeros(groups)
-    known = np.zeros(groups)
-    exits = np.zeros(groups * width)
-    events = np.zeros(groups * width * n_causes)
-    capped = np.minimum(months, horizon + 1)
-    status_known = (months >= horizon) | ((event > 0) & (months <= horizon))
-    for rows, g, w in ((np.arange(months.size), group, weight), *mass):
-        size += np.bincount(g, weights=w, minlength=groups)
-        predicted_sum += np.bincount(g, weights=w * predicted[rows], minlength=groups)
-        known += np.bincount(g, weights=w * status_known[rows], minlength=groups)
-        exits += np.bincount(g * width + capped[rows], weights=w, minlength=exits.size)
-        hit = (event[rows] > 0) & (months[rows] <= horizon)
-        cell = (g[hit] * width + months[rows][hit]) * n_causes + event[rows][hit] - 1
-        events += np.bincount(cell, weights=w[hit], minlength=events.size)
-    exits = exits.reshape(groups, width)
-    events = events.reshape(groups, width, n_causes)[:, : horizon + 1, :]
+    size, predicted_sum, known, exits, events = _group_sums(
+        months, event, predicted, horizon, groups, n_causes, weight, group, mass
+    )
 
     # n(t) for t = 1..h: everyone whose months are ≥ t
     at_risk = size[:, None] - np.cumsum(exits, axis=1)[:, :horizon]
@@ -113,6 +95,38 @@ def calibration_table(
             "events": events[:, :, 0].sum(axis=1),
         }
     )
+
+
+def _check_groups_and_level(groups: int, level: float) -> None:
+    if groups < 1:
+        raise UsageError(f"groups was {groups} but must be at least 1")
+    if not 0 < level < 1:
+        raise UsageError(f"level was {level} but must lie between 0 and 1")
+
+
+def _group_sums(months, event, predicted, horizon, groups, n_causes, weight, group, mass):
+    """Per group (fractional weights included): size, sum of predictions, customers whose
+    status at h is known, exits by month ``(groups, h + 2)`` and events by month and cause
+    ``(groups, h + 1, causes)``."""
+    width = horizon + 2
+    size = np.zeros(groups)
+    predicted_sum = np.zeros(groups)
+    known = np.zeros(groups)
+    exits = np.zeros(groups * width)
+    events = np.zeros(groups * width * n_causes)
+    capped = np.minimum(months, horizon + 1)
+    status_known = (months >= horizon) | ((event > 0) & (months <= horizon))
+    for rows, g, w in ((np.arange(months.size), group, weight), *mass):
+        size += np.bincount(g, weights=w, minlength=groups)
+        predicted_sum += np.bincount(g, weights=w * predicted[rows], minlength=groups)
+        known += np.bincount(g, weights=w * status_known[rows], minlength=groups)
+        exits += np.bincount(g * width + capped[rows], weights=w, minlength=exits.size)
+        hit = (event[rows] > 0) & (months[rows] <= horizon)
+        cell = (g[hit] * width + months[rows][hit]) * n_causes + event[rows][hit] - 1
+        events += np.bincount(cell, weights=w[hit], minlength=events.size)
+    exits = exits.reshape(groups, width)
+    events = events.reshape(groups, width, n_causes)[:, : horizon + 1, :]
+    return size, predicted_sum, known, exits, events
 
 
 def lift_and_capture(

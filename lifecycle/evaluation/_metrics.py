@@ -140,6 +140,21 @@ def uno_concordance(
     return weighted_concordance(time, is_event, risk, weight, tied_tol=tied_tol)
 
 
+def _risk_per_time(risk: np.ndarray, n: int, n_times: int) -> np.ndarray:
+    """``risk`` as an ``(n, n_times)`` array (a 1-D risk is shared by every time), finite."""
+    risk = np.asarray(risk, dtype=np.float64)
+    if risk.ndim == 1:
+        risk = np.broadcast_to(risk[:, None], (n, n_times))
+    if risk.shape != (n, n_times):
+        raise UsageError(
+            f"risk has shape {risk.shape} but must be ({n},) or "
+            f"({n}, {n_times}) for {n_times} time point(s)"
+        )
+    if not np.isfinite(risk).all():
+        raise UsageError("risk has NaN or infinite values; every customer needs a score")
+    return risk
+
+
 def time_dependent_auc(
     time: np.ndarray,
     event: np.ndarray,
@@ -188,16 +203,7 @@ def time_dependent_auc(
     """
     time, is_event, _ = _checked(time, event, np.zeros(np.shape(time)), cause)
     times = _checked_times(times, time)
-    risk = np.asarray(risk, dtype=np.float64)
-    if risk.ndim == 1:
-        risk = np.broadcast_to(risk[:, None], (time.size, times.size))
-    if risk.shape != (time.size, times.size):
-        raise UsageError(
-            f"risk has shape {risk.shape} but must be ({time.size},) or "
-            f"({time.size}, {times.size}) for {times.size} time point(s)"
-        )
-    if not np.isfinite(risk).all():
-        raise UsageError("risk has NaN or infinite values; every customer needs a score")
+    risk = _risk_per_time(risk, time.size, times.size)
     curve = _censoring(time, is_event, train_time, train_event, cause=cause)
     g = curve.at(time[is_event])
     if np.any(g == 0.0):

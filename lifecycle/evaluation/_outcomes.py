@@ -5,10 +5,10 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 
+from .._layout import HOLDS_PREFIX, REASON_TO_CAUSE, TERMINAL_CAUSES, UPTAKE_PREFIX
 from .._months import format_month, parse_month
 from ..data import Tables
 from ..errors import UsageError
-from ..panel._layout import HOLDS_PREFIX, REASON_TO_CAUSE, TERMINAL_CAUSES, UPTAKE_PREFIX
 
 #: Cause codes of `outcome_for_cause`.
 CENSORED, EVENT, COMPETING = 0, 1, 2

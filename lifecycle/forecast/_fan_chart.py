@@ -57,23 +57,7 @@ def fan_chart(
     -------
     matplotlib.figure.Figure
     """
-    products = sorted(pd.unique(forecast["product"]).tolist()) if len(forecast) else []
-    if product is None:
-        if len(products) != 1:
-            raise UsageError(f"the forecast holds the products {products}; pick one (product=...)")
-        product = products[0]
-    if product not in products:
-        raise UsageError(f"product was {product!r} but the forecast holds {products}")
-    rows = forecast[(forecast["product"] == product) & (forecast["area_id"] == str(area_id))]
-    if rows.empty:
-        areas = sorted(pd.unique(forecast.loc[forecast["product"] == product, "area_id"]))
-        shown = areas[:10] + (["..."] if len(areas) > 10 else [])
-        raise UsageError(f"area_id was {area_id!r} but the forecast has the areas {shown}")
-    prefix = "cumulative_" if cumulative else ""
-    bands = _bands(rows.columns, prefix)
-    if not bands:
-        raise UsageError(f"the forecast has no {prefix}lower_<level>/{prefix}upper_<level> columns")
-
+    product, rows, prefix, bands = _chosen_rows(forecast, product, area_id, cumulative)
     fig = Figure(figsize=(8.0, 4.5), dpi=100)
     FigureCanvasAgg(fig)
     ax = fig.add_subplot()
@@ -81,28 +65,7 @@ def fan_chart(
     if history is not None and len(history) and not cumulative:
         past = history.sort_values("month")
     offset = len(past) if past is not None else 0
-    x = [offset + i for i in range(len(rows))]
-    for i, (lower, upper) in enumerate(bands):  # widest first
-        alpha = 0.25 + 0.45 * i / max(1, len(bands) - 1) if len(bands) > 1 else 0.35
-        level = lower.removeprefix(prefix).removeprefix("lower_").replace("_", ".")
-        ax.fill_between(
-            x,
-            rows[lower].to_numpy(dtype=float),
-            rows[upper].to_numpy(dtype=float),
-            color=_BAND,
-            alpha=alpha,
-            linewidth=0,
-            label=f"{level} % prediction interval",
-        )
-    ax.plot(
-        x,
-        rows[f"{prefix}expected"].to_numpy(dtype=float),
-        color=_LINE,
-        linewidth=2.0,
-        marker="o",
-        markersize=3,
-        label="expected",
-    )
+    _draw_forecast(ax, rows, prefix, bands, offset)
     labels = rows["month"].tolist()
     if past is not None:
         ax.plot(
@@ -133,6 +96,57 @@ def fan_chart(
     ax.legend(frameon=False, loc="best" if past is not None else "upper left")
     fig.tight_layout()
     return fig
+
+
+def _chosen_rows(
+    forecast: pd.DataFrame, product: str | None, area_id: str, cumulative: bool
+) -> tuple[str, pd.DataFrame, str, list[tuple[str, str]]]:
+    """The product, its rows for the area, the column prefix and the band columns (widest
+    first); a `UsageError` naming what the forecast holds when there is nothing to draw."""
+    products = sorted(pd.unique(forecast["product"]).tolist()) if len(forecast) else []
+    if product is None:
+        if len(products) != 1:
+            raise UsageError(f"the forecast holds the products {products}; pick one (product=...)")
+        product = products[0]
+    if product not in products:
+        raise UsageError(f"product was {product!r} but the forecast holds {products}")
+    rows = forecast[(forecast["product"] == product) & (forecast["area_id"] == str(area_id))]
+    if rows.empty:
+        areas = sorted(pd.unique(forecast.loc[forecast["product"] == product, "area_id"]))
+        shown = areas[:10] + (["..."] if len(areas) > 10 else [])
+        raise UsageError(f"area_id was {area_id!r} but the forecast has the areas {shown}")
+    prefix = "cumulative_" if cumulative else ""
+    bands = _bands(rows.columns, prefix)
+    if not bands:
+        raise UsageError(f"the forecast has no {prefix}lower_<level>/{prefix}upper_<level> columns")
+
+    return product, rows, prefix, bands
+
+
+def _draw_forecast(ax, rows: pd.DataFrame, prefix: str, bands, offset: int) -> None:
+    """The bands, palest for the widest, and the expected line, from x = ``offset`` on."""
+    x = [offset + i for i in range(len(rows))]
+    for i, (lower, upper) in enumerate(bands):  # widest first
+        alpha = 0.25 + 0.45 * i / max(1, len(bands) - 1) if len(bands) > 1 else 0.35
+        level = lower.removeprefix(prefix).removeprefix("lower_").replace("_", ".")
+        ax.fill_between(
+            x,
+            rows[lower].to_numpy(dtype=float),
+            rows[upper].to_numpy(dtype=float),
+            color=_BAND,
+            alpha=alpha,
+            linewidth=0,
+            label=f"{level} % prediction interval",
+        )
+    ax.plot(
+        x,
+        rows[f"{prefix}expected"].to_numpy(dtype=float),
+        color=_LINE,
+        linewidth=2.0,
+        marker="o",
+        markersize=3,
+        label="expected",
+    )
 
 
 def save_fan_chart(forecast: pd.DataFrame, path: str | Path, **options: object) -> Path:

@@ -10,10 +10,10 @@ from dataclasses import dataclass
 import numpy as np
 import pandas as pd
 
+from .._layout import UPTAKE_PREFIX
 from .._months import format_month
 from ..data import Tables
-from ..panel._layout import UPTAKE_PREFIX
-from ..value._hazards import uptake_incidence
+from ..models import uptake_incidence
 from ._joiners import (
     ALL_AREAS,
     JoinerPart,

@@ -22,10 +22,10 @@ import logging
 import numpy as np
 import pandas as pd
 
+from .._layout import UPTAKE_PREFIX
 from .._months import format_month
 from ..config import Config
 from ..data import Tables
-from ..panel._layout import UPTAKE_PREFIX
 from ._joiners import ALL_AREAS
 from ._uptake import forecast_settings, forecast_uptake, level_suffix
 

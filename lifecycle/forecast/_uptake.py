@@ -31,12 +31,12 @@ from dataclasses import dataclass
 import numpy as np
 import pandas as pd
 
+from .._layout import UPTAKE_PREFIX
 from .._months import format_month, parse_month
 from ..config import Config
 from ..errors import UsageError
-from ..panel._layout import UPTAKE_PREFIX
-from ..value._hazards import HazardInput, read_hazards, uptake_incidence
-from ..value._lifetime import check_horizon
+from ..models import uptake_incidence
+from ..value import HazardInput, check_horizon, read_hazards
 from ._intervals import combined_quantiles
 from ._joiners import JoinerPart
 from ._poisson_binomial import EXACT_MAX, METHODS, _method, grid_cdf, mixture_quantiles

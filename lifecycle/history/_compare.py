@@ -9,6 +9,7 @@ from dataclasses import dataclass, field
 import numpy as np
 import pandas as pd
 
+from .._layout import TERMINAL_CAUSES
 from ..errors import InputError, UsageError
 from ._store import ScoreHistory, _month_label
 
@@ -103,16 +104,91 @@ def compare_with_outcomes(
     -------
     Comparison
     """
-    from ..evaluation import outcome_for_cause, uno_concordance  # heavy; only needed here
-
     if not isinstance(history, ScoreHistory):
         raise UsageError(f"history must be a ScoreHistory; got {type(history).__name__}")
     label = _month_label(previous_month)
+    horizon, groups = _checked_counts(horizon, groups)
+    h, elapsed, notes = _horizon_used(outcomes, label, horizon)
+    scores = history.scores(label)
+    predicted, column, interpolated = _prediction(scores, cause, h, label, notes)
+    matched = _Matched.of(scores, outcomes, predicted, cause, label, notes)
+    realised = (matched.code == 1) & (matched.months <= h)
+    deciles = _decile_table(matched.risk, realised, matched.ids, groups)
+    summary = _summary(matched, realised, h, cause, notes)
+    summary.update(month=label, horizon_requested=horizon, months_elapsed=elapsed)
+    summary.update(predicted_column=column, interpolated=interpolated)
+    return Comparison(deciles=deciles, summary=_ordered_and_logged(summary))
+
+
+def _prediction(
+    scores: pd.DataFrame, cause: str, h: int, label: str, notes: list[str]
+) -> tuple[np.ndarray, str, bool]:
+    """`_predicted_at`, with a note when the prediction is interpolated."""
+    predicted, column, interpolated = _predicted_at(scores, cause, h)
+    if interpolated:
+        notes.append(
+            f"the scores of {label} hold no cif_{cause}_{h}m; it is interpolated from "
+            f"{column} assuming constant monthly hazards between the stored horizons"
+        )
+    return predicted, column, interpolated
+
+
+def _ordered_and_logged(summary: dict[str, object]) -> dict[str, object]:
+    """The summary's keys in their documented order, logged in a line."""
+    summary = {key: summary[key] for key in _SUMMARY_KEYS}
+    log.info(
+        "predictions of %s for %s over %d month(s): %d customers, %d events, %.1f expected",
+        summary["month"], summary["cause"], summary["horizon_used"], summary["n"],
+        summary["events"], summary["expected_events"],
+    )  # fmt: skip
+    return summary
+
+
+_SUMMARY_KEYS = (
+    "month", "cause", "horizon_requested", "horizon_used", "months_elapsed",
+    "predicted_column", "interpolated", "n", "events", "predicted_mean", "realised_rate",
+    "expected_events", "observed_expected", "brier", "uno_c", "unmatched_scores",
+    "unmatched_outcomes", "notes",
+)  # fmt: skip
+
+
+def _summary(
+    matched: _Matched, realised: np.ndarray, h: int, cause: str, notes: list[str]
+) -> dict[str, object]:
+    """The comparison's figures over all compared customers (see `compare_with_outcomes`)."""
+    risk, n, events = matched.risk, matched.risk.size, int(realised.sum())
+    expected = float(risk.sum())
+    return {
+        "cause": cause,
+        "horizon_used": h,
+        "n": int(n),
+        "events": events,
+        "predicted_mean": float(risk.mean()),
+        "realised_rate": events / n,
+        "expected_events": expected,
+        "observed_expected": events / expected if expected > 0 else float("nan"),
+        "brier": float(np.mean(np.square(realised - risk))),
+        "uno_c": _truncated_concordance(matched, h, cause, notes),
+        "unmatched_scores": matched.unmatched_scores,
+        "unmatched_outcomes": matched.unmatched_outcomes,
+        "notes": notes,
+    }
+
+
+def _checked_counts(horizon: object, groups: object) -> tuple[int, int]:
+    """``horizon`` and ``groups`` as whole numbers ≥ 1 (else a `UsageError`)."""
     if isinstance(horizon, bool) or not isinstance(horizon, int | np.integer) or horizon < 1:
         raise UsageError(f"horizon was {horizon!r} but must be a whole number of months ≥ 1")
     if isinstance(groups, bool) or not isinstance(groups, int | np.integer) or groups < 1:
         raise UsageError(f"groups was {groups!r} but must be a whole number ≥ 1")
-    horizon, groups = int(horizon), int(groups)
+    return int(horizon), int(groups)
+
+
+def _horizon_used(
+    outcomes: pd.DataFrame, label: str, horizon: int
+) -> tuple[int, int | None, list[str]]:
+    """The months compared (``horizon``, or fewer if fewer have passed), the months elapsed,
+    and the notes so far; the outcomes are checked first."""
     _check_outcomes(outcomes)
     elapsed = _months_elapsed(outcomes)
     if elapsed == 0:
@@ -127,84 +203,78 @@ def compare_with_outcomes(
             f"{horizon}-month outcomes are not observable yet: {elapsed} month(s) have passed "
             f"since {label}, so predictions and outcomes are compared over {h} month(s)"
         )
+    return h, elapsed, notes
 
-    scores = history.scores(label)
-    predicted, column, interpolated = _predicted_at(scores, cause, h)
-    if interpolated:
-        notes.append(
-            f"the scores of {label} hold no cif_{cause}_{h}m; it is interpolated from "
-            f"{column} assuming constant monthly hazards between the stored horizons"
-        )
-    score_ids = scores["customer_id"].astype(str).to_numpy(dtype=object)
-    outcome_ids = pd.Index(outcomes["customer_id"].astype(str))
-    where = outcome_ids.get_indexer(score_ids)
-    matched = where >= 0
-    unmatched_scores = int((~matched).sum())
-    unmatched_outcomes = int(len(outcome_ids) - matched.sum())
-    if unmatched_scores or unmatched_outcomes:
-        log.warning(
-            "comparing %s: %d scored customer(s) missing from the outcomes, %d customer(s) in "
-            "the outcomes that were not scored; only the %d in both are compared",
-            label, unmatched_scores, unmatched_outcomes, int(matched.sum()),
-        )  # fmt: skip
-        notes.append(
-            f"{unmatched_scores} scored customer(s) have no outcome and {unmatched_outcomes} "
-            "outcome(s) have no score; they are left out"
-        )
-    months, code, at_risk = outcome_for_cause(outcomes, cause)
-    rows = where[matched]
-    keep = at_risk[rows]
-    rows = rows[keep]
-    ids = score_ids[matched][keep]
-    risk = predicted[matched][keep]
-    months, code = months[rows], code[rows]
-    if risk.size == 0:
-        raise UsageError(
-            f"none of the customers scored in {label} is in the outcomes at risk of {cause}; "
-            f"pass observed_outcomes(tables, '{label}')"
-        )
-    realised = (code == 1) & (months <= h)
 
-    deciles = _decile_table(risk, realised, ids, groups)
-    n = risk.size
-    events = int(realised.sum())
-    expected = float(risk.sum())
-    is_event = code == 1
+@dataclass(frozen=True)
+class _Matched:
+    """The scored customers found in the outcomes and at risk of the cause: their ids,
+    predictions, months followed and outcome codes (1: the cause), and how many were left out
+    on either side."""
+
+    ids: np.ndarray
+    risk: np.ndarray
+    months: np.ndarray
+    code: np.ndarray
+    unmatched_scores: int
+    unmatched_outcomes: int
+
+    @classmethod
+    def of(cls, scores, outcomes, predicted, cause, label, notes) -> _Matched:
+        from ..evaluation import outcome_for_cause  # heavy; only needed here
+
+        score_ids = scores["customer_id"].astype(str).to_numpy(dtype=object)
+        outcome_ids = pd.Index(outcomes["customer_id"].astype(str))
+        where = outcome_ids.get_indexer(score_ids)
+        matched = where >= 0
+        unmatched_scores = int((~matched).sum())
+        unmatched_outcomes = int(len(outcome_ids) - matched.sum())
+        if unmatched_scores or unmatched_outcomes:
+            log.warning(
+                "comparing %s: %d scored customer(s) missing from the outcomes, %d customer(s) "
+                "in the outcomes that were not scored; only the %d in both are compared",
+                label, unmatched_scores, unmatched_outcomes, int(matched.sum()),
+            )  # fmt: skip
+            notes.append(
+                f"{unmatched_scores} scored customer(s) have no outcome and "
+                f"{unmatched_outcomes} outcome(s) have no score; they are left out"
+            )
+        months, code, at_risk = outcome_for_cause(outcomes, cause)
+        rows = where[matched]
+        keep = at_risk[rows]
+        rows = rows[keep]
+        risk = predicted[matched][keep]
+        if risk.size == 0:
+            raise UsageError(
+                f"none of the customers scored in {label} is in the outcomes at risk of "
+                f"{cause}; pass observed_outcomes(tables, '{label}')"
+            )
+        return cls(
+            ids=score_ids[matched][keep],
+            risk=risk,
+            months=months[rows],
+            code=code[rows],
+            unmatched_scores=unmatched_scores,
+            unmatched_outcomes=unmatched_outcomes,
+        )
+
+
+def _truncated_concordance(matched: _Matched, h: int, cause: str, notes: list[str]) -> float:
+    """Uno's concordance truncated after month h (NaN with a note when not available)."""
+    from ..evaluation import uno_concordance  # heavy; only needed here
+
+    is_event = matched.code == 1
     uno_c = float("nan")
     why = f"no {cause} event, or no comparable pair, within {h} month(s)"
-    if is_event.any() and n >= 2:
-        specific = months + 0.5 * (~is_event)
+    if is_event.any() and matched.risk.size >= 2:
+        specific = matched.months + 0.5 * (~is_event)
         try:
-            uno_c = uno_concordance(specific, is_event, risk, tau=h + 0.25)
+            uno_c = uno_concordance(specific, is_event, matched.risk, tau=h + 0.25)
         except UsageError as exc:  # a censoring weight undefined at an event time
             why = str(exc)
     if not np.isfinite(uno_c):
         notes.append(f"Uno's concordance is not available: {why}")
-    summary: dict[str, object] = {
-        "month": label,
-        "cause": cause,
-        "horizon_requested": horizon,
-        "horizon_used": h,
-        "months_elapsed": elapsed,
-        "predicted_column": column,
-        "interpolated": interpolated,
-        "n": int(n),
-        "events": events,
-        "predicted_mean": float(risk.mean()),
-        "realised_rate": events / n,
-        "expected_events": expected,
-        "observed_expected": events / expected if expected > 0 else float("nan"),
-        "brier": float(np.mean(np.square(realised - risk))),
-        "uno_c": float(uno_c),
-        "unmatched_scores": unmatched_scores,
-        "unmatched_outcomes": unmatched_outcomes,
-        "notes": notes,
-    }
-    log.info(
-        "predictions of %s for %s over %d month(s): %d customers, %d events, %.1f expected",
-        label, cause, h, n, events, expected,
-    )  # fmt: skip
-    return Comparison(deciles=deciles, summary=summary)
+    return float(uno_c)
 
 
 def _decile_table(
@@ -233,8 +303,6 @@ def _decile_table(
 def _predicted_at(scores: pd.DataFrame, cause: str, h: int) -> tuple[np.ndarray, str, bool]:
     """The predicted incidence of ``cause`` within h months, the column(s) it came from, and
     whether it was interpolated (see `compare_with_outcomes`)."""
-    from ..panel._layout import TERMINAL_CAUSES  # the panel package is heavy to import
-
     column = f"cif_{cause}_{h}m"
     if column in scores:
         return scores[column].to_numpy(dtype=np.float64), column, False

@@ -186,20 +186,7 @@ class ScoreHistory:
         with self._connect(write=True) as con:
             con.execute("BEGIN TRANSACTION")
             try:
-                for statement in _SCHEMA:
-                    con.execute(statement)
-                present = con.execute(
-                    "SELECT count(*) FROM runs WHERE run_month = ?", [label]
-                ).fetchone()[0]
-                if present and not force:
-                    raise UsageError(
-                        f"the score history {self.path} already holds month {label}; an earlier "
-                        "month is never overwritten unless asked: pass force=True (--force) to "
-                        "replace it"
-                    )
-                if present:
-                    for table in _TABLES:
-                        con.execute(f"DELETE FROM {table} WHERE run_month = ?", [label])
+                present = _clear_month(con, self.path, label, force)
                 _insert_run(con, info)
                 _insert_frame(con, "scores", label, score_frame, score_columns)
                 _insert_frame(con, "plan", label, plan_frame, plan_columns)
@@ -211,13 +198,9 @@ class ScoreHistory:
                 raise
         log.info(
             "history %s: %s month %s (%d scores, %d plan rows, %d metrics)",
-            self.path,
-            "replaced" if present else "appended",
-            label,
-            info.n_scores,
-            info.n_plan,
-            len(metric_rows),
-        )
+            self.path, "replaced" if present else "appended", label, info.n_scores,
+            info.n_plan, len(metric_rows),
+        )  # fmt: skip
         return info
 
     # -- reading ---------------------------------------------------------------------------
@@ -454,6 +437,24 @@ def _has_month(con: duckdb.DuckDBPyConnection, label: str) -> bool:
     if not _has_runs(con):
         return False
     return bool(con.execute("SELECT count(*) FROM runs WHERE run_month = ?", [label]).fetchone()[0])
+
+
+def _clear_month(con, path: Path, label: str, force: bool) -> bool:
+    """Create the tables if new and delete the rows of month ``label`` if it is stored and
+    ``force`` (else a `UsageError`); whether it was stored."""
+    for statement in _SCHEMA:
+        con.execute(statement)
+    present = con.execute("SELECT count(*) FROM runs WHERE run_month = ?", [label]).fetchone()[0]
+    if present and not force:
+        raise UsageError(
+            f"the score history {path} already holds month {label}; an earlier "
+            "month is never overwritten unless asked: pass force=True (--force) to "
+            "replace it"
+        )
+    if present:
+        for table in _TABLES:
+            con.execute(f"DELETE FROM {table} WHERE run_month = ?", [label])
+    return bool(present)
 
 
 def _insert_run(con: duckdb.DuckDBPyConnection, info: RunInfo) -> None:

@@ -10,8 +10,7 @@ from .._months import categorical_to_index
 from .._progress import progress
 from .._warnings import library_warnings
 from ..errors import UsageError
-from ..panel import PanelLayout, panel_layout
-from ..panel._future import project_known_future
+from ..panel import PanelLayout, panel_layout, project_known_future
 from ._competing import survival_and_incidence, uptake_incidence, valid_hazards
 
 _SEASON_ANGLE = 2.0 * np.pi * np.arange(12) / 12.0

@@ -13,7 +13,7 @@ from threadpoolctl import threadpool_limits
 from .._progress import progress
 from .._warnings import library_warnings
 from ..errors import InputError, UsageError
-from ..panel._future import project_known_future
+from ..panel import project_known_future
 from ._base import HazardModel
 from ._design import finite_numbers
 from ._landmarks import block_first, in_customer_order

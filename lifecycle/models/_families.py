@@ -54,7 +54,7 @@ def make_model(
         settings["horizon"] = needed_horizon(config, max(SCORE_HORIZON, horizon or 0))
     if config is not None and "known_future" in cls().get_params():
         # features whose future is known: past offers' (by themselves) and [panel] known_future
-        from ..panel._offers import offer_schedules
+        from ..panel import offer_schedules
 
         schedule = {**offer_schedules(config), **config.panel.known_future}
         if schedule:

@@ -9,7 +9,7 @@ import pandas as pd
 
 from .._months import categorical_to_index, format_month
 from ..errors import InputError, UsageError
-from ..panel import panel_layout
+from ..panel import PanelLayout, panel_layout
 from ._competing import survival_and_incidence
 
 log = logging.getLogger(__name__)
@@ -37,6 +37,48 @@ def landmark_months(panel: pd.DataFrame, *, every: int = 3, max_landmarks: int =
         return np.empty(0, dtype=np.int32)
     candidates = np.arange(int(month.min()), int(month.max()) + 1, every, dtype=np.int32)
     return candidates[-max_landmarks:]
+
+
+def _outcomes(
+    panel: pd.DataFrame,
+    layout: PanelLayout,
+    rows: np.ndarray,
+    last: np.ndarray,
+    time: np.ndarray,
+    exit_seen: np.ndarray,
+) -> dict[str, np.ndarray]:
+    """At each landmark row: the terminal cause flags (an exit within the horizon), and per
+    product the time to uptake and its flag (0 for a customer already holding it)."""
+    n = len(panel)
+    position = np.arange(n)
+    out = {}
+    for cause in layout.terminal_causes:
+        flag = panel[cause].to_numpy()[last[rows]] == 1
+        out[cause] = (flag & exit_seen).astype(np.int8)
+    for cause in layout.uptake_causes:
+        flag = panel[cause].to_numpy() == 1
+        upcoming = np.where(flag, position, n)
+        upcoming = np.minimum.accumulate(upcoming[::-1])[::-1][rows]
+        until = upcoming - rows + 1
+        event = (upcoming <= last[rows]) & (until <= time)
+        holds = layout.at_risk_column(cause)
+        at_risk = panel[holds].to_numpy()[rows] == 0 if holds in panel else np.ones(len(rows), bool)
+        out[UPTAKE_TIME_PREFIX + cause] = np.where(at_risk, np.where(event, until, time), 0).astype(
+            np.int16
+        )
+        out[cause] = (event & at_risk).astype(np.int8)
+    return out
+
+
+def _log_landmarks(frame: pd.DataFrame, months: np.ndarray, horizon: int) -> None:
+    log.info(
+        "landmark snapshots: %d rows at %d landmark months (%s to %s), horizon %d",
+        len(frame),
+        months.size,
+        format_month(months[0]) if months.size else "-",
+        format_month(months[-1]) if months.size else "-",
+        horizon,
+    )
 
 
 def landmark_snapshots(
@@ -98,8 +140,6 @@ def landmark_snapshots(
         months = landmark_months(panel, every=every, max_landmarks=max_landmarks)
     months = np.unique(np.asarray(months, dtype=np.int64))
     codes = pd.factorize(panel["customer_id"])[0]
-    n = len(panel)
-    position = np.arange(n)
     last = block_last(codes)
     rows = np.flatnonzero(np.isin(month, months))
     rows = rows[np.argsort(month[rows], kind="stable")]
@@ -113,32 +153,11 @@ def landmark_snapshots(
         "tenure_stop": panel["tenure_stop"].to_numpy()[rows],
         TIME: time.astype(np.int16),
     }
-    for cause in layout.terminal_causes:
-        flag = panel[cause].to_numpy()[last[rows]] == 1
-        out[cause] = (flag & exit_seen).astype(np.int8)
-    for cause in layout.uptake_causes:
-        flag = panel[cause].to_numpy() == 1
-        upcoming = np.where(flag, position, n)
-        upcoming = np.minimum.accumulate(upcoming[::-1])[::-1][rows]
-        until = upcoming - rows + 1
-        event = (upcoming <= last[rows]) & (until <= time)
-        holds = layout.at_risk_column(cause)
-        at_risk = panel[holds].to_numpy()[rows] == 0 if holds in panel else np.ones(len(rows), bool)
-        out[UPTAKE_TIME_PREFIX + cause] = np.where(at_risk, np.where(event, until, time), 0).astype(
-            np.int16
-        )
-        out[cause] = (event & at_risk).astype(np.int8)
+    out.update(_outcomes(panel, layout, rows, last, time, exit_seen))
     frame = pd.DataFrame(out)
     features = panel[list(layout.features)].iloc[rows].reset_index(drop=True)
     frame = pd.concat([frame, features], axis=1)
-    log.info(
-        "landmark snapshots: %d rows at %d landmark months (%s to %s), horizon %d",
-        len(frame),
-        months.size,
-        format_month(months[0]) if months.size else "-",
-        format_month(months[-1]) if months.size else "-",
-        horizon,
-    )
+    _log_landmarks(frame, months, horizon)
     return frame
 
 

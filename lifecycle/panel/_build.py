@@ -8,11 +8,11 @@ import re
 import numpy as np
 import pandas as pd
 
+from .._layout import HOLDS_PREFIX, REASON_TO_CAUSE, UPTAKE_PREFIX
 from .._months import format_month, month_categorical, parse_month
 from ..config import Config
 from ..data import Tables
 from ..errors import InputError, UsageError
-from ._layout import HOLDS_PREFIX, REASON_TO_CAUSE, UPTAKE_PREFIX
 from ._offers import offer_features, offer_windows
 
 log = logging.getLogger(__name__)

@@ -6,8 +6,8 @@ import numpy as np
 import pandas as pd
 from scipy import stats
 
+from .._layout import TERMINAL_CAUSES, panel_layout
 from ..errors import InputError
-from ._layout import TERMINAL_CAUSES, panel_layout
 
 
 def life_table(

@@ -13,6 +13,7 @@ from ._drift import ACT_PSI, WATCH_PSI, drift_table, population_stability_index
 from ._html import REPORT_FILES, key_figures_json, render_report, write_report
 from ._inputs import ReportInputs, build_report_inputs, check_inputs
 from ._persist import load_report_inputs, save_report_inputs
+from ._sections_cohorts import cohort_alive
 from ._tables import (
     area_risk,
     incidence_by_segment,
@@ -30,6 +31,7 @@ __all__ = [
     "area_risk",
     "build_report_inputs",
     "check_inputs",
+    "cohort_alive",
     "drift_table",
     "incidence_by_segment",
     "key_figures_json",

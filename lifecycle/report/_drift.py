@@ -13,8 +13,8 @@ from collections.abc import Iterable, Sequence
 import numpy as np
 import pandas as pd
 
+from .._layout import ID_COLUMNS, TERMINAL_CAUSES, UPTAKE_PREFIX
 from ..errors import UsageError
-from ..panel._layout import ID_COLUMNS, TERMINAL_CAUSES, UPTAKE_PREFIX
 
 log = logging.getLogger(__name__)
 

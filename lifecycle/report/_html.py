@@ -19,9 +19,9 @@ from ._sections_action import (
     drift_section,
     drivers_section,
     forecast_section,
-    plan_section,
 )
 from ._sections_cohorts import cohort_section
+from ._sections_plan import plan_section
 from ._sections_track import track_section
 
 log = logging.getLogger(__name__)

@@ -276,34 +276,14 @@ def build_report_inputs(
         The currency of the amounts (``[value] currency``).
     """
     parse_month(month, what="report month")
-    if segment_column is None:
-        segment_column = next(
-            (c for c in ("plan_speed", "contract_ending") if c in panel.columns), None
-        )
-    if segment_column is None:
-        segmented = panel.assign(_segment="all customers")
-        incidence = incidence_by_segment(segmented, "_segment")
-        segment_label = "all customers"
-    else:
-        incidence = incidence_by_segment(panel, segment_column)
-        segment_label = segment_column
+    incidence, segment_label = _incidence(panel, segment_column)
     plan_table, plan_summary = _plan_parts(plan)
     offer_rates = None
     if plan_table is not None:
         offer_rates = offer_rates_by_area(
             plan_table, customer_areas, scores["customer_id"], areas=pd.DataFrame(areas)
         )
-    drift_parts = []
-    if (snapshot is None) != (previous_snapshot is None):
-        raise UsageError("feature drift needs both snapshot and previous_snapshot, or neither")
-    if snapshot is not None:
-        drift_parts.append(drift_table(previous_snapshot, snapshot, kind="feature"))
-    if previous_scores is not None:
-        columns = [c for c in scores.columns if c != "customer_id" and c in previous_scores]
-        drift_parts.append(drift_table(previous_scores, scores, columns, kind="score"))
-    drift = pd.concat(drift_parts, ignore_index=True) if drift_parts else None
-    if drift is not None:
-        drift = drift[DRIFT_COLUMNS]
+    drift = _drift(scores, snapshot, previous_snapshot, previous_scores)
     names = {"area_id": areas["area_id"].astype(str).to_numpy()}
     if "area_name" in areas.columns:  # maps and tables label areas by name where given
         names["area_name"] = areas["area_name"].astype(str).to_numpy()
@@ -336,6 +316,39 @@ def build_report_inputs(
         notes=list(notes or []),
     )
     return check_inputs(inputs)
+
+
+def _incidence(panel: pd.DataFrame, segment_column: str | None) -> tuple[pd.DataFrame, str]:
+    """Cumulative incidence by segment and the segment's label (see `build_report_inputs`)."""
+    if segment_column is None:
+        segment_column = next(
+            (c for c in ("plan_speed", "contract_ending") if c in panel.columns), None
+        )
+    if segment_column is None:
+        segmented = panel.assign(_segment="all customers")
+        return incidence_by_segment(segmented, "_segment"), "all customers"
+    return incidence_by_segment(panel, segment_column), segment_column
+
+
+def _drift(
+    scores: pd.DataFrame,
+    snapshot: pd.DataFrame | None,
+    previous_snapshot: pd.DataFrame | None,
+    previous_scores: pd.DataFrame | None,
+) -> pd.DataFrame | None:
+    """Feature drift (both snapshots given) and score drift (last month's scores given)."""
+    drift_parts = []
+    if (snapshot is None) != (previous_snapshot is None):
+        raise UsageError("feature drift needs both snapshot and previous_snapshot, or neither")
+    if snapshot is not None:
+        drift_parts.append(drift_table(previous_snapshot, snapshot, kind="feature"))
+    if previous_scores is not None:
+        columns = [c for c in scores.columns if c != "customer_id" and c in previous_scores]
+        drift_parts.append(drift_table(previous_scores, scores, columns, kind="score"))
+    drift = pd.concat(drift_parts, ignore_index=True) if drift_parts else None
+    if drift is not None:
+        drift = drift[DRIFT_COLUMNS]
+    return drift
 
 
 def _plan_parts(plan: Any) -> tuple[pd.DataFrame | None, dict[str, Any] | None]:

@@ -10,9 +10,9 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
+from .._layout import TERMINAL_CAUSES, UPTAKE_PREFIX
 from .._months import format_month, parse_month
 from ..errors import InputError
-from ..panel._layout import TERMINAL_CAUSES, UPTAKE_PREFIX
 from . import _figures as fig
 from ._blocks import Cell, Section, change, count, number, pct_text, percent
 from ._inputs import ReportInputs
@@ -45,12 +45,6 @@ def portfolio_section(inputs: ReportInputs) -> tuple[Section, dict[str, Any]]:
         )
     uptakes = [c for c in frame.columns if c.startswith(UPTAKE_PREFIX)]
     measures = ["customers", "customers_end", *TERMINAL_CAUSES, *uptakes]
-    names = {
-        "customers": "customers active in the month",
-        "customers_end": "customers at the month's end",
-        **{c: f"exits: {fig.label_of(c)}" for c in TERMINAL_CAUSES},
-        **{c: f"{fig.label_of(c)} (new holders)" for c in uptakes},
-    }
 
     def row_of(month: int) -> pd.Series | None:
         key = format_month(month)
@@ -58,10 +52,27 @@ def portfolio_section(inputs: ReportInputs) -> tuple[Section, dict[str, Any]]:
 
     now, last, year = row_of(m), row_of(m - 1), row_of(m - 12)
     section = Section("portfolio", "The portfolio this month")
+    _portfolio_text(section, inputs.month, now, uptakes)
+    _portfolio_table(section, inputs.month, now, last, year, uptakes)
+    section.figure(
+        fig.portfolio_trend(frame, [*TERMINAL_CAUSES, *uptakes]),
+        alt="Monthly exit and uptake rates over the last two years",
+        caption="Each point is the share of the month's active customers with that event.",
+    )
+
+    def plain(r: pd.Series | None) -> dict[str, int] | None:
+        return None if r is None else {c: int(r[c]) for c in measures}
+
+    key = {"this_month": plain(now), "last_month": plain(last), "same_month_last_year": plain(year)}
+    return section, key
+
+
+def _portfolio_text(section: Section, month: str, now: pd.Series, uptakes: list[str]) -> None:
+    """The month's customers, exits by cause and uptakes, in words."""
     exits = int(sum(now[c] for c in TERMINAL_CAUSES))
     parts = ", ".join(f"{int(now[c]):,} {fig.label_of(c)}" for c in TERMINAL_CAUSES)
     section.text(
-        f"In {inputs.month}, {int(now['customers']):,} customers were active and {exits:,} of "
+        f"In {month}, {int(now['customers']):,} customers were active and {exits:,} of "
         f"them left ({pct_text(exits / now['customers'])}): {parts}. "
         + (
             " ".join(
@@ -70,6 +81,25 @@ def portfolio_section(inputs: ReportInputs) -> tuple[Section, dict[str, Any]]:
             )
         )
     )
+
+
+def _portfolio_table(
+    section: Section,
+    month: str,
+    now: pd.Series,
+    last: pd.Series | None,
+    year: pd.Series | None,
+    uptakes: list[str],
+) -> None:
+    """Counts and monthly rates this month, last month and a year before, with the changes."""
+    m = parse_month(month)
+    measures = ["customers", "customers_end", *TERMINAL_CAUSES, *uptakes]
+    names = {
+        "customers": "customers active in the month",
+        "customers_end": "customers at the month's end",
+        **{c: f"exits: {fig.label_of(c)}" for c in TERMINAL_CAUSES},
+        **{c: f"{fig.label_of(c)} (new holders)" for c in uptakes},
+    }
 
     def value(row: pd.Series | None, column: str) -> float | None:
         return None if row is None else float(row[column])
@@ -101,7 +131,7 @@ def portfolio_section(inputs: ReportInputs) -> tuple[Section, dict[str, Any]]:
     ]
     header = [
         "",
-        inputs.month,
+        month,
         f"last month ({format_month(m - 1)})",
         "change",
         f"a year before ({format_month(m - 12)})",
@@ -115,17 +145,6 @@ def portfolio_section(inputs: ReportInputs) -> tuple[Section, dict[str, Any]]:
         section.note(
             f"The data do not reach back to {' or '.join(missing)}, so those columns are blank."
         )
-    section.figure(
-        fig.portfolio_trend(frame, [*TERMINAL_CAUSES, *uptakes]),
-        alt="Monthly exit and uptake rates over the last two years",
-        caption="Each point is the share of the month's active customers with that event.",
-    )
-
-    def plain(r: pd.Series | None) -> dict[str, int] | None:
-        return None if r is None else {c: int(r[c]) for c in measures}
-
-    key = {"this_month": plain(now), "last_month": plain(last), "same_month_last_year": plain(year)}
-    return section, key
 
 
 # -- hazard by tenure ------------------------------------------------------------------------

@@ -8,7 +8,8 @@ from typing import Any
 
 import pandas as pd
 
-from ..forecast._track import coverage, track_record
+from ..forecast import forecast_coverage as coverage
+from ..forecast import track_record
 from ._blocks import Cell, Section, count, number, pct_text
 from ._inputs import ReportInputs
 

@@ -15,7 +15,7 @@ from scipy import stats
 
 from .._months import categorical_to_index, format_month
 from ..errors import InputError, UsageError
-from ..models._competing import survival_and_incidence
+from ..models import survival_and_incidence
 from ..panel import life_table, panel_layout
 
 __all__ = [

@@ -8,9 +8,15 @@ every premise and month), `neighbour_pairs` and `gamma_poisson_rates`; `distance
 which projected CRS distances are measured.
 """
 
-from ._areas import premise_areas
-from ._context import add_spatial_context
-from ._crs import distance_crs
+from ._areas import area_attributes, area_positions, premise_areas
+from ._context import (
+    add_spatial_context,
+    adoption_columns,
+    check_context_names,
+    checked_radii,
+    radius_label,
+)
+from ._crs import distance_crs, project_premises
 from ._move_rate import local_move_rates
 from ._pairs import neighbour_pairs
 from ._shrinkage import gamma_poisson_rates
@@ -18,10 +24,17 @@ from ._sweep import nearby_counts
 
 __all__ = [
     "add_spatial_context",
+    "adoption_columns",
+    "area_attributes",
+    "area_positions",
+    "check_context_names",
+    "checked_radii",
     "distance_crs",
     "gamma_poisson_rates",
     "local_move_rates",
     "nearby_counts",
     "neighbour_pairs",
     "premise_areas",
+    "project_premises",
+    "radius_label",
 ]

@@ -30,6 +30,53 @@ def radius_label(radius: float) -> str:
     return str(int(radius)) if radius.is_integer() else repr(radius).replace(".", "_")
 
 
+def _checked_settings(panel: pd.DataFrame, config: Config) -> list[float]:
+    """The ``[spatial]`` radii, once the move-rate window and the panel's id columns are
+    checked."""
+    radii = checked_radii(config)
+    if config.spatial.move_rate_months < 1:
+        raise UsageError(
+            f"[spatial] move_rate_months was {config.spatial.move_rate_months} but is expected "
+            "to be a number of months, at least 1"
+        )
+    for column in ("customer_id", "month"):
+        if column not in panel.columns:
+            raise UsageError(f"the panel has no column '{column}'; give the output of build_panel")
+    return radii
+
+
+def _log_context(n_attributes: int, config: Config, n_products: int, radii: list[float]) -> None:
+    log.info(
+        "spatial context: %d area attribute(s), local move rate over %d months, nearby "
+        "adoption of %d product(s) within %s m",
+        n_attributes, config.spatial.move_rate_months, n_products,
+        ", ".join(radius_label(r) for r in radii),
+    )  # fmt: skip
+
+
+def _move_rates(
+    tables: Tables, config: Config, area: np.ndarray, first: int, last: int
+) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Customers' start and end months (end `_NEVER` while active) and the shrunk local move
+    rate by area and month ``first..last``."""
+    customers = tables.customers
+    start = customers["start"].to_numpy(dtype=np.int64)
+    end_f = customers["end"].to_numpy(dtype=np.float64)
+    end = np.where(np.isnan(end_f), _NEVER, np.nan_to_num(end_f)).astype(np.int64)
+    moved_out = (customers["end_reason"].astype(object) == "move_out").to_numpy(dtype=bool)
+    rates = local_move_rates(
+        area,
+        start,
+        end_f,
+        moved_out,
+        n_areas=len(tables.areas),
+        first_month=first,
+        last_month=last,
+        window=config.spatial.move_rate_months,
+    )
+    return start, end, rates
+
+
 def add_spatial_context(
     panel: pd.DataFrame, tables: Tables, *, config: Config | None = None
 ) -> pd.DataFrame:
@@ -85,63 +132,26 @@ def add_spatial_context(
         positive.
     """
     config = config or Config()
-    radii = checked_radii(config)
-    if config.spatial.move_rate_months < 1:
-        raise UsageError(
-            f"[spatial] move_rate_months was {config.spatial.move_rate_months} but is expected "
-            "to be a number of months, at least 1"
-        )
-    for column in ("customer_id", "month"):
-        if column not in panel.columns:
-            raise UsageError(f"the panel has no column '{column}'; give the output of build_panel")
+    radii = _checked_settings(panel, config)
     customers = tables.customers
     rows = _row_positions(panel["customer_id"], customers["customer_id"])
     months = categorical_to_index(panel["month"]).astype(np.int64)
-    first = int(months.min()) if len(months) else 0
-    last = int(months.max()) if len(months) else 0
-    n_months = last - first + 1
+    first, last = (int(months.min()), int(months.max())) if len(months) else (0, 0)
     month_col = months - first
-
     attributes = area_attributes(tables)
     products = list(tables.products)
     check_context_names(panel, list(map(str, attributes.columns)), _nearby_names(products, radii))
-
-    new: dict[str, np.ndarray] = {}
     area = area_positions(tables, config)
-    for name in attributes.columns:
-        new[str(name)] = attributes[name].to_numpy()[area[rows]]
-
-    start = customers["start"].to_numpy(dtype=np.int64)
-    end_f = customers["end"].to_numpy(dtype=np.float64)
-    end = np.where(np.isnan(end_f), _NEVER, np.nan_to_num(end_f)).astype(np.int64)
-    moved_out = (customers["end_reason"].astype(object) == "move_out").to_numpy(dtype=bool)
-    rates = local_move_rates(
-        area,
-        start,
-        end_f,
-        moved_out,
-        n_areas=len(tables.areas),
-        first_month=first,
-        last_month=last,
-        window=config.spatial.move_rate_months,
-    )
+    new = {str(name): attributes[name].to_numpy()[area[rows]] for name in attributes.columns}
+    start, end, rates = _move_rates(tables, config, area, first, last)
     new["local_move_rate"] = rates[area[rows], month_col].astype(np.float32)
-
     if products:
         new.update(
             _nearby_columns(
-                tables, config, rows, month_col, n_months, first, last, start, end, radii
+                tables, config, rows, month_col, last - first + 1, first, last, start, end, radii
             )
         )
-
-    log.info(
-        "spatial context: %d area attribute(s), local move rate over %d months, nearby "
-        "adoption of %d product(s) within %s m",
-        len(attributes.columns),
-        config.spatial.move_rate_months,
-        len(products),
-        ", ".join(radius_label(r) for r in radii),
-    )
+    _log_context(len(attributes.columns), config, len(products), radii)
     context = pd.DataFrame(new, index=panel.index)
     return pd.concat([panel, context], axis=1)
 

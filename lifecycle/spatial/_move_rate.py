@@ -9,6 +9,14 @@ from ._shrinkage import gamma_poisson_rates
 __all__ = ["local_move_rates"]
 
 
+def _trailing_sums(counts: np.ndarray, window: int, n_months: int) -> np.ndarray:
+    """Window sums per row: month k (offset from the first wanted month) covers the offsets
+    k .. k + W − 1 of ``counts``."""
+    cum = np.zeros((counts.shape[0], counts.shape[1] + 1), dtype=np.int64)
+    np.cumsum(counts, axis=1, out=cum[:, 1:])
+    return cum[:, window : window + n_months] - cum[:, :n_months]
+
+
 def local_move_rates(
     area: np.ndarray,
     start: np.ndarray,
@@ -79,14 +87,8 @@ def local_move_rates(
         area[moves] * length + (end[moves] - t0), minlength=n_areas * length
     ).reshape(n_areas, length)
 
-    # window sums: month k (offset from first_month) covers offsets k .. k + W - 1
-    def trailing(counts: np.ndarray) -> np.ndarray:
-        cum = np.zeros((n_areas, length + 1), dtype=np.int64)
-        np.cumsum(counts, axis=1, out=cum[:, 1:])
-        return cum[:, window : window + n_months] - cum[:, :n_months]
-
-    y = trailing(events)
-    n = trailing(active)
+    y = _trailing_sums(events, window, n_months)
+    n = _trailing_sums(active, window, n_months)
     rates = np.empty((n_areas, n_months), dtype=np.float64)
     for k in range(n_months):
         rates[:, k] = gamma_poisson_rates(y[:, k], n[:, k])

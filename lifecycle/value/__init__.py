@@ -3,8 +3,10 @@
 
 from ._campaigns import campaign_follow_up, estimate_offer_effects
 from ._effects import OfferEffectModel, campaign_covariates, customer_offer_effects
+from ._hazards import HazardInput, read_hazards
 from ._lifetime import (
     ValueSettings,
+    check_horizon,
     discount_factors,
     lifetime_value,
     monthly_discount_rate,
@@ -15,16 +17,19 @@ from ._offer_value import offer_values
 
 __all__ = [
     "MONEY_COLUMNS",
+    "HazardInput",
     "OfferEffectModel",
     "ValueSettings",
     "campaign_covariates",
     "campaign_follow_up",
+    "check_horizon",
     "customer_offer_effects",
     "discount_factors",
     "estimate_offer_effects",
     "lifetime_value",
     "monthly_discount_rate",
     "offer_values",
+    "read_hazards",
     "round_money",
     "value_settings",
 ]

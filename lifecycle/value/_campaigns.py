@@ -22,10 +22,10 @@ import numpy as np
 import pandas as pd
 from lifelines import CoxPHFitter
 
+from .._layout import REASON_TO_CAUSE, TERMINAL_CAUSES, UPTAKE_PREFIX
 from .._months import format_month
 from ..data import Tables
 from ..errors import InputError, UsageError
-from ..panel._layout import REASON_TO_CAUSE, TERMINAL_CAUSES, UPTAKE_PREFIX
 
 log = logging.getLogger(__name__)
 

@@ -15,9 +15,9 @@ from dataclasses import dataclass
 import numpy as np
 import pandas as pd
 
+from .._layout import UPTAKE_PREFIX
 from ..errors import UsageError
-from ..models._competing import uptake_incidence
-from ..panel._layout import UPTAKE_PREFIX
+from ..models import uptake_incidence
 
 __all__ = ["HazardInput", "read_hazards", "uptake_incidence"]
 

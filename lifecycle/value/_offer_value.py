@@ -19,9 +19,9 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
+from .._layout import UPTAKE_PREFIX
 from ..errors import UsageError
-from ..models._competing import survival_and_incidence, valid_hazards
-from ..panel._layout import UPTAKE_PREFIX
+from ..models import survival_and_incidence, valid_hazards
 from ._hazards import HazardInput, read_hazards, uptake_incidence
 from ._lifetime import DEFAULT_ANNUAL_DISCOUNT, check_horizon, discount_factors, margin_matrix
 
@@ -40,6 +40,55 @@ class _OfferSpec:
     hazard_ratio: float
     months: int
     value_per_uptake: float
+
+
+def _value_blocks(h, specs, values, margins, disc, horizon_: int) -> dict[str, np.ndarray]:
+    """``value_without``, ``value_with``, ``survival_change`` and ``cif_change_<cause>`` as
+    ``(customers, offers)`` arrays, computed in blocks of `CHUNK_CUSTOMERS` customers."""
+    n_offers = len(specs)
+    columns = ["value_without", "value_with", "survival_change"] + [
+        f"cif_change_{c}" for c in h.causes
+    ]
+    out = {name: np.empty((h.n, n_offers)) for name in columns}
+    for lo in range(0, h.n, CHUNK_CUSTOMERS):
+        hi = min(lo + CHUNK_CUSTOMERS, h.n)
+        block = h.array[lo:hi, :horizon_, :]
+        m = margins[lo:hi]
+        base = _outcome(block, h)
+        for j, spec in enumerate(specs):
+            worth = dict(values)
+            if spec.column in h.uptakes and spec.value_per_uptake:
+                worth[spec.column] = spec.value_per_uptake
+            # an uptake offer leaves the exits alone: only its own product's F_u changes
+            only = spec.column if spec.column in h.uptakes else None
+            new = _outcome(_with_offer(block, h, spec), h, only=only, base=base)
+            out["value_without"][lo:hi, j] = _value(base, m, disc, worth)
+            out["value_with"][lo:hi, j] = _value(new, m, disc, worth)
+            out["survival_change"][lo:hi, j] = new.survival[:, -1] - base.survival[:, -1]
+            for k, cause in enumerate(h.causes):
+                out[f"cif_change_{cause}"][lo:hi, j] = new.final[:, k] - base.final[:, k]
+    return out
+
+
+def _value_frame(h, specs, out: dict[str, np.ndarray]) -> pd.DataFrame:
+    """The long table, one row per customer and offer (see `offer_values`)."""
+    n_offers = len(specs)
+    cost = np.array([s.cost for s in specs], dtype=np.float64)
+    frame = pd.DataFrame(
+        {
+            "customer_id": np.repeat(h.customer_ids, n_offers),
+            "offer": np.tile(np.array([s.name for s in specs], dtype=object), h.n),
+            "target": np.tile(np.array([s.target for s in specs], dtype=object), h.n),
+            "value_without": out["value_without"].ravel(),
+            "value_with": out["value_with"].ravel(),
+            "cost": np.tile(cost, h.n),
+        }
+    )
+    frame["expected_value"] = (out["value_with"] - out["value_without"] - cost[None, :]).ravel()
+    frame["survival_change"] = out["survival_change"].ravel()
+    for cause in h.causes:
+        frame[f"cif_change_{cause}"] = out[f"cif_change_{cause}"].ravel()
+    return frame
 
 
 def offer_values(
@@ -115,48 +164,10 @@ def offer_values(
     values = _product_values(uptake_values, h)
     margins = margin_matrix(margin, h.n, horizon_)
     disc = discount_factors(horizon_, annual_discount)
-    n_offers = len(specs)
-
-    columns = ["value_without", "value_with", "survival_change"] + [
-        f"cif_change_{c}" for c in h.causes
-    ]
-    out = {name: np.empty((h.n, n_offers)) for name in columns}
-    for lo in range(0, h.n, CHUNK_CUSTOMERS):
-        hi = min(lo + CHUNK_CUSTOMERS, h.n)
-        block = h.array[lo:hi, :horizon_, :]
-        m = margins[lo:hi]
-        base = _outcome(block, h)
-        for j, spec in enumerate(specs):
-            worth = dict(values)
-            if spec.column in h.uptakes and spec.value_per_uptake:
-                worth[spec.column] = spec.value_per_uptake
-            # an uptake offer leaves the exits alone: only its own product's F_u changes
-            only = spec.column if spec.column in h.uptakes else None
-            new = _outcome(_with_offer(block, h, spec), h, only=only, base=base)
-            out["value_without"][lo:hi, j] = _value(base, m, disc, worth)
-            out["value_with"][lo:hi, j] = _value(new, m, disc, worth)
-            out["survival_change"][lo:hi, j] = new.survival[:, -1] - base.survival[:, -1]
-            for k, cause in enumerate(h.causes):
-                out[f"cif_change_{cause}"][lo:hi, j] = new.final[:, k] - base.final[:, k]
-
-    cost = np.array([s.cost for s in specs], dtype=np.float64)
-    frame = pd.DataFrame(
-        {
-            "customer_id": np.repeat(h.customer_ids, n_offers),
-            "offer": np.tile(np.array([s.name for s in specs], dtype=object), h.n),
-            "target": np.tile(np.array([s.target for s in specs], dtype=object), h.n),
-            "value_without": out["value_without"].ravel(),
-            "value_with": out["value_with"].ravel(),
-            "cost": np.tile(cost, h.n),
-        }
-    )
-    frame["expected_value"] = (out["value_with"] - out["value_without"] - cost[None, :]).ravel()
-    frame["survival_change"] = out["survival_change"].ravel()
-    for cause in h.causes:
-        frame[f"cif_change_{cause}"] = out[f"cif_change_{cause}"].ravel()
+    frame = _value_frame(h, specs, _value_blocks(h, specs, values, margins, disc, horizon_))
     log.info(
         "valued %d offer(s) for %d customers over %d months (annual discount %.3g)",
-        n_offers, h.n, horizon_, annual_discount,
+        len(specs), h.n, horizon_, annual_discount,
     )  # fmt: skip
     return frame
 

@@ -6,7 +6,7 @@ from dataclasses import dataclass
 
 import pandas as pd
 
-from ..errors import UsageError
+from .errors import UsageError
 
 ID_COLUMNS = ("customer_id", "month", "tenure_start", "tenure_stop")
 TERMINAL_CAUSES = ("churn", "move_out", "other_exit")
