@@ -427,9 +427,12 @@ def test_the_public_surface_of_value():
     assert sorted(lifecycle.value.__all__) == [
         "HazardInput",
         "MONEY_COLUMNS",
+        "OfferEffectModel",
         "ValueSettings",
+        "campaign_covariates",
         "campaign_follow_up",
         "check_horizon",
+        "customer_offer_effects",
         "discount_factors",
         "estimate_offer_effects",
         "lifetime_value",
