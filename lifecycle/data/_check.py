@@ -79,11 +79,19 @@ def check_tables(raw: RawTables, config: Config) -> Tables:
     Months become integer indices ``m = 12·year + (month − 1)``. A customer is active in the
     months ``start ≤ m ≤ end`` (no upper bound while ``end`` is blank); activity rows and uptakes
     must fall in those months. No month of any table may be later than the extract month
-    ``config.extract_month_index()``. End reasons are mapped through ``config.reasons`` onto
-    ``churn``, ``move_out`` and ``other``. Other customer columns are the static attributes:
-    numbers (or text that all reads as numbers) become float64, except columns of 0 and 1
-    without blanks, which become int8 flags; other text is kept as ``string``. The decision
-    flags ``do_not_contact`` and ``hardship``, when given, must be 0 or 1 on every row.
+    ``config.extract_month_index()``; when that is not set, the extract month is inferred: the
+    last month in which any customer start or end, uptake, activity or campaign row is dated
+    (logged). Months may be ``YYYY-MM``, ``YYYY-MM-DD``, an ISO date-time or a ``[formats]``
+    format; a date that does not exist or lies outside the years 1900..2200 is refused. End
+    reasons are mapped through ``config.reasons`` onto ``churn``, ``move_out`` and ``other``;
+    campaign offers and arms through ``[campaigns]``, and when ``[[offers]]`` are configured
+    every campaign offer must be one of them. Other customer columns are the static
+    attributes: flags (1/0, true/false, yes/no, Y/N in any case) without blanks become int8,
+    numbers (or text that all reads as numbers) float64, other text ``string``. The decision
+    flags ``do_not_contact`` and ``hardship``, when given, must be flags on every row. Numbers
+    must be finite and not absurd (``MONEY_MAX`` for the margin, ``VALUE_MAX`` otherwise).
+    Areas are checked by `check_areas` and `check_overlaps`. Errors name the input's own
+    column beside ours where ``[columns.<table>]`` maps it.
 
     Returns
     -------
