@@ -80,6 +80,18 @@ class InputError(LifecycleError):
         self.source_column = source_column
         super().__init__(self._message())
 
+    def fields(self) -> dict[str, object]:
+        """The keyword arguments that rebuild this error (for a copy, or across processes)."""
+        return {
+            "table": self.table,
+            "column": self.column,
+            "problem": self.problem,
+            "count": self.count,
+            "examples": self.examples,
+            "fix": self.fix,
+            "source_column": self.source_column,
+        }
+
     def with_source_names(self, columns: dict[str, dict[str, str]]) -> InputError:
         """This error naming the input's own column name beside ours, where ``columns``
         (``[columns.<table>]``: our name = yours) maps this error's column."""
@@ -88,15 +100,7 @@ class InputError(LifecycleError):
         theirs = ", ".join(str(mapping.get(p, p)) for p in parts)
         if not self.column or theirs == self.column or self.source_column:
             return self
-        return InputError(
-            table=self.table,
-            column=self.column,
-            problem=self.problem,
-            count=self.count,
-            examples=self.examples,
-            fix=self.fix,
-            source_column=theirs,
-        )
+        return InputError(**{**self.fields(), "source_column": theirs})
 
     def _message(self) -> str:
         where = f"table '{self.table}'"

@@ -374,3 +374,24 @@ def test_the_monthly_cycle_on_the_cluster_writes_the_same_files(client, tmp_path
             assert figures[1][key] == pytest.approx(value, rel=1e-9, abs=1e-12), key
         elif not isinstance(value, dict | list):
             assert figures[1][key] == value, key
+
+
+def test_an_input_error_from_a_task_keeps_every_field_across_pickling():
+    """A task's `InputError` arrives as it was raised, the export's own column name included
+    (it was dropped before the error carried `fields`)."""
+    import pickle
+
+    from lifecycle.distributed._remote import portable
+    from lifecycle.errors import InputError
+
+    def task():
+        raise InputError(
+            table="customers", column="end_month", problem="is before start_month", count=2,
+            examples=["A1", "B2"], fix="mend the dates", source_column="leave_date",
+        )  # fmt: skip
+
+    with pytest.raises(InputError) as caught:
+        portable(task)()
+    again = pickle.loads(pickle.dumps(caught.value))
+    assert again.fields() == caught.value.fields()
+    assert again.source_column == "leave_date" and str(again) == str(caught.value)

@@ -22,16 +22,11 @@ class _PortableInputError(InputError):
     """An `InputError` that pickles: rebuilt from its fields on the other side."""
 
     def __reduce__(self):
-        return (
-            _rebuild_input_error,
-            (self.table, self.column, self.problem, self.count, self.examples, self.fix),
-        )
+        return (_rebuild_input_error, (self.fields(),))
 
 
-def _rebuild_input_error(table, column, problem, count, examples, fix) -> _PortableInputError:
-    return _PortableInputError(
-        table=table, column=column, problem=problem, count=count, examples=examples, fix=fix
-    )
+def _rebuild_input_error(fields: dict) -> _PortableInputError:
+    return _PortableInputError(**fields)
 
 
 def portable(fn: F) -> F:
@@ -44,14 +39,7 @@ def portable(fn: F) -> F:
         except _PortableInputError:
             raise
         except InputError as exc:
-            raise _PortableInputError(
-                table=exc.table,
-                column=exc.column,
-                problem=exc.problem,
-                count=exc.count,
-                examples=exc.examples,
-                fix=exc.fix,
-            ) from None
+            raise _PortableInputError(**exc.fields()) from None
 
     return task  # type: ignore[return-value]
 
