@@ -80,15 +80,16 @@ def default_effect_features(
 ) -> list[str]:
     """The features effects are learnt on when ``[value] effect_features`` is empty.
 
-    Every numeric feature of the panel (`panel_layout`) that the snapshot also has, except:
+    ``tenure_start`` and every numeric feature of the panel (`panel_layout`) that the snapshot
+    also has, except:
     area-level features (``area_features``: the areas table's attributes and the local move
     rate, which can act as proxies for protected characteristics), nearby adoption and
     past-offer features (``nearby_*``, ``offer_*``: the campaign itself changes them), season
-    and ``tenure_stop`` (season is one value in a campaign month; ``tenure_start`` is kept).
+    and ``tenure_stop`` (season is one value in a campaign month; tenure is ``tenure_start``).
     """
     skip = set(area_features) | set(_NOT_EFFECT_FEATURES)
     out = []
-    for column in panel_layout(panel).features:
+    for column in ("tenure_start", *panel_layout(panel).features):
         if column in skip or column.startswith(_NOT_EFFECT_PREFIXES):
             continue
         if column not in snapshot.columns or not pd.api.types.is_numeric_dtype(panel[column]):
@@ -172,7 +173,9 @@ def _offer_effect(tables, offer, panel, snapshot, features) -> CustomerEffects |
     except UsageError as exc:
         log.warning("offer %s: no effect per customer from its campaign: %s", offer.name, exc)
         return None
-    current = snapshot[features].astype(np.float64).fillna(means).fillna(0.0)
+    current = _within_campaign_range(
+        snapshot[features].astype(np.float64).fillna(means).fillna(0.0), covariates, offer.name
+    )
     ratio = pd.Series(
         model.predict_hazard_ratio(current),
         index=pd.Index(snapshot["customer_id"].to_numpy(), name="customer_id"),
@@ -190,6 +193,27 @@ def _offer_effect(tables, offer, panel, snapshot, features) -> CustomerEffects |
             offer.name, model.average_hazard_ratio, model.reason,
         )  # fmt: skip
     return CustomerEffects(offer.name, model, ratio, tuple(features))
+
+
+def _within_campaign_range(
+    current: pd.DataFrame, covariates: pd.DataFrame, offer: str
+) -> pd.DataFrame:
+    """The snapshot's features held within the range the campaign's customers spanned.
+
+    The interactions are linear in the features, so a customer far outside the campaign's range
+    (say 20 contract months left where the campaign only reached customers with at most 1) would
+    get an effect extrapolated without limit; each feature is clipped to the campaign's minimum
+    and maximum instead, and how many customers that touched is logged.
+    """
+    low, high = covariates.min(), covariates.max()
+    outside = ((current < low) | (current > high)).any(axis=1)
+    if outside.any():
+        log.info(
+            "offer %s: %d of %d customers lie outside the campaign's range of some feature; "
+            "their effect is predicted at the nearest edge of that range",
+            offer, int(outside.sum()), len(current),
+        )  # fmt: skip
+    return current.clip(lower=low, upper=high, axis=1)
 
 
 def _randomised_offers(tables: Tables, offers: Sequence[object]) -> list[object]:
