@@ -286,6 +286,7 @@ def test_public_surface_is_pinned():
             "Offer",
             "PLAN_COLUMNS",
             "Phrase",
+            "RESPONDS_REASON",
             "Plan",
             "PlanSettings",
             "allocate",

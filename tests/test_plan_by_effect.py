@@ -113,3 +113,62 @@ def test_bad_own_ratios_are_refused():
         offer_values(
             hazards, CAUSES, 20.0, [offer], hazard_ratios={"credit": pd.Series([1.0], index=[0])}
         )
+
+
+# -- the plan's rule on harm ----------------------------------------------------------------
+def _harm_case():
+    from lifecycle.decisions import Offer as PlanOffer
+
+    n = 6
+    frame = pd.DataFrame(
+        {
+            "customer_id": [f"c{i}" for i in range(n)],
+            "cif_churn_3m": np.linspace(0.01, 0.3, n),  # c5 is the most at risk
+            "do_not_contact": 0,
+            "hardship": 0,
+        }
+    )
+    offer = PlanOffer("credit", "churn", cost=10.0, hazard_ratio=0.6, months=6)
+    ev = np.linspace(5.0, 500.0, n)[:, None]  # c5 has by far the most value at risk
+    harmed = pd.DataFrame(
+        {"credit": [False, False, False, False, False, True]}, index=frame.customer_id
+    )
+    return frame, offer, ev, harmed
+
+
+def test_a_harmed_customer_with_high_value_at_risk_is_not_planned():
+    from lifecycle.decisions import PlanSettings, make_plan
+
+    frame, offer, ev, harmed = _harm_case()
+    plan = make_plan(frame, ev, [offer], PlanSettings(budget=20.0), harmed=harmed)
+    # two contacts fit the budget: the best two of the unharmed (c4, c3), never c5
+    assert sorted(plan.table["customer_id"]) == ["c3", "c4"]
+    figures = plan.summary()["offers"]["credit"]
+    assert figures["predicted_harmed"] == 1 and figures["harmed_planned"] == 0
+    assert figures["limited_by"] == "budget"
+    # with budget for all, what left the offer short is the harm rule
+    everyone = make_plan(frame, ev, [offer], PlanSettings(budget=1e6), harmed=harmed)
+    assert "c5" not in set(everyone.table["customer_id"]) and len(everyone.table) == 5
+    assert everyone.summary()["offers"]["credit"]["limited_by"] == "predicted harm"
+
+
+def test_a_harmed_customer_is_planned_when_the_settings_allow_it():
+    from lifecycle.decisions import PlanSettings, make_plan
+
+    frame, offer, ev, harmed = _harm_case()
+    settings_ = PlanSettings(budget=20.0, contact_when_harmful=True)
+    plan = make_plan(frame, ev, [offer], settings_, harmed=harmed)
+    assert sorted(plan.table["customer_id"]) == ["c4", "c5"]
+    figures = plan.summary()["offers"]["credit"]
+    assert figures["predicted_harmed"] == 1 and figures["harmed_planned"] == 1
+
+
+def test_a_strong_responder_gets_the_reason_first():
+    from lifecycle.decisions import RESPONDS_REASON, PlanSettings, make_plan
+
+    frame, offer, ev, _ = _harm_case()
+    responsive = pd.DataFrame({"credit": [False] * 5 + [True]}, index=frame.customer_id)
+    plan = make_plan(frame, ev, [offer], PlanSettings(budget=20.0), responsive=responsive)
+    reasons = plan.table.set_index("customer_id")["reasons"]
+    assert reasons["c5"].startswith(RESPONDS_REASON + "; ")
+    assert RESPONDS_REASON not in reasons["c4"] and reasons["c4"]

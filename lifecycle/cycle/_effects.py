@@ -243,6 +243,24 @@ def own_hazard_ratios(effects: Mapping[str, CustomerEffects]) -> dict[str, pd.Se
     return {name: e.hazard_ratio for name, e in effects.items() if e.varying}
 
 
+def effect_flags(
+    effects: Mapping[str, CustomerEffects], offers: Sequence[object]
+) -> tuple[pd.DataFrame | None, pd.DataFrame | None]:
+    """The plan's ``harmed`` and ``responsive`` customer × offer frames (`make_plan`) from the
+    own effects (``None``, ``None`` without any)."""
+    if not effects:
+        return None, None
+    harmed, responsive = {}, {}
+    for offer in offers:
+        effect = effects.get(offer.name)
+        if effect is None:
+            continue
+        ratio = effect.hazard_ratio
+        harmed[offer.name] = pd.Series(harmful(offer, ratio.to_numpy()), index=ratio.index)
+        responsive[offer.name] = stronger_than_average(effect, ratio.index)
+    return pd.DataFrame(harmed), pd.DataFrame(responsive)
+
+
 def harmful(offer: object, ratios: np.ndarray) -> np.ndarray:
     """Whether the offer is predicted to harm each customer: a retention offer (target a
     terminal cause) that raises the hazard (ratio > 1), or an uptake offer that lowers it."""
@@ -268,6 +286,27 @@ def effect_columns(values: pd.DataFrame, offers: Sequence[object]) -> pd.DataFra
             np.nan if change is None else change.reindex(ids).to_numpy(dtype=np.float64)
         )
     return out
+
+
+def with_effect_columns(
+    scores: pd.DataFrame, values: pd.DataFrame, offers: Sequence[object]
+) -> pd.DataFrame:
+    """``scores`` with `effect_columns` of the offer ``values`` appended, row for row."""
+    effects = effect_columns(values, offers).set_index("customer_id")
+    effects = effects.reindex(pd.Index(scores["customer_id"].to_numpy()))
+    return scores.assign(**{c: effects[c].to_numpy() for c in effects.columns})
+
+
+def effect_summary(effects: Mapping[str, CustomerEffects]) -> dict[str, dict[str, object]]:
+    """Per offer with own effects: ``per_customer``, ``average_hazard_ratio``, ``reason``."""
+    return {
+        name: {
+            "per_customer": e.varying,
+            "average_hazard_ratio": e.average_hazard_ratio,
+            "reason": str(getattr(e.model, "reason", "")),
+        }
+        for name, e in effects.items()
+    }
 
 
 def stronger_than_average(effect: CustomerEffects, customer_ids) -> pd.Series:

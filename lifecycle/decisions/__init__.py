@@ -30,6 +30,7 @@ from ._plan import (
 )
 from ._reasons import (
     DEFAULT_PHRASES,
+    RESPONDS_REASON,
     Phrase,
     cause_words,
     join_reasons,
@@ -47,6 +48,7 @@ __all__ = [
     "DEFAULT_PHRASES",
     "LIMITS",
     "PLAN_COLUMNS",
+    "RESPONDS_REASON",
     "Allocation",
     "Eligibility",
     "Offer",
