@@ -282,3 +282,37 @@ def test_own_effects_can_be_turned_off(demo_effects, tmp_path):
     )
     with pytest.raises(UsageError, match="nothing_here"):
         customer_effects(tables, load_config(chosen), offers, snapshot, panel=panel)
+
+
+def test_the_report_says_which_effects_were_used_and_how_many_are_harmed():
+    from lifecycle.report._blocks import Section
+    from lifecycle.report._sections_plan import _offer_limits, _own_effects_text
+
+    effects = {
+        "credit": {
+            "hazard_ratio": 0.6,
+            "from": "campaigns",
+            "per_customer": True,
+            "reason": "the effect varies (p = 0.001)",
+        },
+        "trial": {
+            "hazard_ratio": 0.8,
+            "from": "campaigns",
+            "per_customer": False,
+            "reason": "no evidence that the effect varies",
+        },
+        "move": {"hazard_ratio": 0.7, "from": "settings", "per_customer": False},
+    }
+    figures = {"predicted_harmed": 12, "harmed_planned": 0, "limited_by": "predicted harm"}
+    base = {"candidates": 50, "eligible": 40, "positive_value": 30, "chosen": 0, "spend": 0.0}
+    offers = {"credit": {**base, **figures}}
+    section = Section("plan", "Plan")
+    _own_effects_text(section, effects, offers)
+    _offer_limits(section, offers, "")
+    text = " ".join(b.text for b in section.blocks if b.kind == "text")
+    assert (
+        "credit: each customer's own effect" in text and "12 customer(s) predicted harmed" in text
+    )
+    assert "trial: the campaign's average effect" in text
+    assert "move: one effect for everyone" in text
+    assert "predicted to be harmed" in text  # why credit got no contacts
