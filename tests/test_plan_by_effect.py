@@ -316,3 +316,27 @@ def test_the_report_says_which_effects_were_used_and_how_many_are_harmed():
     assert "trial: the campaign's average effect" in text
     assert "move: one effect for everyone" in text
     assert "predicted to be harmed" in text  # why credit got no contacts
+
+
+def test_harm_and_strong_response_are_read_from_the_own_ratios():
+    """Worked by hand: average ratio 0.6 (log −0.51); a customer responds more than most when
+    its log ratio is at most −0.61 and in the strongest quarter; harm is a ratio above 1 for a
+    retention offer and below 1 for an uptake offer."""
+    from types import SimpleNamespace
+
+    from lifecycle.cycle import CustomerEffects
+    from lifecycle.cycle._effects import harmful, stronger_than_average
+
+    ids = [f"c{i}" for i in range(8)]
+    ratios = pd.Series([0.2, 0.3, 0.55, 0.6, 0.7, 0.9, 1.0, 1.4], index=ids)
+    model = SimpleNamespace(varying=True, average_hazard_ratio=0.6, reason="")
+    effect = CustomerEffects("credit", model, ratios, ("x",))
+    # quartile of log ratios: between c1 and c2; 0.3 < 0.6·e^−0.1 = 0.543
+    assert stronger_than_average(effect, ids).tolist() == [True, True] + [False] * 6
+    flat = CustomerEffects("credit", SimpleNamespace(varying=False, average_hazard_ratio=0.6),
+                           ratios, ("x",))  # fmt: skip
+    assert not stronger_than_average(flat, ids).any()
+    retention = SimpleNamespace(target="churn")
+    uptake = SimpleNamespace(target="uptake_backup_line")
+    assert harmful(retention, ratios).tolist() == [False] * 7 + [True]
+    assert harmful(uptake, ratios).tolist() == [True] * 6 + [False, False]

@@ -310,10 +310,16 @@ def effect_summary(effects: Mapping[str, CustomerEffects]) -> dict[str, dict[str
 
 
 def stronger_than_average(effect: CustomerEffects, customer_ids) -> pd.Series:
-    """Whether each customer's own effect is clearly stronger than the offer's average: its
-    log hazard ratio at least `STRONGER_BY` further from 0 than the average's, same side."""
+    """Whether each customer responds to the offer more than most: its own effect is among the
+    strongest quarter of the scored customers' (common practice: the top quartile) and its log
+    hazard ratio at least `STRONGER_BY` further from 0 than the average's, on the same side."""
+    everyone = np.log(effect.hazard_ratio.to_numpy(dtype=np.float64))
     ratio = effect.hazard_ratio.reindex(pd.Index(customer_ids)).to_numpy(dtype=np.float64)
     own, average = np.log(ratio), np.log(effect.average_hazard_ratio)
     stronger = effect.varying & (np.sign(own) == np.sign(average))
     stronger &= np.abs(own) >= np.abs(average) + STRONGER_BY
+    if average < 0:
+        stronger &= own <= np.quantile(everyone, 0.25)
+    else:
+        stronger &= own >= np.quantile(everyone, 0.75)
     return pd.Series(stronger, index=pd.Index(customer_ids))
