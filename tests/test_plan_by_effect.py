@@ -340,3 +340,21 @@ def test_harm_and_strong_response_are_read_from_the_own_ratios():
     uptake = SimpleNamespace(target="uptake_backup_line")
     assert harmful(retention, ratios).tolist() == [False] * 7 + [True]
     assert harmful(uptake, ratios).tolist() == [True] * 6 + [False, False]
+
+
+def test_a_campaign_whose_fit_fails_keeps_the_single_ratio(demo_effects, monkeypatch, caplog):
+    """A small campaign can make the interaction fit diverge (lifelines' ConvergenceError,
+    seen on an 800-customer demo): the offer then keeps its single ratio, with a warning."""
+    from lifelines.exceptions import ConvergenceError
+
+    import lifecycle.value
+    from lifecycle.cycle import customer_effects
+
+    _, _, tables, config, offers, panel, snapshot, _ = demo_effects
+
+    def diverge(*args, **kwargs):
+        raise ConvergenceError("delta contains nan value(s). Convergence halted.")
+
+    monkeypatch.setattr(lifecycle.value, "customer_offer_effects", diverge)
+    assert customer_effects(tables, config, offers, snapshot, panel=panel) == {}
+    assert "its single hazard ratio is used (ConvergenceError" in caplog.text
