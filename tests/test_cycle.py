@@ -191,6 +191,9 @@ def test_explain_agrees_with_the_run_for_a_planned_customer(demo, two_months, ca
     for o in offers.values():
         terms = o["value_saved"] + o["uptake_value"] - o["cost"]
         assert o["expected_value"] == pytest.approx(terms, abs=0.011)  # each term to cents
+        # the customer's own effect (or the offer's), as the run wrote it into scores.csv
+        assert o["effect"] == pytest.approx(mine[f"effect_{o['offer']}"], rel=1e-6, abs=1e-12)
+        assert o["hazard_ratio"] > 0 and isinstance(o["own_effect"], bool)
     assert [h["month"] for h in found["history"]] == ["2026-09", "2026-10"]
     assert found["history"][-1]["planned_offer"] == row["offer"]
 

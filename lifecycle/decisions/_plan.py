@@ -508,6 +508,9 @@ def offer_figures(
     - ``"capacity"``: the offer's contacts reached its capacity;
     - ``"budget"``: one more contact of this offer would pass the budget;
     - ``"none"`` otherwise (the solver found no better use).
+
+    `make_plan` then adds ``predicted_harmed``, ``harmed_planned`` and the limit
+    ``"predicted harm"`` (`add_harm_figures`).
     """
     choice = allocation.choice
     spent = float(allocation.budget_used)
