@@ -14,6 +14,7 @@ from types import SimpleNamespace
 import numpy as np
 import pytest
 
+from lifecycle.bench import format_table
 from lifecycle.bench._response import (
     BUDGET_SHARE,
     SUITE,
@@ -77,3 +78,5 @@ def test_response_bench_runs_and_its_notes_add_up(tmp_path):
         values["by effect"] - values["top risk"], abs=1.0
     )
     assert re.search(r"ours -?\d\.\d{3} vs T-learner -?\d\.\d{3}", learner.note)
+    # one time ratio: the T-learner's fits over ours; the selection row takes part in none
+    assert format_table(rows).count("× the time") == 1

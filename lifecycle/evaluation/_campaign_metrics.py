@@ -24,12 +24,14 @@ from dataclasses import dataclass
 
 import numpy as np
 import pandas as pd
+from lifelines.exceptions import ConvergenceError
 from sklearn.model_selection import StratifiedKFold
 
 from .._months import format_month
 from .._warnings import library_warnings
 from ..config import Config, section
 from ..data import Tables
+from ..errors import UsageError
 from ._profit import expected_maximum_profit
 from ._uplift import qini_coefficient
 
@@ -180,7 +182,11 @@ class CampaignQini:
                 where, len(follow), self.settings.qini_min_rows,
             )  # fmt: skip
             return None
-        value = cross_fitted_qini(follow, covariates)
+        try:
+            value = cross_fitted_qini(follow, covariates)
+        except (UsageError, ConvergenceError) as exc:  # e.g. a fold's arm without an event
+            log.warning("%s: the effects could not be learnt (%s): no row", where, exc)
+            return None
         log.info("%s: cross-fitted Qini %.3f on %d customers", where, value, len(follow))
         return dict(
             family=f"{EFFECT_FAMILY_PREFIX}{offer.name}",
@@ -202,8 +208,6 @@ class CampaignQini:
         features = list(self.settings.effect_features)
         missing = [c for c in features if c not in snapshot.columns]
         if missing:
-            from ..errors import UsageError
-
             raise UsageError(
                 f"[evaluation] effect_features names {missing}, which the panel does not have; "
                 f"numeric panel columns are e.g. {list(snapshot.columns[:12])}"
