@@ -304,6 +304,21 @@ _STAGES = (
         Key("effect_features", TEXT_OR_TEXTS, [], "panel columns the own effects are learnt on "
             "(default: every numeric feature except area, nearby, past-offer and season ones)"),
     )),
+    Section("evaluation", "campaign metrics in the backtest (`qini`, `emp`)", (
+        Key("emp_clv", NUMBER, 200.0, "expected maximum profit: lifetime value of a churner "
+            "kept (currency)", above(0)),
+        Key("emp_incentive_cost", NUMBER, 10.0, "expected maximum profit: cost of the "
+            "incentive to a customer who accepts it", at_least(0)),
+        Key("emp_contact_cost", NUMBER, 1.0, "expected maximum profit: cost of one contact",
+            at_least(0)),
+        Key("emp_alpha", NUMBER, 6.0, "expected maximum profit: alpha of the beta law of the "
+            "acceptance rate", above(0)),
+        Key("emp_beta", NUMBER, 14.0, "expected maximum profit: beta of that law", above(0)),
+        Key("qini_min_rows", WHOLE, 200, "fewer customers followed up in a campaign: no "
+            "`qini` row (logged)", at_least(2)),
+        Key("effect_features", TEXTS, [], "numeric panel columns the per-customer offer "
+            "effect is learnt from (none: no `qini` row)", unique()),
+    )),
     Section("forecast", "the uptake forecast", (
         Key("horizon_months", WHOLE, 12, "months forecast", _HORIZON),
         Key("levels", NUMBERS, [0.9], "prediction-interval levels (0.9: lower_90, upper_90)",

@@ -25,6 +25,7 @@ from lifecycle.evaluation import (
     TenureLifeTable,
     backtest,
     champions,
+    expected_maximum_profit,
     observed_outcomes,
     outcome_for_cause,
 )
@@ -279,7 +280,10 @@ def test_backtest_table_has_every_family_cause_horizon_and_metric(result):
     assert scored == {"2025-10": [3, 6, 12], "2026-04": [3, 6]}
     assert set(metrics["cause"]) == {"churn", "move_out", "other_exit", "uptake_gadget"}
     per_cell = metrics.groupby(["family", "cause", "horizon", "cutoff"]).size()
-    assert (per_cell == 7).all() and len(per_cell) == 2 * 4 * 5
+    # seven metrics per cell, and the expected maximum profit (emp) for churn
+    churn_cell = per_cell.index.get_level_values("cause") == "churn"
+    assert (per_cell[~churn_cell] == 7).all() and (per_cell[churn_cell] == 8).all()
+    assert len(per_cell) == 2 * 4 * 5
     churn = metrics[(metrics["cause"] == "churn") & (metrics["metric"] == "uno_c")]
     assert churn["value"].notna().all()
 
@@ -321,6 +325,13 @@ def test_backtest_values_agree_with_sksurv_on_the_same_predictions(portfolio, re
     churn_only = Surv.from_arrays(code == 1, np.where(code == 2, 99.0, months + 0.5 * (code == 0)))
     _, sk = sk_brier_score(churn_only, churn_only, 1.0 - risk.to_numpy()[:, None], [12.0])
     assert m[("logistic", "churn", 12, "2025-10", "brier")] == pytest.approx(sk[0], rel=1e-9)
+    # emp: the churners are the churn exits within 12 months, the measure that of
+    # expected_maximum_profit (checked against empulse's empc_score in test_uplift_metrics.py)
+    # with Verbraken et al. (2013)'s setting: CLV 200, d 10, f 1, Beta(6, 14)
+    churned = ((code == 1) & (months <= 12)).astype(float)
+    emp = expected_maximum_profit(risk.to_numpy(), churned, clv=200, incentive_cost=10,
+                                  contact_cost=1, alpha=6, beta=14)  # fmt: skip
+    assert m[("logistic", "churn", 12, "2025-10", "emp")] == pytest.approx(emp, rel=1e-12)
 
 
 def test_backtest_calibration_tables_and_baseline_calibration(result):

@@ -46,7 +46,7 @@ C_NUMBER = r"([a-z_]+) ([01]\.\d{4})"
 
 
 def test_suites_are_registered():
-    assert {"panel", "spatial", "models", "decisions", "cycle"} == set(SUITES)
+    assert {"panel", "spatial", "models", "decisions", "cycle", "response"} == set(SUITES)
 
 
 # -- models ----------------------------------------------------------------------------------

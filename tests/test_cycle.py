@@ -240,3 +240,21 @@ def test_scores_carry_each_offers_effect_and_the_plan_no_harmed_customer(two_mon
         assert figures["harmed_planned"] == 0 <= figures["predicted_harmed"]
     effects = json.loads(second.files["summary"].read_text())["plan"]["effects"]
     assert "per_customer" in effects["loyalty_credit"] and effects["loyalty_credit"]["reason"]
+
+
+def test_backtest_metrics_hold_the_campaign_metrics(two_months):
+    """emp for every churn cell. qini for the demo's campaign (2025-09, in the follow-up of
+    the 2025-06 cutoff) only where its effects can be learnt: on this 800-customer demo the
+    nine effect features leave the unpenalised fit singular (logged, no row); the row itself
+    is tested in test_campaign_metrics.py and at 20,000 customers by `lifecycle bench
+    response`."""
+    _, first, _ = two_months
+    metrics = pd.read_csv(first.files["backtest"])
+    churn = metrics[metrics["cause"] == "churn"]
+    cells = churn.groupby(["family", "horizon", "cutoff"])["metric"].apply(set)
+    assert all("emp" in found for found in cells)
+    assert metrics.loc[metrics["cause"] != "churn", "metric"].ne("emp").all()
+    qini = metrics[metrics["metric"] == "qini"]
+    assert set(qini["family"]) <= {"offer_effect:loyalty_credit"}
+    assert set(qini["cutoff"]) <= {"2025-06"} and set(qini["horizon"]) <= {6}
+    assert qini["value"].between(-1, 1).all() and (qini["n"] >= 200).all()

@@ -161,6 +161,7 @@ def test_schema_defaults_are_the_readers_defaults():
     from lifecycle.cycle._run import RunSettings
     from lifecycle.decisions import PlanSettings
     from lifecycle.distributed import ComputeSettings
+    from lifecycle.evaluation._campaign_metrics import CampaignMetricSettings
     from lifecycle.forecast._uptake import ForecastSettings
     from lifecycle.value._lifetime import ValueSettings
 
@@ -181,6 +182,7 @@ def test_schema_defaults_are_the_readers_defaults():
         ("compute", ComputeSettings),
         ("plan", PlanSettings),
         ("run", RunSettings),
+        ("evaluation", CampaignMetricSettings),
     ]:
         keys = {k.name for k in BY_NAME[section].keys}
         for name, default in fields(cls).items():
@@ -311,12 +313,14 @@ READERS = {
     "lifecycle/models/_families.py",
     "lifecycle/models/_fittable.py",
     "lifecycle/forecast/_bass.py",
+    "lifecycle/evaluation/_campaign_metrics.py",
 }
 
 
 def test_every_key_the_code_reads_is_in_the_schema(tmp_path, monkeypatch):
     import lifecycle.config as config_module
     from lifecycle.distributed import compute_settings
+    from lifecycle.evaluation._campaign_metrics import campaign_metric_settings
     from lifecycle.forecast._bass import launch_settings
     from lifecycle.models._families import make_model
     from lifecycle.models._fittable import min_events_setting
@@ -340,6 +344,7 @@ def test_every_key_the_code_reads_is_in_the_schema(tmp_path, monkeypatch):
         make_model(family, config)
     compute_settings(config)
     min_events_setting(config)
+    assert campaign_metric_settings(config).qini_min_rows >= 2
     assert launch_settings(config) is not None
     assert len(seen) > 40
     unknown = sorted(p for p in seen if not _in_schema(p))

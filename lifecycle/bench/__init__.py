@@ -24,6 +24,7 @@ DEFAULT_CUSTOMERS = {
     "models": 10_000,
     "decisions": 100_000,
     "cycle": 20_000,
+    "response": 20_000,
 }
 MODELS_MAX_CUSTOMERS = 100_000  # its plain case fits Cox on every row: hours beyond this
 PLAIN_CUSTOMERS = 10_000  # the size at which the slow plain routes run by default
@@ -76,12 +77,19 @@ def _cycle_suite(customers: int | None, months: int) -> list[Measurement]:
     return run_cycle_bench(customers=customers or DEFAULT_CUSTOMERS["cycle"])
 
 
+def _response_suite(customers: int | None, months: int) -> list[Measurement]:
+    from ._response import run_response_bench
+
+    return run_response_bench(customers or DEFAULT_CUSTOMERS["response"])
+
+
 SUITES: dict[str, Callable[[int | None, int], list[Measurement]]] = {
     "panel": _panel_suite,
     "spatial": _spatial_suite,
     "models": _models_suite,
     "decisions": _decisions_suite,
     "cycle": _cycle_suite,
+    "response": _response_suite,
 }
 
 

@@ -26,7 +26,8 @@ class Measurement:
     seconds: float
     peak_mb: float
     note: str = ""
-    role: str = "ours"  # "ours", or "plain": the plain approach that ours is compared with
+    role: str = "ours"  # "ours"; "plain": the plain approach ours is compared with; "figure":
+    # a measured figure that takes part in no time ratio
 
 
 def _child(fn: Callable[..., Any], kwargs: dict[str, Any], queue: mp.Queue) -> None:

@@ -19,6 +19,7 @@ import geopandas as gpd
 import pandas as pd
 
 from ..errors import UsageError
+from ._effect_truth import TRUE_EFFECT_COLUMNS, true_offer_effect
 from ._simulate import simulate
 from ._tables import build_tables
 from ._truth import build_truth, config_text, readme_text, truth_json
@@ -27,10 +28,12 @@ from ._yardstick import TrueIncidence, true_incidence
 
 __all__ = [
     "DEMO_FILES",
+    "TRUE_EFFECT_COLUMNS",
     "DemoScenario",
     "TrueIncidence",
     "simulate_demo",
     "true_incidence",
+    "true_offer_effect",
     "write_demo",
 ]
 

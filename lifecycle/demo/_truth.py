@@ -313,6 +313,14 @@ not_holding = "{P.PRODUCT}"
 budget = 15000.0
 weeks = 4
 
+# What the per-customer effect of a past offer is learnt from, for the backtest's Qini
+# coefficient (the features known when the offer was made).
+[evaluation]
+effect_features = [
+    "contract_ending", "contract_months_left", "tenure_start", "complaints_3m", "late_payment",
+    "bill_shock", "monthly_margin", "rental_share", "holds_{P.PRODUCT}",
+]
+
 # The backtest and the models are redone every third month; between, the last ones are reused.
 [run]
 families = ["cox", "boosted", "forest"]

@@ -4,6 +4,11 @@ the Qini curve and the expected maximum profit measure for campaigns."""
 from ._backtest import BacktestResult, backtest, champions
 from ._baseline import TenureLifeTable
 from ._calibration import calibration_table, lift_and_capture
+from ._campaign_metrics import (
+    CampaignMetricSettings,
+    campaign_metric_settings,
+    cross_fitted_qini,
+)
 from ._choice import CHOICE_COLUMNS, DEFAULT_SWITCH_MARGIN, choose_champions
 from ._metrics import CensoringCurve, brier_score, time_dependent_auc, uno_concordance
 from ._outcomes import CENSORED, COMPETING, EVENT, observed_outcomes, outcome_for_cause
@@ -24,14 +29,17 @@ __all__ = [
     "EVENT",
     "QINI_COLUMNS",
     "BacktestResult",
+    "CampaignMetricSettings",
     "CensoringCurve",
     "LogrankResult",
     "TenureLifeTable",
     "backtest",
     "brier_score",
     "calibration_table",
+    "campaign_metric_settings",
     "champions",
     "choose_champions",
+    "cross_fitted_qini",
     "expected_maximum_profit",
     "harrell_concordance",
     "integrated_brier_score",

@@ -18,6 +18,12 @@ from ..errors import UsageError
 from ..models import HazardModel, check_fittable, incidence_from_hazards
 from ..panel import build_panel, build_snapshot, panel_layout
 from ._calibration import calibration_table, lift_from_tables
+from ._campaign_metrics import (
+    CampaignMetricSettings,
+    CampaignQini,
+    campaign_metric_settings,
+    churn_emp,
+)
 from ._metrics import brier_score, time_dependent_auc, uno_concordance
 from ._outcomes import EVENT, observed_outcomes, outcome_for_cause
 
@@ -48,7 +54,13 @@ class BacktestResult:
         ``n`` (customers evaluated), ``events`` (events of the cause within the horizon). The
         metrics are ``uno_c``, ``auc``, ``brier``, ``lift_top_decile``, ``capture_top_decile``,
         ``mean_predicted`` and ``observed`` (mean predicted and Aalen–Johansen observed
-        cumulative incidence at the horizon).
+        cumulative incidence at the horizon); for the ``churn`` cause also ``emp``, the
+        expected maximum profit per customer of the churn scores (`expected_maximum_profit`
+        with the ``[evaluation]`` money settings). A past randomised campaign whose offer
+        month lies in a cutoff's outcome window adds a ``qini`` row for the family
+        ``offer_effect:<offer>`` (the offer's target cause, the horizon of its effect window):
+        the cross-fitted Qini coefficient of the per-customer effects learnt from the
+        ``[evaluation] effect_features`` (`lifecycle.evaluation._campaign_metrics`).
     champions
         Per cause: the ``family`` with the best mean ``uno_c`` over the cutoffs at the
         ``horizon`` used (12 months, else the largest evaluated), ties broken by the lower mean
@@ -137,7 +149,8 @@ def backtest(
     families = _checked_families(families)
     horizons, cutoffs = _checked_times(tables, horizons, cutoffs)
     build_panel_fn, build_snapshot_fn = _builders(build_panel_fn, build_snapshot_fn)
-    found = _Collected()
+    found = _Collected(settings=campaign_metric_settings(config))
+    campaigns = CampaignQini(tables, config, found.settings, build_snapshot_fn)
     for cutoff in cutoffs:
         usable, panel, snapshot, outcomes = _cutoff_data(
             tables, cutoff, horizons, config, build_panel_fn, build_snapshot_fn, min_events
@@ -150,6 +163,7 @@ def backtest(
                 name, family, cutoff, usable, panel, snapshot, outcomes, after_fit,
                 after_fit_months,
             )  # fmt: skip
+        found.rows.extend(campaigns.rows(cutoff, usable))
     return found.result()
 
 
@@ -217,6 +231,7 @@ class _Collected:
     calibrations: list[pd.DataFrame] = field(default_factory=list)
     importances: dict[str, pd.DataFrame] = field(default_factory=dict)
     forecasts: list[pd.DataFrame] = field(default_factory=list)
+    settings: CampaignMetricSettings = field(default_factory=CampaignMetricSettings)
 
     def fit_family(
         self,
@@ -266,6 +281,10 @@ class _Collected:
                 values, calibration = _score(
                     months[at_risk], code[at_risk], array[at_risk, h - 1, j], h
                 )
+                if cause == "churn":
+                    values["emp"] = churn_emp(
+                        array[at_risk, h - 1, j], code[at_risk], months[at_risk], h, self.settings
+                    )
                 n = int(at_risk.sum())
                 events = int(np.sum((code[at_risk] == EVENT) & (months[at_risk] <= h)))
                 for metric, value in values.items():
@@ -315,6 +334,7 @@ def champions(metrics: pd.DataFrame) -> pd.DataFrame:
         ``cause``, ``family``, ``horizon``, ``uno_c``, ``brier``.
     """
     columns = ["cause", "family", "horizon", "uno_c", "brier"]
+    metrics = metrics[metrics["metric"].isin(METRICS)]  # the offer-effect rows hold no family
     if metrics.empty:
         return pd.DataFrame(columns=columns)
     out = []

@@ -27,6 +27,8 @@ METRIC_NAMES = {
     "capture_top_decile": "capture, top 10 %",
     "mean_predicted": "mean predicted",
     "observed": "observed",
+    "emp": "expected max. profit",
+    "qini": "Qini",
 }
 
 
