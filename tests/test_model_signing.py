@@ -114,7 +114,8 @@ def test_the_allow_list_admits_every_family():
     names = [
         ("lifecycle.models._champion", "ChampionModel"), ("lifecycle.models._cox", "_CauseFit"),
         ("lifecycle.models._forest", "_Encoder"), ("lifecycle.models._design", "CovariateDesign"),
-        ("lifecycle.evaluation._baseline", "TenureLifeTable"), ("numpy", "dtype"),
+        ("lifecycle.evaluation._baseline", "TenureLifeTable"),
+        ("lifecycle.models._life_table", "TenureLifeTable"), ("numpy", "dtype"),
         ("numpy._core.multiarray", "_reconstruct"), ("numpy.random._pickle", "__generator_ctor"),
         ("numpy.random.bit_generator", "__pyx_unpickle_SeedSequence"),
         ("pandas._libs.internals", "_unpickle_block"), ("pandas.core.indexes.base", "_new_Index"),
