@@ -113,7 +113,11 @@ def test_the_allow_list_admits_every_family():
 
     names = [
         ("lifecycle.models._champion", "ChampionModel"), ("lifecycle.models._cox", "_CauseFit"),
-        ("lifecycle.models._forest", "_Encoder"), ("lifecycle.models._design", "CovariateDesign"),
+        ("lifecycle.models._forest", "GrownForest"),
+        ("lifecycle.models._design", "CovariateDesign"),
+        ("sklearn.compose._column_transformer", "ColumnTransformer"),
+        ("sklearn.impute._base", "SimpleImputer"), ("sklearn.impute._base", "MissingIndicator"),
+        ("sklearn.preprocessing._encoders", "OneHotEncoder"),
         ("lifecycle.evaluation._baseline", "TenureLifeTable"),
         ("lifecycle.models._life_table", "TenureLifeTable"), ("numpy", "dtype"),
         ("numpy._core.multiarray", "_reconstruct"), ("numpy.random._pickle", "__generator_ctor"),
