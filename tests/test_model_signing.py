@@ -21,7 +21,7 @@ import pytest
 from lifecycle.cli import main
 from lifecycle.errors import ModelFileError, UsageError
 from lifecycle.models import load_model, save_model
-from lifecycle.models._persist import SIGNATURE, verify_model_folder
+from lifecycle.models._persist import MODEL_FORMAT, SIGNATURE, verify_model_folder
 from lifecycle.models._signing import KEY_ENV, KEY_FILE_ENV, sign, signing_key
 from lifecycle.panel import build_panel
 from tests._builders import make_tables
@@ -259,3 +259,23 @@ def test_a_short_key_in_the_environment_is_refused(monkeypatch):
     monkeypatch.setenv(KEY_ENV, "short")
     with pytest.raises(UsageError, match="at least 32"):
         signing_key()
+
+
+@pytest.mark.parametrize("old", [None, 1])
+def test_a_model_in_the_old_file_format_is_refused_with_refit(saved, tmp_path, capsys, old):
+    """A manifest of format 1 (written before the format key existed, or saying 1), correctly
+    signed, is refused before unpickling; the command line exits 2 and writes nothing."""
+    manifest = json.loads((saved / "manifest.json").read_text())
+    assert manifest["format"] == MODEL_FORMAT == 2
+    if old is None:
+        del manifest["format"]
+    else:
+        manifest["format"] = old
+    (saved / "manifest.json").write_text(json.dumps(manifest, indent=2, sort_keys=True) + "\n")
+    _resign(saved)
+    with pytest.raises(ModelFileError, match=r"model file format 1.*Refit the model"):
+        load_model(saved, trusted_modules=("tests",))
+    out = tmp_path / "scores.csv"
+    args = ["score", str(tmp_path / "no-data"), "--model", str(saved), "--as-of", "2026-10"]
+    assert main([*args, "--out", str(out)]) == 2
+    assert "format 1" in capsys.readouterr().err and not out.exists()

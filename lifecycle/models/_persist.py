@@ -33,6 +33,10 @@ log = logging.getLogger(__name__)
 MANIFEST = "manifest.json"
 SIGNATURE = "manifest.sig"
 MODEL_FILE = "model.joblib"
+#: The model file format this version writes and reads. Format 2: the covariate encoder of
+#: every family is `CovariateDesign` on scikit-learn's transformers (format 1, the manifests
+#: without a ``format`` key, held hand-written encoders and the library's forest objects).
+MODEL_FORMAT = 2
 # The distribution is published as "lifecycle-hazards" ("lifecycle" on the package index is
 # an unrelated project); the manifest records its version under the import name.
 DISTRIBUTION = "lifecycle-hazards"
@@ -94,6 +98,7 @@ def save_model(
     if isinstance(coefficients, pd.DataFrame):
         files["coefficients.csv"] = write_csv_atomic(folder / "coefficients.csv", coefficients)
     manifest = {
+        "format": MODEL_FORMAT,
         "family": family,
         "class": f"{type(model).__module__}.{type(model).__qualname__}",
         "causes": list(model.causes_),
@@ -162,6 +167,7 @@ def verify_model_folder(folder: str | Path) -> dict:
         raise ModelFileError(f"{folder} holds no {MANIFEST}; it is not a saved lifecycle model")
     data = path.read_bytes()
     manifest = _parse_manifest(data, path)
+    _check_format(manifest, path)
     sig = folder / SIGNATURE
     if not sig.is_file():
         raise ModelFileError(
@@ -192,6 +198,17 @@ def verify_model_folder(folder: str | Path) -> dict:
             )
     _compare_versions(manifest["versions"], path)
     return manifest
+
+
+def _check_format(manifest: dict, path: Path) -> None:
+    """`ModelFileError` unless the model was saved in this version's `MODEL_FORMAT`."""
+    saved = manifest.get("format", 1)
+    if saved != MODEL_FORMAT:
+        raise ModelFileError(
+            f"{path} was saved in model file format {saved!r}, but this version of lifecycle "
+            f"reads format {MODEL_FORMAT} only (the covariate encoding changed); the model was "
+            "not loaded. Refit the model (lifecycle fit, or lifecycle run)"
+        )
 
 
 def _compare_versions(saved: dict, path: Path) -> None:
