@@ -12,9 +12,9 @@ import hmac
 import json
 import logging
 import os
+import pickle
 import stat
 
-import joblib
 import numpy as np
 import pytest
 
@@ -48,11 +48,11 @@ def saved(tmp_path):
 
 def _plant(folder, marker, *, update_hash=True):
     """Replace the model with the payload; update the manifest's hash as an attacker would."""
-    joblib.dump(Payload(marker), folder / "model.joblib")
+    (folder / "model.pickle").write_bytes(pickle.dumps(Payload(marker)))
     if update_hash:
         manifest = json.loads((folder / "manifest.json").read_text())
-        digest = hashlib.sha256((folder / "model.joblib").read_bytes()).hexdigest()
-        manifest["files"]["model.joblib"] = digest
+        digest = hashlib.sha256((folder / "model.pickle").read_bytes()).hexdigest()
+        manifest["files"]["model.pickle"] = digest
         (folder / "manifest.json").write_text(json.dumps(manifest, indent=2, sort_keys=True) + "\n")
 
 
@@ -68,10 +68,10 @@ def test_the_signature_is_hmac_sha256_of_the_manifest(saved):
 
 
 def test_the_planted_payload_is_live(saved, tmp_path):
-    """The control: plain ``joblib.load`` runs the payload and creates the marker."""
+    """The control: plain ``pickle.loads`` runs the payload and creates the marker."""
     marker = tmp_path / "ran"
     _plant(saved, marker)
-    joblib.load(saved / "model.joblib")
+    pickle.loads((saved / "model.pickle").read_bytes())
     assert marker.exists()
 
 
@@ -94,10 +94,10 @@ def test_even_a_signed_payload_is_refused_by_the_allow_list(saved, tmp_path, tar
         def __reduce__(self):
             return (func, (argument.format(m=str(marker)),))
 
-    joblib.dump(Other(), saved / "model.joblib")
+    (saved / "model.pickle").write_bytes(pickle.dumps(Other()))
     manifest = json.loads((saved / "manifest.json").read_text())
-    manifest["files"]["model.joblib"] = hashlib.sha256(
-        (saved / "model.joblib").read_bytes()
+    manifest["files"]["model.pickle"] = hashlib.sha256(
+        (saved / "model.pickle").read_bytes()
     ).hexdigest()
     (saved / "manifest.json").write_text(json.dumps(manifest, indent=2, sort_keys=True) + "\n")
     _resign(saved)
@@ -107,7 +107,7 @@ def test_even_a_signed_payload_is_refused_by_the_allow_list(saved, tmp_path, tar
 
 
 def test_the_allow_list_admits_every_family():
-    """Every class the three families and the champion pickle (listed by recording joblib's
+    """Every class the three families and the champion pickle (listed by recording the
     unpickler on fitted models of each family) is allowed."""
     from lifecycle.models._unpickle import allowed
 
@@ -125,7 +125,7 @@ def test_the_allow_list_admits_every_family():
         ("pandas._libs.internals", "_unpickle_block"), ("pandas.core.indexes.base", "_new_Index"),
         ("sklearn._loss._loss", "__pyx_unpickle_CyHalfMultinomialLoss"),
         ("sklearn.utils.validation", "check_array"), ("sksurv.tree.tree", "SurvivalTree"),
-        ("joblib.numpy_pickle", "NumpyArrayWrapper"), ("functools", "partial"),
+        ("functools", "partial"),
         ("builtins", "slice"),
     ]  # fmt: skip
     assert [n for n in names if not allowed(*n)] == []
@@ -179,7 +179,7 @@ def test_a_malformed_manifest_is_a_model_file_error_with_exit_2(
     path = saved / "manifest.json"
     if text is None:
         manifest = json.loads(path.read_text())
-        manifest["files"] = ["model.joblib"]
+        manifest["files"] = ["model.pickle"]
         text = json.dumps(manifest)
     path.write_bytes(text.encode("latin-1"))
     with pytest.raises(ModelFileError, match=message):
@@ -195,7 +195,7 @@ def test_a_malformed_manifest_is_a_model_file_error_with_exit_2(
 
 
 @pytest.mark.parametrize(
-    "bad", [{"model.joblib": "abc"}, {"../x": "0" * 64, "model.joblib": "0" * 64}]
+    "bad", [{"model.pickle": "abc"}, {"../x": "0" * 64, "model.pickle": "0" * 64}]
 )
 def test_manifest_file_entries_must_be_names_with_hashes(saved, bad):
     manifest = json.loads((saved / "manifest.json").read_text())
