@@ -115,6 +115,7 @@ def test_the_allow_list_admits_every_family():
         ("lifecycle.models._champion", "ChampionModel"), ("lifecycle.models._cox", "_CauseFit"),
         ("lifecycle.models._forest", "GrownForest"),
         ("lifecycle.models._design", "CovariateDesign"),
+        ("lifecycle.models._design", "observed_median"),
         ("sklearn.compose._column_transformer", "ColumnTransformer"),
         ("sklearn.impute._base", "SimpleImputer"), ("sklearn.impute._base", "MissingIndicator"),
         ("sklearn.preprocessing._encoders", "OneHotEncoder"),

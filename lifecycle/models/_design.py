@@ -109,8 +109,9 @@ class CovariateDesign:
         numeric = [c for c in self.columns_ if c not in self.levels_]
         codes = self._kept_codes()
         encoded = [c for c in self.levels_ if codes[c].size]
-        gaps = [c for c in self.levels_ if prepared[c].isna().any()]
-        self.transformer_ = _transformer(numeric, encoded, gaps, codes)
+        where = {c: j for j, c in enumerate(self.columns_)}
+        gaps = [c for c in self.levels_ if np.isnan(prepared[:, where[c]]).any()]
+        self.transformer_ = _transformer(numeric, encoded, gaps, codes, where)
         wide = self._wide(prepared, fit=True)
         self.medians_, with_gaps = _numeric_learned(self.transformer_, numeric)
         self.missing_indicators_ = tuple(c for c in self.columns_ if c in with_gaps or c in gaps)
@@ -161,7 +162,7 @@ class CovariateDesign:
         first = 1 if self.reference_level else 0
         return {c: np.arange(first, len(v), dtype=np.float64) for c, v in self.levels_.items()}
 
-    def _prepare(self, frame: pd.DataFrame, step: str) -> pd.DataFrame:
+    def _prepare(self, frame: pd.DataFrame, step: str) -> np.ndarray:
         """Numeric columns as float64 (NaN where missing), categorical ones as level codes
         (NaN where missing, −1 for a level not kept), for the scikit-learn transformers."""
         ids = (
@@ -169,14 +170,14 @@ class CovariateDesign:
             if "customer_id" in frame.columns
             else np.arange(len(frame))
         )
-        out = {}
-        for column in self.columns_:
+        out = np.empty((len(frame), len(self.columns_)), order="F")
+        for j, column in enumerate(self.columns_):
             values = _column(frame, column, step)
             if column in self.levels_:
-                out[column] = self._codes(values, column, step)
+                out[:, j] = self._codes(values, column, step)
             else:
-                out[column] = _as_float(values, column, ids)
-        return pd.DataFrame(out, index=pd.RangeIndex(len(frame)), columns=list(self.columns_))
+                out[:, j] = _as_float(values, column, ids)
+        return out
 
     def _codes(self, values: pd.Series, column: str, step: str) -> np.ndarray:
         levels = self.levels_[column]
@@ -197,7 +198,7 @@ class CovariateDesign:
         codes[missing] = np.nan
         return codes
 
-    def _wide(self, prepared: pd.DataFrame, *, fit: bool) -> np.ndarray:
+    def _wide(self, prepared: np.ndarray, *, fit: bool) -> np.ndarray:
         if self.transformer_ is None:
             return np.empty((len(prepared), 0))
         if fit:
@@ -229,24 +230,36 @@ class CovariateDesign:
 
 
 def _transformer(
-    numeric: list[str], encoded: list[str], gaps: list[str], codes: dict[str, np.ndarray]
+    numeric: list[str],
+    encoded: list[str],
+    gaps: list[str],
+    codes: dict[str, np.ndarray],
+    where: dict[str, int],
 ) -> ColumnTransformer | None:
-    """scikit-learn's transformers: median imputation with indicators of the columns that had
-    gaps, one-hot coding of the kept level codes (any other code: all zeros), and indicators
-    of categorical gaps."""
+    """scikit-learn's transformers: median imputation (`observed_median`) with indicators of
+    the columns that had gaps, one-hot coding of the kept level codes (any other code: all
+    zeros), and indicators of categorical gaps."""
     parts = []
     if numeric:
-        imputer = SimpleImputer(strategy="median", add_indicator=True, keep_empty_features=True)
-        parts.append(("numbers", imputer, numeric))
+        imputer = SimpleImputer(
+            strategy=observed_median, add_indicator=True, keep_empty_features=True
+        )
+        parts.append(("numbers", imputer, [where[c] for c in numeric]))
     if encoded:
         categories = [codes[c] for c in encoded]
         onehot = OneHotEncoder(categories=categories, handle_unknown="ignore", sparse_output=False)
-        parts.append(("levels", onehot, encoded))
+        parts.append(("levels", onehot, [where[c] for c in encoded]))
     if gaps:
-        parts.append(("gaps", MissingIndicator(features="missing-only"), gaps))
+        parts.append(("gaps", MissingIndicator(features="missing-only"), [where[c] for c in gaps]))
     if not parts:
         return None
     return ColumnTransformer(parts, sparse_threshold=0, verbose_feature_names_out=False)
+
+
+def observed_median(values: np.ndarray) -> float:
+    """The median of a column's observed values, 0 when there is none: the imputer's statistic
+    (scikit-learn's own ``strategy="median"`` sorts a masked array, several times slower)."""
+    return float(np.median(values)) if values.size else 0.0
 
 
 def _numeric_learned(transformer: ColumnTransformer | None, numeric: list[str]):
@@ -261,10 +274,7 @@ def _numeric_learned(transformer: ColumnTransformer | None, numeric: list[str]):
 
 def _reordered(wide: np.ndarray, order: np.ndarray) -> np.ndarray:
     """The columns ``order`` of ``wide`` as one column-major float64 matrix."""
-    out = np.empty((wide.shape[0], order.size), dtype=np.float64, order="F")
-    for j, position in enumerate(order):
-        out[:, j] = wide[:, position]
-    return out
+    return np.asfortranarray(wide[:, order], dtype=np.float64)
 
 
 def _column(frame: pd.DataFrame, column: str, step: str) -> pd.Series:
