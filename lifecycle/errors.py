@@ -121,7 +121,8 @@ class InputError(LifecycleError):
 
 class ModelFileError(LifecycleError):
     """Raised when a saved model folder is incomplete or a file's SHA-256 does not match its
-    manifest; such a file is never loaded, because loading a joblib file runs code."""
+    manifest, or the model was saved in an older file format; such a file is never loaded, because
+    loading a pickle file runs code."""
 
 
 class RunLockedError(UsageError):

@@ -46,7 +46,9 @@ C_NUMBER = r"([a-z_]+) ([01]\.\d{4})"
 
 
 def test_suites_are_registered():
-    assert {"panel", "spatial", "models", "decisions", "cycle", "response"} == set(SUITES)
+    assert {"panel", "spatial", "models", "decisions", "metrics", "cycle", "response"} == set(
+        SUITES
+    )
 
 
 # -- models ----------------------------------------------------------------------------------
@@ -253,3 +255,17 @@ def test_cycle_bench_routes_agree():
     ratio = float(re.search(r"([\d.]+)× the time", goals[1]).group(1))
     assert ratio == pytest.approx(dask.seconds / single.seconds, abs=0.006)
     assert "whole-cycle goals" in format_table([single, dask])
+
+
+def test_metrics_bench_runs_and_the_two_aucs_agree():
+    """The metrics suite at a small size: ours and scikit-survival's cumulative_dynamic_auc
+    (the reference library) side by side, their AUCs equal (its note's largest difference)."""
+    from lifecycle.bench import format_table
+    from lifecycle.bench._metrics import run_metrics_bench
+
+    ours, plain = run_metrics_bench((3_000,))
+    assert (ours.role, plain.role) == ("ours", "plain") and ours.size == plain.size
+    gap = float(plain.note.rsplit("|ΔAUC| ", 1)[1])
+    assert gap <= 1e-12
+    assert ours.note.split(";")[0] == plain.note.split(";")[0]  # the same mean AUC
+    assert "sksurv cumulative_dynamic_auc / time_dependent_auc" in format_table([ours, plain])

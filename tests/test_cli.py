@@ -123,7 +123,7 @@ def test_model_commands_on_a_small_demo(tmp_path, capsys):
     assert set(pd.read_csv(backtest)["family"]) == {"boosted", "life_table"}
     capsys.readouterr()
 
-    with open(model / "model.joblib", "ab") as handle:
+    with open(model / "model.pickle", "ab") as handle:
         handle.write(b"\0")
     refused = tmp_path / "refused.csv"
     assert main(["score", *common, "--model", str(model), "--out", str(refused)]) == 2

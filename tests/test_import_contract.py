@@ -89,3 +89,33 @@ def test_the_check_finds_every_form_of_reaching_in():
         "lifecycle.cycle._probe:7: imports lifecycle.spatial._crs",
         "lifecycle.cycle._probe:8: imports lifecycle.report._sections_cohorts",
     ]
+
+
+# import name → distribution name, where they differ
+_DISTRIBUTIONS = {"sklearn": "scikit-learn", "sksurv": "scikit-survival", "dask": "dask"}
+
+
+def test_every_library_imported_at_run_time_is_declared():
+    """Each third-party module the package imports (at the top or inside a function) is a
+    dependency in pyproject.toml, with a lower bound (the optional ``distributed`` extra for
+    dask)."""
+    import sys
+    import tomllib
+
+    project = tomllib.loads((ROOT.parent / "pyproject.toml").read_text())["project"]
+    declared = {}
+    for spec in [*project["dependencies"], *project["optional-dependencies"]["distributed"]]:
+        name = spec.split(">")[0].split("[")[0].split("<")[0].split("=")[0].strip()
+        declared[name] = spec
+    imported = set()
+    for path in ROOT.rglob("*.py"):
+        for node in ast.walk(ast.parse(path.read_text(encoding="utf-8"))):
+            if isinstance(node, ast.Import):
+                imported |= {alias.name.split(".")[0] for alias in node.names}
+            elif isinstance(node, ast.ImportFrom) and node.level == 0 and node.module:
+                imported.add(node.module.split(".")[0])
+    third_party = {m for m in imported if m not in sys.stdlib_module_names and m != "lifecycle"}
+    missing = sorted(m for m in third_party if _DISTRIBUTIONS.get(m, m) not in declared)
+    assert missing == [], f"imported but not declared in pyproject.toml: {missing}"
+    unbounded = sorted(m for m in third_party if ">=" not in declared[_DISTRIBUTIONS.get(m, m)])
+    assert unbounded == [], f"declared without a lower bound: {unbounded}"

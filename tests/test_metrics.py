@@ -188,6 +188,21 @@ def test_time_dependent_auc_on_gbsg2_equals_sksurv():
     assert ours_mean == pytest.approx(expected_mean, rel=1e-12)
 
 
+@pytest.mark.parametrize("cause", [1, 2])
+def test_time_dependent_auc_with_competing_causes_equals_sksurv_at_10k_rows(cause):
+    """The bench's input at 10,000 rows (three causes, per-month risks with ties): the events
+    of the other causes censor, as sksurv.metrics.cumulative_dynamic_auc (the reference)
+    computes it when given the cause's events as its event flag."""
+    from lifecycle.bench._metrics import TIMES, auc_input
+
+    months, event, risk = auc_input(10_000, seed=3)
+    ours, ours_mean = time_dependent_auc(months, event, risk, TIMES, cause=cause)
+    outcomes = _sk(months, event == cause)
+    expected, expected_mean = cumulative_dynamic_auc(outcomes, outcomes, risk, TIMES)
+    np.testing.assert_allclose(ours, expected, rtol=1e-12)
+    assert ours_mean == pytest.approx(expected_mean, rel=1e-12)
+
+
 def test_time_dependent_auc_refuses_times_outside_follow_up():
     with pytest.raises(UsageError, match="within the follow-up"):
         time_dependent_auc([1.0, 2.0, 3.0], [1, 0, 1], [0.1, 0.2, 0.3], [3.0])

@@ -44,7 +44,7 @@ def test_save_then_load_round_trip_and_manifest(tables, tmp_path):
         model, tmp_path / "m", training_window=("2022-11", "2026-10"), family="test"
     )
     manifest = json.loads((folder / "manifest.json").read_text())
-    assert set(manifest["files"]) == {"model.joblib"}
+    assert set(manifest["files"]) == {"model.pickle"}
     assert manifest["causes"] == ["churn", "move_out", "other_exit", "uptake_gadget"]
     assert manifest["training_window"] == {"first_month": "2022-11", "last_month": "2026-10"}
     loaded = load_model(folder, trusted_modules=("tests",))
@@ -56,7 +56,7 @@ def test_a_changed_model_file_is_refused_before_loading(tables, tmp_path):
     folder = save_model(
         model, tmp_path / "m", training_window=("2022-11", "2026-10"), family="test"
     )
-    with open(folder / "model.joblib", "ab") as handle:
+    with open(folder / "model.pickle", "ab") as handle:
         handle.write(b"\0")
     with pytest.raises(ModelFileError, match=r"SHA-256.*will not be loaded"):
         load_model(folder, trusted_modules=("tests",))

@@ -12,16 +12,16 @@ import hmac
 import json
 import logging
 import os
+import pickle
 import stat
 
-import joblib
 import numpy as np
 import pytest
 
 from lifecycle.cli import main
 from lifecycle.errors import ModelFileError, UsageError
 from lifecycle.models import load_model, save_model
-from lifecycle.models._persist import SIGNATURE, verify_model_folder
+from lifecycle.models._persist import MODEL_FORMAT, SIGNATURE, verify_model_folder
 from lifecycle.models._signing import KEY_ENV, KEY_FILE_ENV, sign, signing_key
 from lifecycle.panel import build_panel
 from tests._builders import make_tables
@@ -48,11 +48,11 @@ def saved(tmp_path):
 
 def _plant(folder, marker, *, update_hash=True):
     """Replace the model with the payload; update the manifest's hash as an attacker would."""
-    joblib.dump(Payload(marker), folder / "model.joblib")
+    (folder / "model.pickle").write_bytes(pickle.dumps(Payload(marker)))
     if update_hash:
         manifest = json.loads((folder / "manifest.json").read_text())
-        digest = hashlib.sha256((folder / "model.joblib").read_bytes()).hexdigest()
-        manifest["files"]["model.joblib"] = digest
+        digest = hashlib.sha256((folder / "model.pickle").read_bytes()).hexdigest()
+        manifest["files"]["model.pickle"] = digest
         (folder / "manifest.json").write_text(json.dumps(manifest, indent=2, sort_keys=True) + "\n")
 
 
@@ -68,10 +68,10 @@ def test_the_signature_is_hmac_sha256_of_the_manifest(saved):
 
 
 def test_the_planted_payload_is_live(saved, tmp_path):
-    """The control: plain ``joblib.load`` runs the payload and creates the marker."""
+    """The control: plain ``pickle.loads`` runs the payload and creates the marker."""
     marker = tmp_path / "ran"
     _plant(saved, marker)
-    joblib.load(saved / "model.joblib")
+    pickle.loads((saved / "model.pickle").read_bytes())
     assert marker.exists()
 
 
@@ -94,10 +94,10 @@ def test_even_a_signed_payload_is_refused_by_the_allow_list(saved, tmp_path, tar
         def __reduce__(self):
             return (func, (argument.format(m=str(marker)),))
 
-    joblib.dump(Other(), saved / "model.joblib")
+    (saved / "model.pickle").write_bytes(pickle.dumps(Other()))
     manifest = json.loads((saved / "manifest.json").read_text())
-    manifest["files"]["model.joblib"] = hashlib.sha256(
-        (saved / "model.joblib").read_bytes()
+    manifest["files"]["model.pickle"] = hashlib.sha256(
+        (saved / "model.pickle").read_bytes()
     ).hexdigest()
     (saved / "manifest.json").write_text(json.dumps(manifest, indent=2, sort_keys=True) + "\n")
     _resign(saved)
@@ -107,20 +107,26 @@ def test_even_a_signed_payload_is_refused_by_the_allow_list(saved, tmp_path, tar
 
 
 def test_the_allow_list_admits_every_family():
-    """Every class the three families and the champion pickle (listed by recording joblib's
+    """Every class the three families and the champion pickle (listed by recording the
     unpickler on fitted models of each family) is allowed."""
     from lifecycle.models._unpickle import allowed
 
     names = [
         ("lifecycle.models._champion", "ChampionModel"), ("lifecycle.models._cox", "_CauseFit"),
-        ("lifecycle.models._forest", "_Encoder"), ("lifecycle.models._design", "CovariateDesign"),
-        ("lifecycle.evaluation._baseline", "TenureLifeTable"), ("numpy", "dtype"),
+        ("lifecycle.models._forest", "GrownForest"),
+        ("lifecycle.models._design", "CovariateDesign"),
+        ("lifecycle.models._design", "observed_median"),
+        ("sklearn.compose._column_transformer", "ColumnTransformer"),
+        ("sklearn.impute._base", "SimpleImputer"), ("sklearn.impute._base", "MissingIndicator"),
+        ("sklearn.preprocessing._encoders", "OneHotEncoder"),
+        ("lifecycle.evaluation._baseline", "TenureLifeTable"),
+        ("lifecycle.models._life_table", "TenureLifeTable"), ("numpy", "dtype"),
         ("numpy._core.multiarray", "_reconstruct"), ("numpy.random._pickle", "__generator_ctor"),
         ("numpy.random.bit_generator", "__pyx_unpickle_SeedSequence"),
         ("pandas._libs.internals", "_unpickle_block"), ("pandas.core.indexes.base", "_new_Index"),
         ("sklearn._loss._loss", "__pyx_unpickle_CyHalfMultinomialLoss"),
         ("sklearn.utils.validation", "check_array"), ("sksurv.tree.tree", "SurvivalTree"),
-        ("joblib.numpy_pickle", "NumpyArrayWrapper"), ("functools", "partial"),
+        ("functools", "partial"),
         ("builtins", "slice"),
     ]  # fmt: skip
     assert [n for n in names if not allowed(*n)] == []
@@ -174,7 +180,7 @@ def test_a_malformed_manifest_is_a_model_file_error_with_exit_2(
     path = saved / "manifest.json"
     if text is None:
         manifest = json.loads(path.read_text())
-        manifest["files"] = ["model.joblib"]
+        manifest["files"] = ["model.pickle"]
         text = json.dumps(manifest)
     path.write_bytes(text.encode("latin-1"))
     with pytest.raises(ModelFileError, match=message):
@@ -190,7 +196,7 @@ def test_a_malformed_manifest_is_a_model_file_error_with_exit_2(
 
 
 @pytest.mark.parametrize(
-    "bad", [{"model.joblib": "abc"}, {"../x": "0" * 64, "model.joblib": "0" * 64}]
+    "bad", [{"model.pickle": "abc"}, {"../x": "0" * 64, "model.pickle": "0" * 64}]
 )
 def test_manifest_file_entries_must_be_names_with_hashes(saved, bad):
     manifest = json.loads((saved / "manifest.json").read_text())
@@ -254,3 +260,23 @@ def test_a_short_key_in_the_environment_is_refused(monkeypatch):
     monkeypatch.setenv(KEY_ENV, "short")
     with pytest.raises(UsageError, match="at least 32"):
         signing_key()
+
+
+@pytest.mark.parametrize("old", [None, 1])
+def test_a_model_in_the_old_file_format_is_refused_with_refit(saved, tmp_path, capsys, old):
+    """A manifest of format 1 (written before the format key existed, or saying 1), correctly
+    signed, is refused before unpickling; the command line exits 2 and writes nothing."""
+    manifest = json.loads((saved / "manifest.json").read_text())
+    assert manifest["format"] == MODEL_FORMAT == 2
+    if old is None:
+        del manifest["format"]
+    else:
+        manifest["format"] = old
+    (saved / "manifest.json").write_text(json.dumps(manifest, indent=2, sort_keys=True) + "\n")
+    _resign(saved)
+    with pytest.raises(ModelFileError, match=r"model file format 1.*Refit the model"):
+        load_model(saved, trusted_modules=("tests",))
+    out = tmp_path / "scores.csv"
+    args = ["score", str(tmp_path / "no-data"), "--model", str(saved), "--as-of", "2026-10"]
+    assert main([*args, "--out", str(out)]) == 2
+    assert "format 1" in capsys.readouterr().err and not out.exists()

@@ -25,7 +25,8 @@ from lifecycle.models import (
     landmark_snapshots,
     observed_incidence,
 )
-from lifecycle.models._forest import _Encoder, _sample
+from lifecycle.models._design import CovariateDesign
+from lifecycle.models._forest import GrownForest, _sample
 from lifecycle.panel import build_panel
 from tests._builders import make_tables
 from tests.test_models_boosted import (
@@ -261,15 +262,17 @@ def test_clone_round_trip_and_determinism(small):
 
 
 def test_fitted_forest_keeps_no_training_data(small):
-    """Four times the customers, the same row cap: the pickle stays about the same size, and
-    the weights scikit-survival kept for out-of-bag scoring are dropped."""
+    """Four times the customers, the same row cap: the pickle stays about the same size; the
+    model keeps the trees, not scikit-survival's forest object (which holds a weight per
+    training row for out-of-bag scoring)."""
     bigger = pd.concat(
         [small.assign(customer_id=small["customer_id"] + k * 100_000) for k in range(4)],
         ignore_index=True,
     )
     one = SurvivalForest(importance_rows=0, **TINY).fit(small)
     four = SurvivalForest(importance_rows=0, **TINY).fit(bigger)
-    assert all(f._sample_weight is None for f in four.forests_.values())
+    assert all(isinstance(f, GrownForest) for f in four.forests_.values())
+    assert all(not hasattr(f, "oob_score_") for f in four.forests_.values())
     assert len(pickle.dumps(four)) < 1.5 * len(pickle.dumps(one))
 
 
@@ -298,7 +301,11 @@ def test_encoder_matches_scikit_learn(small):
     test.loc[test.index[:5], "plan"] = "new"
     test.loc[test.index[5:9], "x_cont"] = np.nan  # gaps unseen in training: imputed, no flag
     names = ("usage", "x_cont", "plan")
-    ours = _Encoder.learn(train, names).transform(test)
+    ours = CovariateDesign(
+        reference_level=False, max_levels=30, drop_uninformative=False, dtype=np.float32
+    ).fit(train, names)
+    assert ours.names_[:3] == ("usage", "usage_missing", "x_cont")  # one suffix for every family
+    ours = ours.transform(test)
     reference = ColumnTransformer(
         [
             ("usage", SimpleImputer(strategy="median", add_indicator=True), ["usage"]),
@@ -312,3 +319,25 @@ def test_encoder_matches_scikit_learn(small):
     order = [0, 1, 2] + [3 + sorted(levels).index(level) for level in levels]
     np.testing.assert_allclose(ours, expected[:, order], rtol=1e-6)
     assert (ours[:5, 3:] == 0).all()
+
+
+def test_grown_forest_predicts_as_the_library_forest():
+    """The kept trees average to scikit-survival's own forest predictions, to the bit
+    (reference: sksurv.ensemble.RandomSurvivalForest.predict_cumulative_hazard_function and
+    .predict on the same fitted forest)."""
+    from sksurv.ensemble import RandomSurvivalForest
+    from sksurv.util import Surv
+
+    rng = np.random.default_rng(3)
+    x = rng.normal(size=(400, 3)).astype(np.float32)
+    time = rng.integers(1, 12, 400).astype(float)
+    event = rng.random(400) < 0.4
+    forest = RandomSurvivalForest(n_estimators=6, min_samples_leaf=15, random_state=0, n_jobs=1)
+    forest.fit(x, Surv.from_arrays(event, time), sample_weight=rng.random(400) + 0.5)
+    grown = GrownForest(forest)
+    np.testing.assert_array_equal(
+        grown.predict_cumulative_hazard_function(x[:60]),
+        forest.predict_cumulative_hazard_function(x[:60], return_array=True),
+    )
+    np.testing.assert_array_equal(grown.predict(x[:60]), forest.predict(x[:60]))
+    np.testing.assert_array_equal(grown.unique_times_, forest.unique_times_)

@@ -7,6 +7,7 @@ import errno
 import hashlib
 import json
 import os
+import pickle
 import shutil
 import subprocess
 import sys
@@ -219,12 +220,10 @@ def test_a_planted_model_in_the_work_folder_is_never_loaded(root, tmp_path, caps
     never runs."""
     marker = tmp_path / "ran"
     (saved,) = (root / ".lifecycle-work" / "models").glob("champion-2026-09-*")
-    import joblib
-
-    joblib.dump(Payload(marker), saved / "model.joblib")
+    (saved / "model.pickle").write_bytes(pickle.dumps(Payload(marker)))
     manifest = json.loads((saved / "manifest.json").read_text())
-    manifest["files"]["model.joblib"] = hashlib.sha256(
-        (saved / "model.joblib").read_bytes()
+    manifest["files"]["model.pickle"] = hashlib.sha256(
+        (saved / "model.pickle").read_bytes()
     ).hexdigest()
     (saved / "manifest.json").write_text(json.dumps(manifest, indent=2, sort_keys=True) + "\n")
     assert _run(root, "--as-of", "2026-10") == 0  # the log goes to stderr (command line)

@@ -2,15 +2,17 @@
 
 from __future__ import annotations
 
+import pickle
+
 import numpy as np
 import pandas as pd
 import pytest
 from lifelines import NelsonAalenFitter
 from lifelines.datasets import load_dd
 
+import lifecycle.evaluation
 from lifecycle._months import month_categorical, parse_month
-from lifecycle.evaluation import TenureLifeTable
-from lifecycle.models import CauseSpecificCox
+from lifecycle.models import CauseSpecificCox, TenureLifeTable
 from lifecycle.models._smooth import smoothed_rates
 
 
@@ -74,6 +76,20 @@ def test_smoothed_life_table_stays_close_to_nelson_aalen_where_data_are_dense():
     np.testing.assert_allclose(
         np.cumsum(raw.hazard_[years, 0]), reference.reindex(years, method="ffill"), rtol=1e-12
     )
+
+
+def test_life_table_pickled_under_its_old_module_still_loads(monkeypatch):
+    """The class moved from lifecycle.evaluation._baseline to lifecycle.models; a pickle that
+    names the old module path still loads, as the same class with the same hazards."""
+    model = TenureLifeTable().fit(_dd_panel())
+    monkeypatch.setattr(TenureLifeTable, "__module__", "lifecycle.evaluation._baseline")
+    old = pickle.dumps(model, protocol=pickle.HIGHEST_PROTOCOL)
+    monkeypatch.undo()
+    assert b"lifecycle.evaluation._baseline" in old and b"lifecycle.models" not in old
+    again = pickle.loads(old)
+    assert type(again) is TenureLifeTable
+    np.testing.assert_array_equal(again.hazard_, model.hazard_)
+    assert lifecycle.evaluation.TenureLifeTable is TenureLifeTable  # still named there too
 
 
 def _sparse_tenure_portfolio(seed: int = 2) -> pd.DataFrame:

@@ -71,6 +71,12 @@ def _models_suite(customers: int | None, months: int) -> list[Measurement]:
     return run_models_bench(customers=n)
 
 
+def _metrics_suite(customers: int | None, months: int) -> list[Measurement]:
+    from ._metrics import SIZES, run_metrics_bench
+
+    return run_metrics_bench((customers,) if customers else SIZES)
+
+
 def _cycle_suite(customers: int | None, months: int) -> list[Measurement]:
     from ._cycle import run_cycle_bench
 
@@ -88,6 +94,7 @@ SUITES: dict[str, Callable[[int | None, int], list[Measurement]]] = {
     "spatial": _spatial_suite,
     "models": _models_suite,
     "decisions": _decisions_suite,
+    "metrics": _metrics_suite,
     "cycle": _cycle_suite,
     "response": _response_suite,
 }

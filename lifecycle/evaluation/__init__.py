@@ -1,8 +1,8 @@
 """Evaluation: accuracy metrics on censored follow-up, observed outcomes and backtests;
 the Qini curve and the expected maximum profit measure for campaigns."""
 
+from ..models import TenureLifeTable  # a model family; also named here, where it was first
 from ._backtest import BacktestResult, backtest, champions
-from ._baseline import TenureLifeTable
 from ._calibration import calibration_table, lift_and_capture
 from ._campaign_metrics import (
     CampaignMetricSettings,

@@ -9,6 +9,7 @@ from ._families import FAMILY_NAMES, make_model
 from ._fittable import check_fittable, min_events_setting
 from ._forest import SurvivalForest
 from ._landmarks import landmark_months, landmark_snapshots, observed_incidence
+from ._life_table import TenureLifeTable
 from ._persist import load_model, read_manifest, save_model
 from ._score import score_customers
 from ._signing import keep_key_outside, sign, signature_matches, signing_key
@@ -21,6 +22,7 @@ __all__ = [
     "ChampionModel",
     "HazardModel",
     "SurvivalForest",
+    "TenureLifeTable",
     "check_fittable",
     "future_rows",
     "incidence_from_hazards",

@@ -14,6 +14,7 @@ from .._progress import progress
 from .._warnings import library_warnings
 from ..errors import InputError, UsageError
 from ._base import HazardModel
+from ._design import CovariateDesign
 from ._landmarks import TIME, UPTAKE_TIME_PREFIX, landmark_snapshots
 
 log = logging.getLogger(__name__)
@@ -49,10 +50,11 @@ class SurvivalForest(HazardModel):
     estimates in the leaves estimate the full data's: the sample changes their precision, not
     their target. Randomness is seeded by ``random_state``.
 
-    Covariates: the forest needs numbers without gaps, so numeric features are imputed with the
-    training median and get a 0/1 missing indicator when they had gaps in training; categorical
-    (and text) features are one-hot coded over their 30 most frequent training levels (other
-    levels code as all zeros). Both are learned at ``fit``.
+    Covariates: the forest needs numbers without gaps, so the shared `CovariateDesign` imputes
+    numeric features with the training median and adds a 0/1 ``<feature>_missing`` indicator
+    for a feature (numeric or categorical) that had gaps in training; categorical (and text)
+    features are one-hot coded over their 30 most frequent training levels, one column each
+    (other levels code as all zeros). Both are learned at ``fit``.
 
     ``low_memory`` mode of scikit-survival is not used: it keeps only a risk score, while the
     hazards need each leaf's cumulative hazard. The forest stays small because its leaves hold
@@ -81,9 +83,10 @@ class SurvivalForest(HazardModel):
     Attributes
     ----------
     forests_ : dict
-        Cause → fitted `RandomSurvivalForest` (``None`` for a cause without events: hazard 0).
-    encoder_ : _Encoder
-        The learned imputation and one-hot coding.
+        Cause → `GrownForest`, the trees of the fitted `RandomSurvivalForest` and its time grid
+        (``None`` for a cause without events: hazard 0).
+    encoder_ : CovariateDesign
+        The learned imputation and one-hot coding (the covariate encoder every family shares).
     inputs_ : tuple of str
         ``tenure_start`` and the features, as given to the encoder.
     feature_importances_ : pandas.DataFrame
@@ -147,7 +150,12 @@ class SurvivalForest(HazardModel):
         self.inputs_ = ("tenure_start", *self.features_)
         held_out = self._hold_out(landmarks, rng)
         train = landmarks.loc[~held_out]
-        self.encoder_ = _Encoder.learn(train, self.inputs_)
+        self.encoder_ = CovariateDesign(
+            reference_level=False,
+            max_levels=_MAX_CATEGORIES,
+            drop_uninformative=False,
+            dtype=np.float32,
+        ).fit(train, self.inputs_)
         self.forests_, self.n_rows_ = {}, {}
         for i, cause in enumerate(self.causes_):
             progress("fit", i, len(self.causes_), f"forest: {cause}")
@@ -177,7 +185,7 @@ class SurvivalForest(HazardModel):
         event: np.ndarray,
         cause: str,
         rng: np.random.Generator,
-    ) -> tuple[RandomSurvivalForest | None, int]:
+    ) -> tuple[GrownForest | None, int]:
         if not event.any() or len(rows) < 2:
             log.warning("%s: no events in the landmark rows; its hazard is taken as 0", cause)
             return None, 0
@@ -194,8 +202,6 @@ class SurvivalForest(HazardModel):
         )
         x = self.encoder_.transform(rows.iloc[pick])
         forest.fit(x, Surv.from_arrays(event[pick], time[pick]), sample_weight=weight)
-        # scikit-survival keeps the training weights for out-of-bag scoring only
-        forest._sample_weight = None
         log.info(
             "%s: forest of %d trees on %d landmark rows (%d events)",
             cause,
@@ -203,7 +209,7 @@ class SurvivalForest(HazardModel):
             pick.size,
             int(event[pick].sum()),
         )
-        return forest, int(pick.size)
+        return GrownForest(forest), int(pick.size)
 
     def _importances(self, held: pd.DataFrame, rng: np.random.Generator) -> pd.DataFrame:
         records = []
@@ -246,7 +252,7 @@ class SurvivalForest(HazardModel):
             forest = self.forests_[cause]
             if forest is None:
                 continue
-            chf = forest.predict_cumulative_hazard_function(x, return_array=True)
+            chf = forest.predict_cumulative_hazard_function(x)
             at = np.searchsorted(forest.unique_times_, grid, side="right") - 1
             curve = np.where(at >= 0, chf[:, np.maximum(at, 0)], 0.0)
             increments[:, :, j] = np.maximum(np.diff(curve, axis=1), 0.0)
@@ -289,75 +295,34 @@ def _sample(event: np.ndarray, max_rows: int, rng: np.random.Generator):
     return pick[order], weight[order]
 
 
-def _concordance(forest, x: np.ndarray, event: np.ndarray, time: np.ndarray) -> float:
-    return float(concordance_index_censored(event, time, forest.predict(x))[0])
+class GrownForest:
+    """What prediction needs of a fitted `sksurv.ensemble.RandomSurvivalForest`: its trees
+    (``estimators_``) and its grid of training times (``unique_times_``).
 
-
-class _Encoder:
-    """Median imputation with missing indicators, and one-hot coding, learned from a frame.
-
-    Numeric column c becomes ``c`` (NaN → the training median ``med_c``) and, when c had gaps
-    in training, ``c__missing`` (1 where NaN). A categorical or text column becomes one 0/1
-    column per learned level.
+    The library's forest object also keeps every training row's weight (for out-of-bag
+    scoring, which this family does not use); keeping the trees alone keeps the model free of
+    training data. Predictions average the trees exactly as the library's forest does (their
+    sum in order, over the number of trees), so they are the same numbers.
     """
 
-    def __init__(self, columns: list[tuple[str, str, object]]) -> None:
-        # (name, kind, state): kind "numeric" with (median, indicator) or "categorical" with levels
-        self.columns = columns
+    def __init__(self, forest: RandomSurvivalForest) -> None:
+        self.estimators_ = list(forest.estimators_)
+        self.unique_times_ = forest.unique_times_
 
-    @classmethod
-    def learn(cls, frame: pd.DataFrame, names: tuple[str, ...]) -> _Encoder:
-        columns: list[tuple[str, str, object]] = []
-        for name in names:
-            values = frame[name]
-            if _is_numeric(values):
-                numbers = values.to_numpy(dtype=np.float64, na_value=np.nan)
-                if np.isinf(numbers).any():
-                    raise InputError(
-                        table="panel",
-                        column=name,
-                        problem="the feature has infinite values",
-                        count=int(np.isinf(numbers).sum()),
-                        examples=frame["customer_id"].to_numpy()[np.isinf(numbers)],
-                        fix="replace them with finite values or blanks",
-                    )
-                gaps = np.isnan(numbers)
-                median = float(np.median(numbers[~gaps])) if (~gaps).any() else 0.0
-                columns.append((name, "numeric", (median, bool(gaps.any()))))
-            else:
-                counts = values.astype("object").value_counts(dropna=True)
-                columns.append((name, "categorical", list(counts.index[:_MAX_CATEGORIES])))
-        return cls(columns)
+    def predict_cumulative_hazard_function(self, x: np.ndarray) -> np.ndarray:
+        """The forest's cumulative hazard ``(len(x), len(unique_times_))``: the trees' mean."""
+        total = np.zeros((x.shape[0], self.unique_times_.size))
+        for tree in self.estimators_:
+            total += tree.predict_cumulative_hazard_function(x, return_array=True)
+        return total / len(self.estimators_)
 
-    @property
-    def names(self) -> list[str]:
-        out = []
-        for name, kind, state in self.columns:
-            if kind == "numeric":
-                out.append(name)
-                if state[1]:
-                    out.append(f"{name}__missing")
-            else:
-                out.extend(f"{name}={level}" for level in state)
-        return out
-
-    def transform(self, frame: pd.DataFrame) -> np.ndarray:
-        parts = []
-        for name, kind, state in self.columns:
-            values = frame[name]
-            if kind == "numeric":
-                numbers = values.to_numpy(dtype=np.float64, na_value=np.nan)
-                gaps = np.isnan(numbers)
-                parts.append(np.where(gaps, state[0], numbers))
-                if state[1]:
-                    parts.append(gaps.astype(np.float64))
-            else:
-                objects = values.astype("object").to_numpy()
-                parts.extend((objects == level).astype(np.float64) for level in state)
-        return np.column_stack(parts).astype(np.float32) if parts else np.empty((len(frame), 0))
+    def predict(self, x: np.ndarray) -> np.ndarray:
+        """The forest's risk score (the summed cumulative hazard): the trees' mean."""
+        total = np.zeros(x.shape[0])
+        for tree in self.estimators_:
+            total += tree.predict(x)
+        return total / len(self.estimators_)
 
 
-def _is_numeric(values: pd.Series) -> bool:
-    return pd.api.types.is_numeric_dtype(values) and not isinstance(
-        values.dtype, pd.CategoricalDtype
-    )
+def _concordance(forest, x: np.ndarray, event: np.ndarray, time: np.ndarray) -> float:
+    return float(concordance_index_censored(event, time, forest.predict(x))[0])

@@ -1,6 +1,6 @@
-"""Saving and loading fitted models: joblib files beside a signed manifest of SHA-256 hashes.
+"""Saving and loading fitted models: pickle files beside a signed manifest of SHA-256 hashes.
 
-Loading a joblib file runs code, so a file is loaded only when the manifest's signature
+Loading a pickle file runs code, so a file is loaded only when the manifest's signature
 (HMAC-SHA256 under a key kept outside the model's folder, `lifecycle.models._signing`) holds
 and every file's hash matches the manifest; anything else is refused with `ModelFileError`
 before a byte is unpickled. The libraries the model was saved with are compared too: a
@@ -14,12 +14,12 @@ from __future__ import annotations
 import hashlib
 import json
 import logging
+import pickle
 import platform
 import re
 from importlib import metadata
 from pathlib import Path
 
-import joblib
 import pandas as pd
 
 from .._files import write_atomic, write_csv_atomic, write_text_atomic
@@ -32,7 +32,12 @@ log = logging.getLogger(__name__)
 
 MANIFEST = "manifest.json"
 SIGNATURE = "manifest.sig"
-MODEL_FILE = "model.joblib"
+MODEL_FILE = "model.pickle"
+#: The model file format this version writes and reads. Format 2: ``model.pickle`` written by
+#: the standard library's pickle, and the covariate encoder of every family is
+#: `CovariateDesign` on scikit-learn's transformers (format 1, the manifests without a
+#: ``format`` key: ``model.joblib`` by joblib, hand-written encoders, the library's forests).
+MODEL_FORMAT = 2
 # The distribution is published as "lifecycle-hazards" ("lifecycle" on the package index is
 # an unrelated project); the manifest records its version under the import name.
 DISTRIBUTION = "lifecycle-hazards"
@@ -48,7 +53,6 @@ _LIBRARIES = (
     "scikit-learn",
     "scikit-survival",
     "lifelines",
-    "joblib",
 )
 
 
@@ -78,7 +82,7 @@ def save_model(
     family: str,
     extra: dict[str, object] | None = None,
 ) -> Path:
-    """Write a fitted model into ``folder``: ``model.joblib``, tables the family offers
+    """Write a fitted model into ``folder``: ``model.pickle``, tables the family offers
     (``coefficients.csv`` for the Cox family), then ``manifest.json`` last.
 
     The manifest records the SHA-256 of every file, the library versions, the family, the
@@ -89,11 +93,12 @@ def save_model(
     """
     folder = Path(folder)
     folder.mkdir(parents=True, exist_ok=True)
-    files = {MODEL_FILE: write_atomic(folder / MODEL_FILE, lambda tmp: joblib.dump(model, tmp))}
+    files = {MODEL_FILE: write_atomic(folder / MODEL_FILE, lambda tmp: _dump(model, tmp))}
     coefficients = getattr(model, "coefficients_", None)
     if isinstance(coefficients, pd.DataFrame):
         files["coefficients.csv"] = write_csv_atomic(folder / "coefficients.csv", coefficients)
     manifest = {
+        "format": MODEL_FORMAT,
         "family": family,
         "class": f"{type(model).__module__}.{type(model).__qualname__}",
         "causes": list(model.causes_),
@@ -109,6 +114,11 @@ def save_model(
     write_text_atomic(folder / MANIFEST, text)
     write_text_atomic(folder / SIGNATURE, signature + "\n")
     return folder
+
+
+def _dump(model: HazardModel, path: Path) -> None:
+    with open(path, "wb") as handle:
+        pickle.dump(model, handle, protocol=pickle.HIGHEST_PROTOCOL)
 
 
 def read_manifest(folder: str | Path) -> dict:
@@ -162,11 +172,12 @@ def verify_model_folder(folder: str | Path) -> dict:
         raise ModelFileError(f"{folder} holds no {MANIFEST}; it is not a saved lifecycle model")
     data = path.read_bytes()
     manifest = _parse_manifest(data, path)
+    _check_format(manifest, path)
     sig = folder / SIGNATURE
     if not sig.is_file():
         raise ModelFileError(
             f"{folder} has no {SIGNATURE}: the manifest is unsigned (saved by an older version, "
-            "or tampered with) and the model will not be loaded (a joblib file runs code when "
+            "or tampered with) and the model will not be loaded (a pickle file runs code when "
             "loaded). Refit the model"
         )
     try:
@@ -177,7 +188,7 @@ def verify_model_folder(folder: str | Path) -> dict:
         raise ModelFileError(
             f"the signature of {path} does not match: the manifest was changed after saving, or "
             "it was signed with another key (LIFECYCLE_SIGNING_KEY / LIFECYCLE_KEY_FILE). The "
-            "model will not be loaded (a joblib file runs code when loaded). Refit the model"
+            "model will not be loaded (a pickle file runs code when loaded). Refit the model"
         )
     for name, expected in manifest["files"].items():
         file = folder / name
@@ -187,11 +198,22 @@ def verify_model_folder(folder: str | Path) -> dict:
         if actual != expected:
             raise ModelFileError(
                 f"{file} has SHA-256 {actual[:16]}… but the manifest says {expected[:16]}…; "
-                "it was changed after saving and will not be loaded (a joblib file runs code "
+                "it was changed after saving and will not be loaded (a pickle file runs code "
                 "when loaded). Refit the model or restore the original file"
             )
     _compare_versions(manifest["versions"], path)
     return manifest
+
+
+def _check_format(manifest: dict, path: Path) -> None:
+    """`ModelFileError` unless the model was saved in this version's `MODEL_FORMAT`."""
+    saved = manifest.get("format", 1)
+    if saved != MODEL_FORMAT:
+        raise ModelFileError(
+            f"{path} was saved in model file format {saved!r}, but this version of lifecycle "
+            f"reads format {MODEL_FORMAT} only (the covariate encoding changed); the model was "
+            "not loaded. Refit the model (lifecycle fit, or lifecycle run)"
+        )
 
 
 def _compare_versions(saved: dict, path: Path) -> None:

@@ -1,31 +1,24 @@
 """Unpickling a verified model file with an allow-list of what it may construct.
 
 The signature and hashes (`lifecycle.models._persist`) are the guarantee; this is a second
-wall behind them. joblib's unpickler is asked for every class or function the file names, and
-only these are given: classes of ``lifecycle.models`` and ``lifecycle.evaluation``, of numpy,
-pandas, scikit-learn, scikit-survival, lifelines and scipy, joblib's array wrapper, and a few
-plain builtins. Inside those libraries, functions that read, write, run or import anything
-(``read_*``, ``load*``, ``eval``, ``system``, modules such as ``numpy.lib.npyio`` or
-``pandas.io``) are refused too. Anything else raises `ModelFileError` before it is called.
-
-This uses joblib's unpickler class (``joblib.numpy_pickle.NumpyUnpickler``), which is not a
-public API; if a joblib release changes it, loading falls back to ``joblib.load`` (the file's
-signature has been checked already) and says so in the log.
+wall behind them. The standard library's unpickler is asked (`pickle.Unpickler.find_class`)
+for every class or function the file names, and only these are given: classes of
+``lifecycle.models`` and ``lifecycle.evaluation``, of numpy, pandas, scikit-learn,
+scikit-survival, lifelines and scipy, and a few plain builtins. Inside those libraries,
+functions that read, write, run or import anything (``read_*``, ``load*``, ``eval``,
+``system``, modules such as ``numpy.lib.npyio`` or ``pandas.io``) are refused too. Anything
+else raises `ModelFileError` before it is called.
 """
 
 from __future__ import annotations
 
-import logging
+import pickle
 from pathlib import Path
-
-import joblib
 
 from ..errors import ModelFileError
 
-log = logging.getLogger(__name__)
-
 _ROOTS = ("lifecycle.models", "lifecycle.evaluation", "numpy", "pandas", "sklearn", "sksurv",
-          "lifelines", "scipy", "joblib.numpy_pickle")  # fmt: skip
+          "lifelines", "scipy")  # fmt: skip
 _EXACT = {
     "builtins": {"slice", "set", "frozenset", "complex", "range", "bytearray", "object", "int",
                  "float", "str", "bytes", "list", "dict", "tuple", "bool"},
@@ -60,16 +53,9 @@ def allowed(module: str, name: str, trusted: tuple[str, ...] = ()) -> bool:
 
 
 def restricted_load(path: Path, trusted: tuple[str, ...] = ()) -> object:
-    """Load a joblib file, refusing (`ModelFileError`) any class or function not `allowed`."""
-    try:
-        from joblib import numpy_pickle
+    """Load a pickle file, refusing (`ModelFileError`) any class or function not `allowed`."""
 
-        base = numpy_pickle.NumpyUnpickler
-        validate = numpy_pickle._validate_fileobject_and_memmap
-    except (ImportError, AttributeError):
-        return _unrestricted(path)
-
-    class _Restricted(base):
+    class _Restricted(pickle.Unpickler):
         def find_class(self, module, name):
             if not allowed(module, name, trusted):
                 raise ModelFileError(
@@ -78,19 +64,10 @@ def restricted_load(path: Path, trusted: tuple[str, ...] = ()) -> object:
                 )
             return super().find_class(module, name)
 
-    with open(path, "rb") as handle, validate(handle, str(path), None) as (fobj, _):
-        if isinstance(fobj, str):  # a joblib format before 0.10: never written by lifecycle
-            raise ModelFileError(f"{path} is in an old joblib format; refit the model")
+    with open(path, "rb") as handle:
         try:
-            unpickler = _Restricted(str(path), fobj, True, mmap_mode=None)
-        except TypeError:
-            log.warning(
-                "joblib %s: no allow-list on unpickling; loading %s", joblib.__version__, path
-            )
-            return joblib.load(path)
-        return unpickler.load()
-
-
-def _unrestricted(path: Path) -> object:
-    log.warning("joblib %s: no allow-list on unpickling; loading %s", joblib.__version__, path)
-    return joblib.load(path)
+            return _Restricted(handle).load()
+        except (pickle.UnpicklingError, EOFError) as exc:
+            raise ModelFileError(
+                f"{path} is not a readable model file ({exc}); refit the model"
+            ) from None
