@@ -376,22 +376,45 @@ def test_the_monthly_cycle_on_the_cluster_writes_the_same_files(client, tmp_path
             assert figures[1][key] == value, key
 
 
-def test_an_input_error_from_a_task_keeps_every_field_across_pickling():
-    """A task's `InputError` arrives as it was raised, the export's own column name included
-    (it was dropped before the error carried `fields`)."""
+def _bad_dates(n_rows: int) -> None:
+    """A task that fails on its input (module level, so that a worker can unpickle it)."""
+    raise InputError(
+        table="customers", column="end_month", problem="is before start_month", count=n_rows,
+        examples=["A1", "B2"], fix="mend the dates", source_column="leave_date",
+    )  # fmt: skip
+
+
+def test_every_error_survives_pickling_with_its_fields():
+    """pickle.loads(pickle.dumps(err)) is the same error: same class, message and fields (the
+    standard library's exception pickling calls ``cls(*args)``, which keyword-only
+    `InputError` cannot take without help)."""
     import pickle
 
-    from lifecycle.distributed._remote import portable
-    from lifecycle.errors import InputError
-
-    def task():
-        raise InputError(
-            table="customers", column="end_month", problem="is before start_month", count=2,
-            examples=["A1", "B2"], fix="mend the dates", source_column="leave_date",
-        )  # fmt: skip
+    from lifecycle import errors
 
     with pytest.raises(InputError) as caught:
-        portable(task)()
+        _bad_dates(2)
     again = pickle.loads(pickle.dumps(caught.value))
+    assert type(again) is InputError
     assert again.fields() == caught.value.fields()
     assert again.source_column == "leave_date" and str(again) == str(caught.value)
+    for name in errors.__all__:
+        kind = getattr(errors, name)
+        if isinstance(kind, type) and kind is not InputError:
+            err = kind("something is wrong")
+            back = pickle.loads(pickle.dumps(err))
+            assert type(back) is kind and str(back) == str(err), name
+
+
+def test_an_input_error_raised_in_a_task_reaches_the_caller_with_its_fields(client):
+    """A plain task (no wrapper) that raises `InputError` on a worker: the caller catches an
+    `InputError` with every field as raised, the export's own column name included."""
+    with pytest.raises(InputError) as caught:
+        client.submit(_bad_dates, 3, pure=False).result()
+    assert type(caught.value) is InputError
+    assert caught.value.fields() == {
+        "table": "customers", "column": "end_month", "problem": "is before start_month",
+        "count": 3, "examples": ["A1", "B2"], "fix": "mend the dates",
+        "source_column": "leave_date",
+    }  # fmt: skip
+    assert "column 'leave_date' (end_month)" in str(caught.value)

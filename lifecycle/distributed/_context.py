@@ -37,7 +37,7 @@ from ..spatial import (
     nearby_counts,
     radius_label,
 )
-from ._remote import item, portable
+from ._remote import item
 from ._tables import NEVER, PartitionedTables, Summary
 
 if TYPE_CHECKING:
@@ -105,7 +105,6 @@ def plan_context(data: PartitionedTables, first: int, last: int) -> ContextPlan:
     return ContextPlan(first, last, radii, rates, pieces)
 
 
-@portable
 def _move_rates(
     summaries: list[Summary], n_areas: int, first: int, last: int, window: int
 ) -> np.ndarray:
@@ -134,7 +133,6 @@ class _Points:
     offsets: np.ndarray  # partition starts in the customers table
 
 
-@portable
 def _points(
     summaries: list[Summary], offsets: np.ndarray, first: int, last: int, n_tiles: int
 ) -> _Points:
@@ -168,7 +166,6 @@ def _points(
     )
 
 
-@portable
 def _tile(
     points: _Points, t: int, radii: tuple[float, ...], n_months: int
 ) -> list[tuple[np.ndarray, list[np.ndarray]]]:

@@ -24,7 +24,6 @@ from ..data import Tables
 from ..errors import UsageError
 from ..forecast import ALL_AREAS, forecast_settings, forecast_uptake
 from ._context import _local_positions
-from ._remote import portable
 from ._score import DistributedScored
 from ._tables import PartitionedTables, Summary
 
@@ -88,7 +87,6 @@ def forecast_portfolio(
     return pd.concat(ordered, ignore_index=True)
 
 
-@portable
 def _reduce(
     hazards: np.ndarray,
     snapshot: pd.DataFrame,
@@ -118,7 +116,6 @@ def _labels(inputs: tuple[np.ndarray, np.ndarray]) -> set[str]:
     return set(inputs[0].tolist())
 
 
-@portable
 def _forecast_groups(
     inputs: list[tuple[np.ndarray, np.ndarray]],
     areas: list[str] | None,

@@ -9,7 +9,7 @@ from typing import TYPE_CHECKING, Any
 import pandas as pd
 
 from .._files import write_atomic
-from ._remote import concat_frames, portable
+from ._remote import concat_frames
 
 if TYPE_CHECKING:
     import dask.dataframe
@@ -81,9 +81,8 @@ class PartitionedFrame:
 
     def map(self, fn: Any, *args: Any, **kwargs: Any) -> PartitionedFrame:
         """``fn(partition, *args, **kwargs)`` on every partition, on the workers."""
-        task = portable(fn)
         return PartitionedFrame(
-            self.client, [self.client.submit(task, p, *args, **kwargs) for p in self.parts]
+            self.client, [self.client.submit(fn, p, *args, **kwargs) for p in self.parts]
         )
 
 

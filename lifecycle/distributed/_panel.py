@@ -23,7 +23,7 @@ from ..models import landmark_snapshots as _landmark_snapshots
 from ..panel import build_panel, build_snapshot
 from ._context import ContextPlan, plan_context, with_context
 from ._frame import PartitionedFrame
-from ._remote import concat_frames, item, portable
+from ._remote import concat_frames, item
 from ._tables import PartitionedTables, Shared, Summary
 
 log = logging.getLogger(__name__)
@@ -147,7 +147,6 @@ def _plan_args(plan: ContextPlan | None, p: int) -> tuple[object, ...]:
     return (plan.rates, plan.first, plan.radii, plan.pieces[p])
 
 
-@portable
 def _span(summaries: list[Summary], window_start: int, as_of: int) -> tuple[int, int] | None:
     """First and last month of the panel's rows over all customers (`None`: no rows)."""
     start = np.concatenate([s.start for s in summaries])
@@ -160,7 +159,6 @@ def _span(summaries: list[Summary], window_start: int, as_of: int) -> tuple[int,
     return int(first[kept].min()), int(last[kept].max())
 
 
-@portable
 def _panel_part(
     tables: Tables,
     summary: Summary,
@@ -179,7 +177,6 @@ def _panel_part(
     return harmonise(frame, shared, span)
 
 
-@portable
 def _snapshot_part(
     tables: Tables,
     summary: Summary,
@@ -229,7 +226,6 @@ def _month_span(frame: pd.DataFrame) -> tuple[int, int] | None:
     return int(month.min()), int(month.max())
 
 
-@portable
 def _landmark_part(panel: pd.DataFrame, horizon: int, months: np.ndarray) -> list[pd.DataFrame]:
     """This partition's landmark rows, one frame per landmark month."""
     frame = _landmark_snapshots(panel, horizon=horizon, months=months)

@@ -29,7 +29,7 @@ from ..value import lifetime_value, value_settings
 from ..value import offer_values as _offer_values
 from ._frame import PartitionedFrame
 from ._panel import _as_of, snapshot_with_context
-from ._remote import concat_frames, item, portable
+from ._remote import concat_frames, item
 from ._tables import PartitionedTables
 
 log = logging.getLogger(__name__)
@@ -115,7 +115,6 @@ def score_portfolio(
     )
 
 
-@portable
 def _score_part(
     snapshot: pd.DataFrame,
     model: HazardModel,
@@ -174,7 +173,6 @@ def offer_values(
     return PartitionedFrame(client, parts)
 
 
-@portable
 def _offer_part(
     hazards: np.ndarray,
     snapshot: pd.DataFrame,
