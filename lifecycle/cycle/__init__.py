@@ -4,6 +4,7 @@ from ._checks import check_as_of
 from ._explain import explain_customer
 from ._run import RunResult, RunSettings, run_cycle, run_settings
 from ._steps import (
+    SCORE_HORIZONS,
     Scored,
     default_cutoffs,
     fit_model,
@@ -12,10 +13,12 @@ from ._steps import (
     plan_contacts,
     planning_frame,
     score_portfolio,
+    score_snapshot,
     snapshot_with_context,
 )
 
 __all__ = [
+    "SCORE_HORIZONS",
     "RunResult",
     "RunSettings",
     "Scored",
@@ -30,5 +33,6 @@ __all__ = [
     "run_cycle",
     "run_settings",
     "score_portfolio",
+    "score_snapshot",
     "snapshot_with_context",
 ]

@@ -24,6 +24,7 @@ from ..data import Tables
 from ..errors import UsageError
 from ..forecast import ALL_AREAS, forecast_settings, forecast_uptake
 from ._context import _local_positions
+from ._remote import parts_of
 from ._score import DistributedScored
 from ._tables import PartitionedTables, Summary
 
@@ -62,7 +63,7 @@ def forecast_portfolio(
             settings.horizon_months,
         )
         for p, (hazards, snapshot) in enumerate(
-            zip(scored.hazards, scored.snapshot.parts, strict=True)
+            zip(scored.hazards, parts_of(client, scored.snapshot), strict=True)
         )
     ]
     labels = sorted(set().union(*client.gather([client.submit(_labels, i) for i in inputs])))

@@ -1,6 +1,8 @@
 """The panel, the scoring snapshot and landmark snapshots, built partition by partition.
 
-Each partition's task runs the single-process function (`build_panel`, `build_snapshot`,
+The results are `dask.dataframe.DataFrame` collections, one partition per partition of
+customers (landmark snapshots: one per landmark month). Each partition's task runs the
+single-process function (`build_panel`, `build_snapshot`,
 `landmark_snapshots`) on its own customers, appends the spatial context from the shared
 `ContextPlan`, and recodes its categorical columns onto the categories of the whole table
 (customer ids, months, text attributes), so that the partitions concatenated are the
@@ -11,6 +13,7 @@ from __future__ import annotations
 
 import logging
 from collections.abc import Sequence
+from typing import TYPE_CHECKING
 
 import numpy as np
 import pandas as pd
@@ -22,21 +25,24 @@ from ..errors import UsageError
 from ..models import landmark_snapshots as _landmark_snapshots
 from ..panel import build_panel, build_snapshot
 from ._context import ContextPlan, plan_context, with_context
-from ._frame import PartitionedFrame
-from ._remote import concat_frames, item
+from ._remote import as_frame, concat_frames, item, parts_of
 from ._tables import PartitionedTables, Shared, Summary
+
+if TYPE_CHECKING:
+    import dask.dataframe
 
 log = logging.getLogger(__name__)
 
 
 def panel_with_context(
     data: PartitionedTables, as_of: str | int, *, spatial: bool = True
-) -> PartitionedFrame:
+) -> dask.dataframe.DataFrame:
     """The customer-month panel of ``as_of`` with its spatial context, by partition.
 
     Equals ``add_spatial_context(build_panel(tables, as_of, config=config), tables,
     config=config)`` of the whole tables (``build_panel`` alone with ``spatial=False``):
-    partition p holds the rows of partition p's customers. See `lifecycle.panel.build_panel`
+    partition p holds the rows of partition p's customers (each with its own index 0..n_p−1).
+    See `lifecycle.panel.build_panel`
     and `lifecycle.spatial.add_spatial_context` for the columns and their definitions, and
     `lifecycle.distributed._context` for how the context is shared out.
 
@@ -70,10 +76,10 @@ def panel_with_context(
         )
         for p in range(data.npartitions)
     ]
-    return PartitionedFrame(client, parts)
+    return as_frame(client, parts)
 
 
-def snapshot_with_context(data: PartitionedTables, as_of: str | int) -> PartitionedFrame:
+def snapshot_with_context(data: PartitionedTables, as_of: str | int) -> dask.dataframe.DataFrame:
     """The scoring snapshot at the end of ``as_of`` with its spatial context, by partition.
 
     Equals ``add_spatial_context(build_snapshot(tables, as_of, config=config), tables,
@@ -96,17 +102,17 @@ def snapshot_with_context(data: PartitionedTables, as_of: str | int) -> Partitio
         )
         for p in range(data.npartitions)
     ]
-    return PartitionedFrame(client, parts)
+    return as_frame(client, parts)
 
 
 def landmark_snapshots(
-    panel: PartitionedFrame,
+    panel: dask.dataframe.DataFrame,
     *,
     horizon: int,
     months: Sequence[int] | np.ndarray | None = None,
     every: int = 3,
     max_landmarks: int = 12,
-) -> PartitionedFrame:
+) -> dask.dataframe.DataFrame:
     """Landmark snapshots of a partitioned panel: one partition per landmark month.
 
     Equals `lifecycle.models.landmark_snapshots` of the whole panel (same arguments, same
@@ -118,9 +124,12 @@ def landmark_snapshots(
     for name, value in (("horizon", horizon), ("every", every), ("max_landmarks", max_landmarks)):
         if not isinstance(value, int | np.integer) or isinstance(value, bool) or value < 1:
             raise UsageError(f"{name} was {value!r} but is expected to be a whole number >= 1")
-    client = panel.client
+    from distributed import get_client
+
+    client = get_client()
+    panel_parts = parts_of(client, panel)
     if months is None:
-        spans = [s for s in client.gather([client.submit(_month_span, p) for p in panel.parts])]
+        spans = client.gather([client.submit(_month_span, p) for p in panel_parts])
         spans = [s for s in spans if s is not None]
         if spans:
             lo, hi = min(s[0] for s in spans), max(s[1] for s in spans)
@@ -128,14 +137,14 @@ def landmark_snapshots(
         else:
             months = np.empty(0, dtype=np.int64)
     months = np.unique(np.asarray(months, dtype=np.int64))
-    by_part = [client.submit(_landmark_part, p, int(horizon), months) for p in panel.parts]
+    by_part = [client.submit(_landmark_part, p, int(horizon), months) for p in panel_parts]
     if months.size == 0:
-        return PartitionedFrame(client, [client.submit(item, by_part[0], 0)])
+        return as_frame(client, [client.submit(item, by_part[0], 0)])
     parts = [
         client.submit(_concat_list, [client.submit(item, b, k) for b in by_part])
         for k in range(months.size)
     ]
-    return PartitionedFrame(client, parts)
+    return as_frame(client, parts)
 
 
 # --- tasks ------------------------------------------------------------------------------------
