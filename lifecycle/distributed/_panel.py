@@ -2,11 +2,11 @@
 
 The results are `dask.dataframe.DataFrame` collections, one partition per partition of
 customers (landmark snapshots: one per landmark month). Each partition's task runs the
-single-process function (`build_panel`, `build_snapshot`,
-`landmark_snapshots`) on its own customers, appends the spatial context from the shared
-`ContextPlan`, and recodes its categorical columns onto the categories of the whole table
-(customer ids, months, text attributes), so that the partitions concatenated are the
-single-process result.
+single-process functions on its own customers: `build_panel`, `build_snapshot` or
+`landmark_snapshots`, then `add_spatial_context` given the partition's share of the
+`ContextPlan` (the move rates and nearby counts that depend on other customers). It then
+recodes its categorical columns onto the categories of the whole table (customer ids, months,
+text attributes), so that the partitions concatenated are the single-process result.
 """
 
 from __future__ import annotations
@@ -67,7 +67,6 @@ def panel_with_context(
         client.submit(
             _panel_part,
             data.parts[p],
-            data.summaries[p],
             data.shared,
             data.config,
             as_of_index,
@@ -94,7 +93,6 @@ def snapshot_with_context(data: PartitionedTables, as_of: str | int) -> dask.dat
         client.submit(
             _snapshot_part,
             data.parts[p],
-            data.summaries[p],
             data.shared,
             data.config,
             as_of_index,
@@ -152,8 +150,8 @@ def landmark_snapshots(
 
 def _plan_args(plan: ContextPlan | None, p: int) -> tuple[object, ...]:
     if plan is None:
-        return (None, 0, (), [])
-    return (plan.rates, plan.first, plan.radii, plan.pieces[p])
+        return (None, 0, [])
+    return (plan.rates, plan.first, plan.pieces[p])
 
 
 def _span(summaries: list[Summary], window_start: int, as_of: int) -> tuple[int, int] | None:
@@ -170,35 +168,31 @@ def _span(summaries: list[Summary], window_start: int, as_of: int) -> tuple[int,
 
 def _panel_part(
     tables: Tables,
-    summary: Summary,
     shared: Shared,
     config: Config,
     as_of: int,
     span: tuple[int, int] | None,
     rates: np.ndarray | None,
     first: int,
-    radii: tuple[float, ...],
     pieces: list,
 ) -> pd.DataFrame:
     frame = build_panel(tables, as_of, config=config)
     if rates is not None:
-        frame = with_context(frame, tables, summary, rates, first, radii, pieces)
+        frame = with_context(frame, tables, config, rates, first, pieces)
     return harmonise(frame, shared, span)
 
 
 def _snapshot_part(
     tables: Tables,
-    summary: Summary,
     shared: Shared,
     config: Config,
     as_of: int,
     rates: np.ndarray,
     first: int,
-    radii: tuple[float, ...],
     pieces: list,
 ) -> pd.DataFrame:
     frame = build_snapshot(tables, as_of, config=config)
-    frame = with_context(frame, tables, summary, rates, first, radii, pieces)
+    frame = with_context(frame, tables, config, rates, first, pieces)
     return harmonise(frame, shared, (as_of + 1, as_of + 1))
 
 
