@@ -58,6 +58,9 @@ class InputError(LifecycleError):
 
     Each example is shown cut to ``MAX_EXAMPLE_CHARS`` characters, so that a huge id never
     makes a huge message.
+
+    The error pickles with every field (it is rebuilt from `fields`), so one raised in a task
+    on a Dask worker reaches the caller as the same `InputError`.
     """
 
     def __init__(
@@ -91,6 +94,10 @@ class InputError(LifecycleError):
             "fix": self.fix,
             "source_column": self.source_column,
         }
+
+    def __reduce__(self) -> tuple[object, ...]:
+        # Exception pickling calls ``cls(*args)``; this class takes keywords only.
+        return (_rebuild_input_error, (type(self), self.fields()))
 
     def with_source_names(self, columns: dict[str, dict[str, str]]) -> InputError:
         """This error naming the input's own column name beside ours, where ``columns``
@@ -139,6 +146,11 @@ class PlanSafetyError(LifecycleError):
 class OutputError(LifecycleError):
     """Raised when an output cannot be written, e.g. the disk is full (exit code 1). Nothing
     partial is left: earlier outputs and the history are as they were."""
+
+
+def _rebuild_input_error(cls: type[InputError], fields: dict[str, object]) -> InputError:
+    """An unpickled `InputError` (see `InputError.__reduce__`)."""
+    return cls(**fields)
 
 
 def _plain(value: object) -> object:

@@ -91,7 +91,9 @@ def test_panel_with_context_equals_the_single_process_panel(panel, single):
     assert panel.npartitions == 3
     # same rows, order, columns, dtypes (categories included) and values, bit for bit:
     # each partition runs the same functions on the same numbers
-    pd.testing.assert_frame_equal(panel.gather(), single[0], check_exact=True)
+    pd.testing.assert_frame_equal(
+        panel.compute().reset_index(drop=True), single[0], check_exact=True
+    )
 
 
 @pytest.fixture(scope="module")
@@ -104,9 +106,11 @@ def seven(client, demo):
 def test_more_partitions_change_nothing(seven, demo, single):
     _, config, tables = demo
     pd.testing.assert_frame_equal(
-        panel_with_context(seven, AS_OF).gather(), single[0], check_exact=True
+        panel_with_context(seven, AS_OF).compute().reset_index(drop=True),
+        single[0],
+        check_exact=True,
     )
-    no_context = panel_with_context(seven, AS_OF, spatial=False).gather()
+    no_context = panel_with_context(seven, AS_OF, spatial=False).compute().reset_index(drop=True)
     pd.testing.assert_frame_equal(
         no_context, build_panel(tables, AS_OF, config=config), check_exact=True
     )
@@ -114,14 +118,18 @@ def test_more_partitions_change_nothing(seven, demo, single):
 
 def test_snapshot_with_context_equals_the_single_process_snapshot(data, single):
     snapshot = snapshot_with_context(data, AS_OF)
-    pd.testing.assert_frame_equal(snapshot.gather(), single[1], check_exact=True)
+    pd.testing.assert_frame_equal(
+        snapshot.compute().reset_index(drop=True), single[1], check_exact=True
+    )
 
 
 def test_landmark_snapshots_equal_the_single_process_ones(panel, single):
     landmarks = landmark_snapshots(panel, horizon=12)
     expected = single_landmarks(single[0], horizon=12)
     assert landmarks.npartitions == expected["month"].nunique()  # one per landmark month
-    pd.testing.assert_frame_equal(landmarks.gather(), expected, check_exact=True)
+    pd.testing.assert_frame_equal(
+        landmarks.compute().reset_index(drop=True), expected, check_exact=True
+    )
 
 
 def test_folders_of_parquet_parts_give_the_same_panel(client, demo, single, tmp_path):
@@ -148,7 +156,9 @@ def test_folders_of_parquet_parts_give_the_same_panel(client, demo, single, tmp_
     data = distribute_tables(client, parts, config=config)
     assert data.npartitions == 3
     pd.testing.assert_frame_equal(
-        panel_with_context(data, AS_OF).gather(), single[0], check_exact=True
+        panel_with_context(data, AS_OF).compute().reset_index(drop=True),
+        single[0],
+        check_exact=True,
     )
 
     # bad data in a part comes back as one InputError naming table, column and rows
@@ -179,13 +189,13 @@ def model(panel):
 
 def test_sample_customers_keeps_whole_customers_whatever_the_partitions(panel, seven):
     sample = sample_customers(panel, 0.25, seed=1)
-    whole = panel.gather()
+    whole = panel.compute().reset_index(drop=True)
     drawn = whole["customer_id"].isin(sample["customer_id"].unique())
     pd.testing.assert_frame_equal(sample, whole[drawn].reset_index(drop=True))
     share = sample["customer_id"].nunique() / whole["customer_id"].nunique()
     assert 0.2 < share < 0.3  # binomial sd at 2,000+ customers is below 0.01
     other = panel_with_context(seven, AS_OF, spatial=False)
-    expected = sample[list(other.partition(0).columns)]
+    expected = sample[list(other.partitions[0].compute().columns)]
     pd.testing.assert_frame_equal(sample_customers(other, 0.25, seed=1), expected)
     assert not sample_customers(panel, 0.25, seed=2).equals(sample)
     with pytest.raises(UsageError, match="fraction"):
@@ -206,7 +216,9 @@ def test_scores_values_and_forecast_equal_the_single_process_ones(data, model, s
     )
     scored = score_portfolio(data, model, AS_OF)
     # floating-point tolerance: matrix products over a partition's rows may round differently
-    pd.testing.assert_frame_equal(scored.scores.gather(), expected, rtol=1e-9, atol=1e-12)
+    pd.testing.assert_frame_equal(
+        scored.scores.compute().reset_index(drop=True), expected, rtol=1e-9, atol=1e-12
+    )
 
     offers = [
         Offer(name="credit", target="churn", cost=10.0, hazard_ratio=0.7, months=6),
@@ -218,7 +230,7 @@ def test_scores_values_and_forecast_equal_the_single_process_ones(data, model, s
         hazards, model.causes_, margin, offers, annual_discount=value.annual_discount,
         horizon=value.horizon_months, customer_ids=ids,
     )  # fmt: skip
-    got = offer_values(scored, offers).gather()
+    got = offer_values(scored, offers).compute().reset_index(drop=True)
     pd.testing.assert_frame_equal(got, expected_offers, rtol=1e-9, atol=1e-9)
 
     fc = forecast_settings(config)
@@ -243,21 +255,19 @@ def test_scores_values_and_forecast_equal_the_single_process_ones(data, model, s
     pd.testing.assert_frame_equal(got, expected_forecast, rtol=1e-9, atol=1e-9)
 
 
-def test_partitions_write_to_parquet_in_order(panel, tmp_path):
-    paths = panel.to_parquet(tmp_path / "panel")
-    assert [p.name for p in paths] == [f"part-0000{i}.parquet" for i in range(3)]
-    back = pd.concat([pd.read_parquet(p) for p in paths], ignore_index=True)
-    whole = panel.gather()
-    assert len(back) == len(whole)
-    np.testing.assert_array_equal(
-        back["customer_id"].astype(str).to_numpy(), whole["customer_id"].astype(str).to_numpy()
-    )
-    np.testing.assert_array_equal(back["local_move_rate"], whole["local_move_rate"])
-    heads = panel.map(lambda frame, k: frame.iloc[:k], 2).gather()
+def test_results_are_dask_frames_of_whole_customers_in_order(panel, single):
+    """The panel is a dask DataFrame: one partition per partition of customers, each holding
+    whole customers in table order, so that dask's own operations apply partition-wise."""
+    import dask.dataframe as dd
+
+    assert isinstance(panel, dd.DataFrame) and panel.npartitions == 3
+    assert len(panel) == len(single[0])
+    heads = panel.map_partitions(lambda frame: frame.iloc[:2]).compute()
     assert heads["customer_id"].nunique() == 3  # two rows of the first customer of each
-    dask_frame = panel.to_dask()
-    assert dask_frame.npartitions == 3
-    assert len(dask_frame) == len(whole)
+    firsts = [panel.partitions[i].compute()["customer_id"].iloc[0] for i in range(3)]
+    order = pd.Index(single[0]["customer_id"].drop_duplicates())
+    assert list(order.get_indexer(firsts)) == sorted(order.get_indexer(firsts))
+    assert (panel.dtypes == single[0].dtypes).all()  # text stays as pandas types it
 
 
 # --- tiles and halos against a brute-force count ---------------------------------------------
@@ -376,22 +386,45 @@ def test_the_monthly_cycle_on_the_cluster_writes_the_same_files(client, tmp_path
             assert figures[1][key] == value, key
 
 
-def test_an_input_error_from_a_task_keeps_every_field_across_pickling():
-    """A task's `InputError` arrives as it was raised, the export's own column name included
-    (it was dropped before the error carried `fields`)."""
+def _bad_dates(n_rows: int) -> None:
+    """A task that fails on its input (module level, so that a worker can unpickle it)."""
+    raise InputError(
+        table="customers", column="end_month", problem="is before start_month", count=n_rows,
+        examples=["A1", "B2"], fix="mend the dates", source_column="leave_date",
+    )  # fmt: skip
+
+
+def test_every_error_survives_pickling_with_its_fields():
+    """pickle.loads(pickle.dumps(err)) is the same error: same class, message and fields (the
+    standard library's exception pickling calls ``cls(*args)``, which keyword-only
+    `InputError` cannot take without help)."""
     import pickle
 
-    from lifecycle.distributed._remote import portable
-    from lifecycle.errors import InputError
-
-    def task():
-        raise InputError(
-            table="customers", column="end_month", problem="is before start_month", count=2,
-            examples=["A1", "B2"], fix="mend the dates", source_column="leave_date",
-        )  # fmt: skip
+    from lifecycle import errors
 
     with pytest.raises(InputError) as caught:
-        portable(task)()
+        _bad_dates(2)
     again = pickle.loads(pickle.dumps(caught.value))
+    assert type(again) is InputError
     assert again.fields() == caught.value.fields()
     assert again.source_column == "leave_date" and str(again) == str(caught.value)
+    for name in errors.__all__:
+        kind = getattr(errors, name)
+        if isinstance(kind, type) and kind is not InputError:
+            err = kind("something is wrong")
+            back = pickle.loads(pickle.dumps(err))
+            assert type(back) is kind and str(back) == str(err), name
+
+
+def test_an_input_error_raised_in_a_task_reaches_the_caller_with_its_fields(client):
+    """A plain task (no wrapper) that raises `InputError` on a worker: the caller catches an
+    `InputError` with every field as raised, the export's own column name included."""
+    with pytest.raises(InputError) as caught:
+        client.submit(_bad_dates, 3, pure=False).result()
+    assert type(caught.value) is InputError
+    assert caught.value.fields() == {
+        "table": "customers", "column": "end_month", "problem": "is before start_month",
+        "count": 3, "examples": ["A1", "B2"], "fix": "mend the dates",
+        "source_column": "leave_date",
+    }  # fmt: skip
+    assert "column 'leave_date' (end_month)" in str(caught.value)

@@ -92,19 +92,25 @@ def test_the_check_finds_every_form_of_reaching_in():
 
 
 # import name → distribution name, where they differ
-_DISTRIBUTIONS = {"sklearn": "scikit-learn", "sksurv": "scikit-survival", "dask": "dask"}
+_DISTRIBUTIONS = {
+    "sklearn": "scikit-learn",
+    "sksurv": "scikit-survival",
+    "dask": "dask",
+    "sklift": "scikit-uplift",
+}
 
 
 def test_every_library_imported_at_run_time_is_declared():
     """Each third-party module the package imports (at the top or inside a function) is a
     dependency in pyproject.toml, with a lower bound (the optional ``distributed`` extra for
-    dask)."""
+    dask; the ``bench`` extra for the library `lifecycle bench response` compares with)."""
     import sys
     import tomllib
 
     project = tomllib.loads((ROOT.parent / "pyproject.toml").read_text())["project"]
+    extras = project["optional-dependencies"]
     declared = {}
-    for spec in [*project["dependencies"], *project["optional-dependencies"]["distributed"]]:
+    for spec in [*project["dependencies"], *extras["distributed"], *extras["bench"]]:
         name = spec.split(">")[0].split("[")[0].split("<")[0].split("=")[0].strip()
         declared[name] = spec
     imported = set()

@@ -61,6 +61,7 @@ def run_response_bench(
     """The suite at ``customers`` demo customers (``folder``: a demo already written there)."""
     from ._models import write_demo_folder
 
+    _require_uplift_library()
     with tempfile.TemporaryDirectory(prefix="lifecycle-bench-response-") as tmp:
         if folder is None:
             folder = write_demo_folder(Path(tmp) / "demo", customers, seed=DEMO_SEED)
@@ -72,6 +73,19 @@ def run_response_bench(
         )  # fmt: skip
         figures = json.loads(result_file.read_text(encoding="utf-8"))
     return [ours, *_more_rows(figures, size, ours.peak_mb)]
+
+
+def _require_uplift_library() -> None:
+    """The comparison needs scikit-uplift, an optional extra (``bench``), not a run-time need."""
+    from importlib.util import find_spec
+
+    from ..errors import UsageError
+
+    if find_spec("sklift") is None:
+        raise UsageError(
+            "`lifecycle bench response` compares with scikit-uplift's T-learner, which is not "
+            "installed: pip install 'lifecycle-hazards[bench]'"
+        )
 
 
 def _measured(folder: str, customers: int, paths: int, result_file: str) -> dict:

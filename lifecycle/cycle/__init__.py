@@ -5,6 +5,7 @@ from ._effects import CustomerEffects, customer_effects, effect_columns
 from ._explain import explain_customer
 from ._run import RunResult, RunSettings, run_cycle, run_settings
 from ._steps import (
+    SCORE_HORIZONS,
     Scored,
     default_cutoffs,
     fit_model,
@@ -13,10 +14,12 @@ from ._steps import (
     plan_contacts,
     planning_frame,
     score_portfolio,
+    score_snapshot,
     snapshot_with_context,
 )
 
 __all__ = [
+    "SCORE_HORIZONS",
     "CustomerEffects",
     "RunResult",
     "RunSettings",
@@ -34,5 +37,6 @@ __all__ = [
     "run_cycle",
     "run_settings",
     "score_portfolio",
+    "score_snapshot",
     "snapshot_with_context",
 ]

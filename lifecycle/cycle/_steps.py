@@ -100,13 +100,36 @@ def score_portfolio(
 ) -> Scored:
     """Score every customer present at the end of ``as_of``: survival, cumulative incidence at
     each horizon, and lifetime value over the ``[value]`` horizon."""
+    snapshot = snapshot_with_context(tables, as_of, config)
+    hazards, scores = score_snapshot(model, snapshot, config, horizons=horizons)
+    return Scored(snapshot, hazards, model.causes_, len(model.terminal_causes_), scores)
+
+
+def score_snapshot(
+    model: HazardModel,
+    snapshot: pd.DataFrame,
+    config: Config,
+    *,
+    horizons: Sequence[int] = SCORE_HORIZONS,
+) -> tuple[np.ndarray, pd.DataFrame]:
+    """Monthly hazards and scores of the customers of a snapshot (any subset of them).
+
+    The hazards cover T months, T the longest of ``horizons``, ``[value] horizon_months`` and
+    ``[forecast] horizon_months``; the scores are `lifecycle.models.score_customers` at
+    ``horizons`` and the lifetime value over the ``[value]`` horizon,
+    LTV = Σ_{t≤H} margin · S(t) · (1 + d)^−t (`lifecycle.value.lifetime_value`). Each
+    customer's row depends on that customer alone, so the distributed route calls this on
+    each partition of the snapshot.
+    """
     from ..forecast import forecast_settings
     from ..value import lifetime_value, value_settings
 
     values = value_settings(config)
     months = max(max(horizons), values.horizon_months, forecast_settings(config).horizon_months)
-    snapshot = snapshot_with_context(tables, as_of, config)
-    hazards = model.hazard_array(snapshot, months)
+    if len(snapshot):
+        hazards = model.hazard_array(snapshot, months)
+    else:  # a model may refuse to predict for no rows (an empty partition)
+        hazards = np.zeros((0, months, len(model.causes_)))
     scores = score_customers(model, snapshot, horizons, hazards=hazards)
     survival = _survival(hazards, len(model.terminal_causes_))
     scores["lifetime_value"] = lifetime_value(
@@ -114,7 +137,7 @@ def score_portfolio(
         snapshot["monthly_margin"].to_numpy(dtype=np.float64),
         annual_discount=values.annual_discount,
     )
-    return Scored(snapshot, hazards, model.causes_, len(model.terminal_causes_), scores)
+    return hazards, scores
 
 
 def _survival(hazards: np.ndarray, n_terminal: int) -> np.ndarray:
@@ -364,7 +387,7 @@ def score_on_cluster(
 
     data = dist.distribute_tables(client, tables, config=config)
     remote = dist.score_portfolio(data, model, as_of)
-    snapshot = remote.snapshot.gather()
+    snapshot = remote.snapshot.compute().reset_index(drop=True)
     ratios = own_hazard_ratios(own_effects(snapshot)) if own_effects is not None else {}
     values = dist.offer_values(remote, offers, hazard_ratios=ratios or None)
     extras = forecast_extras(tables, model, Scored(snapshot, None, (), 0, None), config)
@@ -374,9 +397,9 @@ def score_on_cluster(
         hazards=None,
         causes=tuple(remote.causes),
         n_terminal=remote.n_terminal,
-        scores=remote.scores.gather(),
+        scores=remote.scores.compute().reset_index(drop=True),
     )
-    return scored, values.gather(), forecast
+    return scored, values.compute().reset_index(drop=True), forecast
 
 
 def default_cutoffs(as_of: str | int, horizon: int, count: int = 2, step: int = 3) -> list[str]:

@@ -4,9 +4,13 @@ Panel building, spatial context, landmark snapshots, scoring, lifetime and offer
 uptake forecast run partition by partition on the workers of a `distributed` cluster: a local
 one (``compute_client(workers=N)``) or a running scheduler (``address=`` or ``[compute]
 scheduler`` in the config). Input tables may be folders of Parquet parts too large for one
-process (`distribute_tables`). Results are `PartitionedFrame` objects whose partitions,
-concatenated in order, equal the single-process result: the same rows in the same order, the
-same columns and dtypes, values equal up to floating-point rounding. What needs every customer
+process (`distribute_tables`). Each step runs, on each partition, the function the
+single-process cycle runs (`build_panel`, `build_snapshot`, `landmark_snapshots`,
+`lifecycle.cycle.score_snapshot`, `lifecycle.value.offer_values`, `forecast_uptake`), one task
+per partition submitted with the arguments it needs. Results are `dask.dataframe.DataFrame`
+collections whose partitions, concatenated in order (``frame.compute().reset_index(drop=True)``),
+equal the single-process result: the same rows in the same order, the same columns and dtypes,
+values equal up to floating-point rounding. What needs every customer
 (the spatial context, the forecast's intervals) is computed from small per-customer summaries
 or gathered by area, as each function's docstring says.
 
@@ -22,12 +26,11 @@ Example::
     with compute_client(workers=4) as client:
         data = distribute_tables(client, "data", config=config)
         panel = panel_with_context(data, "2026-10")
-        panel.to_parquet("panel_parts")
+        panel.to_parquet("panel_parts")  # dask's own writer, one file per partition
 """
 
 from ._client import ComputeSettings, compute_client, compute_settings
 from ._forecast import forecast_portfolio
-from ._frame import PartitionedFrame
 from ._panel import landmark_snapshots, panel_with_context, snapshot_with_context
 from ._score import (
     DistributedScored,
@@ -41,7 +44,6 @@ from ._tables import PartitionedTables
 __all__ = [
     "ComputeSettings",
     "DistributedScored",
-    "PartitionedFrame",
     "PartitionedTables",
     "compute_client",
     "compute_settings",

@@ -12,8 +12,10 @@
   neighbour of a premise of the tile is among them, so its counts are exactly those over all
   premises. The counts are then sent on to the partitions of their customers.
 
-Everything else (area attributes) is per customer. The values equal the single-process ones:
-the same functions see the same numbers.
+Each partition's rows then get their context from `add_spatial_context` itself, given the
+rates and their counts as a `lifecycle.spatial.SharedContext` (`with_context`); area
+attributes are per customer. The values equal the single-process ones: the same functions
+see the same numbers.
 """
 
 from __future__ import annotations
@@ -24,20 +26,17 @@ from typing import TYPE_CHECKING
 import numpy as np
 import pandas as pd
 
-from .._months import categorical_to_index
 from ..config import Config
 from ..data import Tables
 from ..errors import UsageError
 from ..spatial import (
-    adoption_columns,
-    area_attributes,
-    check_context_names,
+    SharedContext,
+    add_spatial_context,
     checked_radii,
     local_move_rates,
     nearby_counts,
-    radius_label,
 )
-from ._remote import item, portable
+from ._remote import item
 from ._tables import NEVER, PartitionedTables, Summary
 
 if TYPE_CHECKING:
@@ -77,16 +76,6 @@ def radii_of(config: Config) -> tuple[float, ...]:
     return radii
 
 
-def nearby_names(products: tuple[str, ...], radii: tuple[float, ...]) -> list[str]:
-    """The nearby-adoption column names, in the order `add_spatial_context` appends them."""
-    names = []
-    for product in products:
-        for radius in radii:
-            label = radius_label(radius)
-            names += [f"nearby_adopters_{product}_{label}m", f"nearby_adoption_{product}_{label}m"]
-    return names
-
-
 def plan_context(data: PartitionedTables, first: int, last: int) -> ContextPlan:
     """Start the shared part of the context of rows in months ``first..last`` (indices)."""
     client = data.client
@@ -105,7 +94,6 @@ def plan_context(data: PartitionedTables, first: int, last: int) -> ContextPlan:
     return ContextPlan(first, last, radii, rates, pieces)
 
 
-@portable
 def _move_rates(
     summaries: list[Summary], n_areas: int, first: int, last: int, window: int
 ) -> np.ndarray:
@@ -134,7 +122,6 @@ class _Points:
     offsets: np.ndarray  # partition starts in the customers table
 
 
-@portable
 def _points(
     summaries: list[Summary], offsets: np.ndarray, first: int, last: int, n_tiles: int
 ) -> _Points:
@@ -168,7 +155,6 @@ def _points(
     )
 
 
-@portable
 def _tile(
     points: _Points, t: int, radii: tuple[float, ...], n_months: int
 ) -> list[tuple[np.ndarray, list[np.ndarray]]]:
@@ -199,47 +185,27 @@ def _tile(
 def with_context(
     frame: pd.DataFrame,
     tables: Tables,
-    summary: Summary,
+    config: Config,
     rates: np.ndarray,
     first: int,
-    radii: tuple[float, ...],
     pieces: list[tuple[np.ndarray, list[np.ndarray]]],
 ) -> pd.DataFrame:
-    """The frame (rows of this partition's customers) with its spatial context appended, the
-    columns, their order and dtypes as `add_spatial_context` gives them."""
-    rows = _local_positions(frame["customer_id"], tables.customers["customer_id"])
-    month_col = categorical_to_index(frame["month"]).astype(np.int64) - first
-    attributes = area_attributes(tables)
-    products = tuple(tables.products)
-    nearby = nearby_names(products, radii)
-    check_context_names(frame, [str(c) for c in attributes.columns], nearby)
-    area = summary.area[rows]
-    new: dict[str, np.ndarray] = {}
-    for name in attributes.columns:
-        new[str(name)] = attributes[name].to_numpy()[area]
-    new["local_move_rate"] = rates[area, month_col].astype(np.float32)
-    if products:
-        n_q = len(products) + 1
-        for r, radius in enumerate(radii):
-            counts, slot = _counts_for(pieces, r, len(tables.customers))
-            n_months = counts.shape[2]
-            flat_row = slot[rows] * (n_q * n_months) + month_col
-            new.update(
-                adoption_columns(counts.reshape(-1), flat_row, n_months, list(products), radius)
-            )
-        new = {k: new[k] for k in [*map(str, attributes.columns), "local_move_rate", *nearby]}
-    return pd.concat([frame, pd.DataFrame(new, index=frame.index)], axis=1)
-
-
-def _counts_for(
-    pieces: list[tuple[np.ndarray, list[np.ndarray]]], r: int, n_customers: int
-) -> tuple[np.ndarray, np.ndarray]:
-    """Counts of radius r of this partition's customers, and each customer's row in them."""
-    positions = np.concatenate([p[0] for p in pieces])
-    counts = np.concatenate([p[1][r] for p in pieces]).astype(np.int32, copy=False)
-    slot = np.full(n_customers, -1, dtype=np.int64)
-    slot[positions] = np.arange(positions.size)
-    return counts, slot
+    """The frame (rows of this partition's customers) with its spatial context appended by
+    `lifecycle.spatial.add_spatial_context`, given the move rates and this partition's
+    pieces of nearby counts (`SharedContext`)."""
+    n = len(tables.customers)
+    slot = np.full(n, -1, dtype=np.int64)
+    counts: list[np.ndarray] = []
+    if tables.products and pieces:
+        positions = np.concatenate([p[0] for p in pieces])
+        slot[positions] = np.arange(positions.size)
+        n_radii = len(pieces[0][1])
+        counts = [
+            np.concatenate([p[1][r] for p in pieces]).astype(np.int32, copy=False)
+            for r in range(n_radii)
+        ]
+    shared = SharedContext(first=first, rates=rates, counts=counts, slot=slot)
+    return add_spatial_context(frame, tables, config=config, shared=shared)
 
 
 def _local_positions(frame_ids: pd.Series, customer_ids: pd.Series) -> np.ndarray:

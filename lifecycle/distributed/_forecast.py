@@ -24,7 +24,7 @@ from ..data import Tables
 from ..errors import UsageError
 from ..forecast import ALL_AREAS, forecast_settings, forecast_uptake
 from ._context import _local_positions
-from ._remote import portable
+from ._remote import parts_of
 from ._score import DistributedScored
 from ._tables import PartitionedTables, Summary
 
@@ -63,7 +63,7 @@ def forecast_portfolio(
             settings.horizon_months,
         )
         for p, (hazards, snapshot) in enumerate(
-            zip(scored.hazards, scored.snapshot.parts, strict=True)
+            zip(scored.hazards, parts_of(client, scored.snapshot), strict=True)
         )
     ]
     labels = sorted(set().union(*client.gather([client.submit(_labels, i) for i in inputs])))
@@ -88,7 +88,6 @@ def forecast_portfolio(
     return pd.concat(ordered, ignore_index=True)
 
 
-@portable
 def _reduce(
     hazards: np.ndarray,
     snapshot: pd.DataFrame,
@@ -118,7 +117,6 @@ def _labels(inputs: tuple[np.ndarray, np.ndarray]) -> set[str]:
     return set(inputs[0].tolist())
 
 
-@portable
 def _forecast_groups(
     inputs: list[tuple[np.ndarray, np.ndarray]],
     areas: list[str] | None,

@@ -1,16 +1,19 @@
 """The panel, the scoring snapshot and landmark snapshots, built partition by partition.
 
-Each partition's task runs the single-process function (`build_panel`, `build_snapshot`,
-`landmark_snapshots`) on its own customers, appends the spatial context from the shared
-`ContextPlan`, and recodes its categorical columns onto the categories of the whole table
-(customer ids, months, text attributes), so that the partitions concatenated are the
-single-process result.
+The results are `dask.dataframe.DataFrame` collections, one partition per partition of
+customers (landmark snapshots: one per landmark month). Each partition's task runs the
+single-process functions on its own customers: `build_panel`, `build_snapshot` or
+`landmark_snapshots`, then `add_spatial_context` given the partition's share of the
+`ContextPlan` (the move rates and nearby counts that depend on other customers). It then
+recodes its categorical columns onto the categories of the whole table (customer ids, months,
+text attributes), so that the partitions concatenated are the single-process result.
 """
 
 from __future__ import annotations
 
 import logging
 from collections.abc import Sequence
+from typing import TYPE_CHECKING
 
 import numpy as np
 import pandas as pd
@@ -22,21 +25,24 @@ from ..errors import UsageError
 from ..models import landmark_snapshots as _landmark_snapshots
 from ..panel import build_panel, build_snapshot
 from ._context import ContextPlan, plan_context, with_context
-from ._frame import PartitionedFrame
-from ._remote import concat_frames, item, portable
+from ._remote import as_frame, concat_frames, item, parts_of
 from ._tables import PartitionedTables, Shared, Summary
+
+if TYPE_CHECKING:
+    import dask.dataframe
 
 log = logging.getLogger(__name__)
 
 
 def panel_with_context(
     data: PartitionedTables, as_of: str | int, *, spatial: bool = True
-) -> PartitionedFrame:
+) -> dask.dataframe.DataFrame:
     """The customer-month panel of ``as_of`` with its spatial context, by partition.
 
     Equals ``add_spatial_context(build_panel(tables, as_of, config=config), tables,
     config=config)`` of the whole tables (``build_panel`` alone with ``spatial=False``):
-    partition p holds the rows of partition p's customers. See `lifecycle.panel.build_panel`
+    partition p holds the rows of partition p's customers (each with its own index 0..n_p−1).
+    See `lifecycle.panel.build_panel`
     and `lifecycle.spatial.add_spatial_context` for the columns and their definitions, and
     `lifecycle.distributed._context` for how the context is shared out.
 
@@ -61,7 +67,6 @@ def panel_with_context(
         client.submit(
             _panel_part,
             data.parts[p],
-            data.summaries[p],
             data.shared,
             data.config,
             as_of_index,
@@ -70,10 +75,10 @@ def panel_with_context(
         )
         for p in range(data.npartitions)
     ]
-    return PartitionedFrame(client, parts)
+    return as_frame(client, parts)
 
 
-def snapshot_with_context(data: PartitionedTables, as_of: str | int) -> PartitionedFrame:
+def snapshot_with_context(data: PartitionedTables, as_of: str | int) -> dask.dataframe.DataFrame:
     """The scoring snapshot at the end of ``as_of`` with its spatial context, by partition.
 
     Equals ``add_spatial_context(build_snapshot(tables, as_of, config=config), tables,
@@ -88,7 +93,6 @@ def snapshot_with_context(data: PartitionedTables, as_of: str | int) -> Partitio
         client.submit(
             _snapshot_part,
             data.parts[p],
-            data.summaries[p],
             data.shared,
             data.config,
             as_of_index,
@@ -96,17 +100,17 @@ def snapshot_with_context(data: PartitionedTables, as_of: str | int) -> Partitio
         )
         for p in range(data.npartitions)
     ]
-    return PartitionedFrame(client, parts)
+    return as_frame(client, parts)
 
 
 def landmark_snapshots(
-    panel: PartitionedFrame,
+    panel: dask.dataframe.DataFrame,
     *,
     horizon: int,
     months: Sequence[int] | np.ndarray | None = None,
     every: int = 3,
     max_landmarks: int = 12,
-) -> PartitionedFrame:
+) -> dask.dataframe.DataFrame:
     """Landmark snapshots of a partitioned panel: one partition per landmark month.
 
     Equals `lifecycle.models.landmark_snapshots` of the whole panel (same arguments, same
@@ -118,9 +122,12 @@ def landmark_snapshots(
     for name, value in (("horizon", horizon), ("every", every), ("max_landmarks", max_landmarks)):
         if not isinstance(value, int | np.integer) or isinstance(value, bool) or value < 1:
             raise UsageError(f"{name} was {value!r} but is expected to be a whole number >= 1")
-    client = panel.client
+    from distributed import get_client
+
+    client = get_client()
+    panel_parts = parts_of(client, panel)
     if months is None:
-        spans = [s for s in client.gather([client.submit(_month_span, p) for p in panel.parts])]
+        spans = client.gather([client.submit(_month_span, p) for p in panel_parts])
         spans = [s for s in spans if s is not None]
         if spans:
             lo, hi = min(s[0] for s in spans), max(s[1] for s in spans)
@@ -128,14 +135,14 @@ def landmark_snapshots(
         else:
             months = np.empty(0, dtype=np.int64)
     months = np.unique(np.asarray(months, dtype=np.int64))
-    by_part = [client.submit(_landmark_part, p, int(horizon), months) for p in panel.parts]
+    by_part = [client.submit(_landmark_part, p, int(horizon), months) for p in panel_parts]
     if months.size == 0:
-        return PartitionedFrame(client, [client.submit(item, by_part[0], 0)])
+        return as_frame(client, [client.submit(item, by_part[0], 0)])
     parts = [
         client.submit(_concat_list, [client.submit(item, b, k) for b in by_part])
         for k in range(months.size)
     ]
-    return PartitionedFrame(client, parts)
+    return as_frame(client, parts)
 
 
 # --- tasks ------------------------------------------------------------------------------------
@@ -143,11 +150,10 @@ def landmark_snapshots(
 
 def _plan_args(plan: ContextPlan | None, p: int) -> tuple[object, ...]:
     if plan is None:
-        return (None, 0, (), [])
-    return (plan.rates, plan.first, plan.radii, plan.pieces[p])
+        return (None, 0, [])
+    return (plan.rates, plan.first, plan.pieces[p])
 
 
-@portable
 def _span(summaries: list[Summary], window_start: int, as_of: int) -> tuple[int, int] | None:
     """First and last month of the panel's rows over all customers (`None`: no rows)."""
     start = np.concatenate([s.start for s in summaries])
@@ -160,39 +166,33 @@ def _span(summaries: list[Summary], window_start: int, as_of: int) -> tuple[int,
     return int(first[kept].min()), int(last[kept].max())
 
 
-@portable
 def _panel_part(
     tables: Tables,
-    summary: Summary,
     shared: Shared,
     config: Config,
     as_of: int,
     span: tuple[int, int] | None,
     rates: np.ndarray | None,
     first: int,
-    radii: tuple[float, ...],
     pieces: list,
 ) -> pd.DataFrame:
     frame = build_panel(tables, as_of, config=config)
     if rates is not None:
-        frame = with_context(frame, tables, summary, rates, first, radii, pieces)
+        frame = with_context(frame, tables, config, rates, first, pieces)
     return harmonise(frame, shared, span)
 
 
-@portable
 def _snapshot_part(
     tables: Tables,
-    summary: Summary,
     shared: Shared,
     config: Config,
     as_of: int,
     rates: np.ndarray,
     first: int,
-    radii: tuple[float, ...],
     pieces: list,
 ) -> pd.DataFrame:
     frame = build_snapshot(tables, as_of, config=config)
-    frame = with_context(frame, tables, summary, rates, first, radii, pieces)
+    frame = with_context(frame, tables, config, rates, first, pieces)
     return harmonise(frame, shared, (as_of + 1, as_of + 1))
 
 
@@ -229,7 +229,6 @@ def _month_span(frame: pd.DataFrame) -> tuple[int, int] | None:
     return int(month.min()), int(month.max())
 
 
-@portable
 def _landmark_part(panel: pd.DataFrame, horizon: int, months: np.ndarray) -> list[pd.DataFrame]:
     """This partition's landmark rows, one frame per landmark month."""
     frame = _landmark_snapshots(panel, horizon=horizon, months=months)

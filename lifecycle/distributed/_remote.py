@@ -1,47 +1,23 @@
-"""What every task run on a worker shares: errors that survive the trip back, small helpers.
+"""Small helpers that tasks on the workers share, and the step results as dask DataFrames.
 
-A task's exception is pickled on the worker and raised again in the caller. `InputError` takes
-keyword-only arguments, which default exception pickling cannot rebuild, so tasks raise the
-subclass `_PortableInputError` instead (same class for ``except InputError``, same message).
+A task's `InputError` needs no wrapping: the error pickles with all its fields
+(`lifecycle.errors.InputError.__reduce__`), so the caller gets it as it was raised.
+
+The steps return `dask.dataframe.DataFrame` collections over the partitions their tasks left
+on the workers (`as_frame`); the next step takes those partitions back as futures
+(`parts_of`) and submits one task per partition with the arguments that partition needs.
 """
 
 from __future__ import annotations
 
-import functools
-from collections.abc import Callable, Sequence
-from typing import Any, TypeVar
+from collections.abc import Sequence
+from typing import TYPE_CHECKING, Any
 
 import pandas as pd
 
-from ..errors import InputError
-
-F = TypeVar("F", bound=Callable[..., Any])
-
-
-class _PortableInputError(InputError):
-    """An `InputError` that pickles: rebuilt from its fields on the other side."""
-
-    def __reduce__(self):
-        return (_rebuild_input_error, (self.fields(),))
-
-
-def _rebuild_input_error(fields: dict) -> _PortableInputError:
-    return _PortableInputError(**fields)
-
-
-def portable(fn: F) -> F:
-    """Run ``fn`` as a task: an `InputError` it raises comes back to the caller intact."""
-
-    @functools.wraps(fn)
-    def task(*args: Any, **kwargs: Any) -> Any:
-        try:
-            return fn(*args, **kwargs)
-        except _PortableInputError:
-            raise
-        except InputError as exc:
-            raise _PortableInputError(**exc.fields()) from None
-
-    return task  # type: ignore[return-value]
+if TYPE_CHECKING:
+    import dask.dataframe
+    from distributed import Client, Future
 
 
 def item(values: Sequence[Any], index: int) -> Any:
@@ -56,3 +32,29 @@ def concat_frames(frames: Sequence[pd.DataFrame]) -> pd.DataFrame:
     if len(kept) == 1:
         return kept[0].reset_index(drop=True)
     return pd.concat(kept, ignore_index=True)
+
+
+def as_frame(client: Client, parts: list[Future]) -> dask.dataframe.DataFrame:
+    """A dask DataFrame whose partitions are the frames of ``parts``, in order.
+
+    Each partition keeps its own index (0..n_p−1), as the collections dask reads from files
+    do; ``frame.compute().reset_index(drop=True)`` is the single-process table. Text columns
+    stay as the single-process functions type them (dask's conversion of object columns to
+    pyarrow strings is turned off while the collection is built).
+    """
+    import dask
+    import dask.dataframe as dd
+
+    meta = client.submit(_empty_like, parts[0]).result()
+    with dask.config.set({"dataframe.convert-string": False}):
+        return dd.from_delayed(list(parts), meta=meta, verify_meta=False)
+
+
+def parts_of(client: Client, frame: dask.dataframe.DataFrame) -> list[Future]:
+    """One future per partition of ``frame``, in order (computed on the cluster; partitions
+    already held by the workers are not moved)."""
+    return list(client.compute(frame.to_delayed()))
+
+
+def _empty_like(frame: pd.DataFrame) -> pd.DataFrame:
+    return frame.iloc[:0]

@@ -15,26 +15,26 @@ from __future__ import annotations
 import logging
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 import numpy as np
 import pandas as pd
 
 from .._months import format_month
 from ..config import Config
+from ..cycle import SCORE_HORIZONS, score_snapshot
 from ..errors import UsageError
-from ..forecast import forecast_settings
-from ..models import HazardModel, score_customers, survival_from_hazards
-from ..value import lifetime_value, value_settings
+from ..models import HazardModel
 from ..value import offer_values as _offer_values
-from ._frame import PartitionedFrame
+from ..value import value_settings
 from ._panel import _as_of, snapshot_with_context
-from ._remote import concat_frames, item, portable
+from ._remote import as_frame, item, parts_of
 from ._tables import PartitionedTables
 
-log = logging.getLogger(__name__)
+if TYPE_CHECKING:
+    import dask.dataframe
 
-SCORE_HORIZONS = (3, 6, 12)
+log = logging.getLogger(__name__)
 
 
 @dataclass
@@ -58,11 +58,11 @@ class DistributedScored:
         The settings scored with (their ``[value]`` section values the offers).
     """
 
-    snapshot: PartitionedFrame
+    snapshot: dask.dataframe.DataFrame
     hazards: list[Any]
     causes: tuple[str, ...]
     n_terminal: int
-    scores: PartitionedFrame
+    scores: dask.dataframe.DataFrame
     first_month: str
     config: Config
 
@@ -76,66 +76,31 @@ def score_portfolio(
 ) -> DistributedScored:
     """Score every customer present at the end of ``as_of``, partition by partition.
 
-    For each partition of the snapshot: the model's monthly hazards for T months (T the
-    longest of the score horizons, ``[value] horizon_months`` and ``[forecast]
-    horizon_months``), `lifecycle.models.score_customers` at ``horizons``, and the lifetime
-    value over the ``[value]`` horizon, LTV = Σ_{t≤H} margin · S(t) · (1 + d)^−t (see
-    `lifecycle.value.lifetime_value`). The model is sent once to every worker. The result
-    equals the single-process scoring of the whole snapshot, row for row.
+    Each partition of the snapshot is scored by `lifecycle.cycle.score_snapshot`, the function
+    the single-process cycle scores the whole snapshot with: monthly hazards for T months,
+    survival and cumulative incidence at ``horizons``, and the lifetime value. The model is
+    sent once to every worker. The result equals the single-process scoring of the whole
+    snapshot, row for row.
     """
     if not hasattr(model, "features_"):
         raise UsageError(f"this {type(model).__name__} is not fitted yet; call fit(panel)")
     as_of_index = _as_of(data, as_of)
-    values = value_settings(data.config)
-    forecast_months = forecast_settings(data.config).horizon_months
-    months = max(max(horizons), values.horizon_months, forecast_months)
     snapshot = snapshot_with_context(data, as_of_index)
     client = data.client
     remote_model = client.scatter(model, broadcast=True)
     scored = [
-        client.submit(
-            _score_part,
-            part,
-            remote_model,
-            months,
-            tuple(horizons),
-            values.annual_discount,
-            values.horizon_months,
-        )
-        for part in snapshot.parts
+        client.submit(score_snapshot, remote_model, part, data.config, horizons=tuple(horizons))
+        for part in parts_of(client, snapshot)
     ]
     return DistributedScored(
         snapshot=snapshot,
         hazards=[client.submit(item, s, 0) for s in scored],
         causes=tuple(model.causes_),
         n_terminal=len(model.terminal_causes_),
-        scores=PartitionedFrame(client, [client.submit(item, s, 1) for s in scored]),
+        scores=as_frame(client, [client.submit(item, s, 1) for s in scored]),
         first_month=format_month(as_of_index + 1),
         config=data.config,
     )
-
-
-@portable
-def _score_part(
-    snapshot: pd.DataFrame,
-    model: HazardModel,
-    months: int,
-    horizons: tuple[int, ...],
-    annual_discount: float,
-    value_months: int,
-) -> tuple[np.ndarray, pd.DataFrame]:
-    if len(snapshot):
-        hazards = model.hazard_array(snapshot, months)
-    else:  # a model may refuse to predict for no rows
-        hazards = np.zeros((0, months, len(model.causes_)))
-    scores = score_customers(model, snapshot, horizons, hazards=hazards)
-    survival = survival_from_hazards(hazards, len(model.terminal_causes_))
-    scores["lifetime_value"] = lifetime_value(
-        survival[:, :value_months],
-        snapshot["monthly_margin"].to_numpy(dtype=np.float64),
-        annual_discount=annual_discount,
-    )
-    return hazards, scores
 
 
 def offer_values(
@@ -146,7 +111,7 @@ def offer_values(
     horizon: int | None = None,
     uptake_values: Mapping[str, float] | None = None,
     hazard_ratios: Mapping[str, pd.Series] | None = None,
-) -> PartitionedFrame:
+) -> dask.dataframe.DataFrame:
     """Expected value of each offer for each scored customer, partition by partition.
 
     `lifecycle.value.offer_values` of each partition's hazards and margins: one row per
@@ -159,7 +124,9 @@ def offer_values(
     settings = value_settings(scored.config)
     discount = settings.annual_discount if annual_discount is None else annual_discount
     months = settings.horizon_months if horizon is None else horizon
-    client = scored.scores.client
+    from distributed import get_client
+
+    client = get_client()
     parts = [
         client.submit(
             _offer_part,
@@ -172,12 +139,11 @@ def offer_values(
             None if uptake_values is None else dict(uptake_values),
             None if hazard_ratios is None else dict(hazard_ratios),
         )
-        for hazards, snapshot in zip(scored.hazards, scored.snapshot.parts, strict=True)
+        for hazards, snapshot in zip(scored.hazards, parts_of(client, scored.snapshot), strict=True)
     ]
-    return PartitionedFrame(client, parts)
+    return as_frame(client, parts)
 
 
-@portable
 def _offer_part(
     hazards: np.ndarray,
     snapshot: pd.DataFrame,
@@ -201,7 +167,9 @@ def _offer_part(
     )
 
 
-def sample_customers(panel: PartitionedFrame, fraction: float, *, seed: int = 0) -> pd.DataFrame:
+def sample_customers(
+    panel: dask.dataframe.DataFrame, fraction: float, *, seed: int = 0
+) -> pd.DataFrame:
     """A random sample of whole customers of a partitioned panel, gathered in this process.
 
     Customer i is drawn when ``u_i < fraction``, with ``u_i`` a hash of its id and ``seed``
@@ -221,9 +189,8 @@ def sample_customers(panel: PartitionedFrame, fraction: float, *, seed: int = 0)
         raise UsageError(f"fraction was {fraction!r} but is expected to be in (0, 1]")
     if isinstance(seed, bool) or not isinstance(seed, int) or seed < 0:
         raise UsageError(f"seed was {seed!r} but is expected to be a whole number >= 0")
-    client = panel.client
-    parts = [client.submit(_sample_part, p, float(fraction), seed) for p in panel.parts]
-    sample = concat_frames(client.gather(parts))
+    sample = panel.map_partitions(_sample_part, float(fraction), seed).compute()
+    sample = sample.reset_index(drop=True)
     log.info("sampled %d panel rows (fraction %.3g of customers)", len(sample), fraction)
     return sample
 

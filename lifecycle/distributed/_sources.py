@@ -35,7 +35,7 @@ from ..config import Config
 from ..data import RawTables, Tables, check_tables, load_tables, read_raw_tables
 from ..errors import InputError, UsageError
 from ._client import compute_settings
-from ._remote import item, portable
+from ._remote import item
 from ._tables import PartitionedTables, assemble
 
 if TYPE_CHECKING:
@@ -110,7 +110,6 @@ def _bounds(n: int, count: int) -> np.ndarray:
     return np.linspace(0, n, count + 1).round().astype(np.int64)
 
 
-@portable
 def _load(source: str, config: Config) -> Tables:
     return load_tables(source, config)
 
@@ -119,7 +118,6 @@ def _n_customers(tables: Tables) -> int:
     return len(tables.customers)
 
 
-@portable
 def split_tables(tables: Tables, bounds: np.ndarray) -> list[Tables]:
     """Checked tables split at customer positions ``bounds`` (0 = b₀ < … < b_P = n): part p
     holds customers b_p..b_{p+1}−1 and their rows of the other tables, in their order."""
@@ -231,12 +229,10 @@ def _read_parts(
     ]
 
 
-@portable
 def _read_others(path: str, config: Config) -> RawTables:
     return read_raw_tables(path, config)
 
 
-@portable
 def read_part(file: str, table: str, config: Config) -> pd.DataFrame:
     """One Parquet part of a table, its columns renamed by ``[columns.<table>]``."""
     import pyarrow.parquet as pq
@@ -260,7 +256,6 @@ def _rows(frame: pd.DataFrame, lo: int, hi: int) -> pd.DataFrame:
     return frame.iloc[lo:hi].reset_index(drop=True)
 
 
-@portable
 def _customer_ids(raw: pd.DataFrame) -> pd.Series:
     if "customer_id" not in raw.columns:
         raise InputError(
@@ -292,7 +287,6 @@ class _Catalog:
         return np.where(pos < 0, 0, part)
 
 
-@portable
 def _catalog(parts: Sequence[pd.Series]) -> _Catalog:
     ids = pd.concat(list(parts), ignore_index=True) if parts else pd.Series([], dtype=object)
     text = ids.astype("string").str.strip()
@@ -319,7 +313,6 @@ def _catalog(parts: Sequence[pd.Series]) -> _Catalog:
     return _Catalog(ids=pd.Index(ids), offsets=offsets)
 
 
-@portable
 def _route(frame: pd.DataFrame | None, catalog: _Catalog, count: int) -> list[pd.DataFrame | None]:
     """Rows of a customer-keyed table by the partition of their customer."""
     if frame is None:
@@ -355,7 +348,6 @@ def _as_text(values: pd.Series) -> pd.Series:
     return values.astype(str).where(values.notna())
 
 
-@portable
 def _check_partition(
     customers: pd.DataFrame,
     areas: object,

@@ -22,7 +22,6 @@ from ..config import Config
 from ..data import Tables
 from ..errors import InputError
 from ..spatial import area_positions, distance_crs, project_premises
-from ._remote import portable
 
 if TYPE_CHECKING:
     from distributed import Client, Future
@@ -166,7 +165,6 @@ def assemble(client: Client, parts: list[Future], config: Config) -> Partitioned
     return out
 
 
-@portable
 def _meta(tables: Tables) -> dict[str, object]:
     ids = tables.customers["customer_id"]
     kinds = {}
@@ -219,7 +217,6 @@ def _check_agreement(metas: list[dict[str, object]]) -> None:
             )
 
 
-@portable
 def _with_products(tables: Tables, products: tuple[str, ...]) -> Tables:
     return dataclasses.replace(tables, products=list(products))
 
@@ -238,7 +235,6 @@ def _with_distance_crs(
     return dataclasses.replace(config, spatial=spatial)
 
 
-@portable
 def _extremes(tables: Tables) -> tuple[np.ndarray, np.ndarray]:
     """The premises of least and greatest longitude and latitude (in their own CRS)."""
     x = tables.customers["x"].to_numpy(dtype=np.float64)
@@ -253,7 +249,6 @@ def _extremes(tables: Tables) -> tuple[np.ndarray, np.ndarray]:
     return x[pick], y[pick]
 
 
-@portable
 def summarise(tables: Tables, config: Config, products: tuple[str, ...]) -> Summary:
     """The `Summary` of one partition's customers."""
     customers = tables.customers
@@ -299,7 +294,6 @@ def _text_levels(tables: Tables, config: Config) -> dict[str, pd.Index]:
     return levels
 
 
-@portable
 def _shared(summaries: list[Summary], integer_ids: bool) -> Shared:
     id_categories = None
     if not integer_ids:

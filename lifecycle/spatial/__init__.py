@@ -10,6 +10,7 @@ which projected CRS distances are measured.
 
 from ._areas import area_attributes, area_positions, premise_areas
 from ._context import (
+    SharedContext,
     add_spatial_context,
     adoption_columns,
     check_context_names,
@@ -23,6 +24,7 @@ from ._shrinkage import gamma_poisson_rates
 from ._sweep import nearby_counts
 
 __all__ = [
+    "SharedContext",
     "add_spatial_context",
     "adoption_columns",
     "area_attributes",

@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import logging
 import math
+from dataclasses import dataclass
 
 import numpy as np
 import pandas as pd
@@ -19,9 +20,37 @@ from ._sweep import nearby_counts
 
 log = logging.getLogger(__name__)
 
-__all__ = ["add_spatial_context", "radius_label"]
+__all__ = ["SharedContext", "add_spatial_context", "radius_label"]
 
 _NEVER = 2**40  # a month index later than any real one: "no end", "no uptake"
+
+
+@dataclass(frozen=True)
+class SharedContext:
+    """The part of the spatial context that depends on other customers, computed elsewhere.
+
+    With it, `add_spatial_context` appends the context to rows of some of the customers
+    without the others' histories: the distributed route computes it from every customer's
+    summary and gives each partition its share.
+
+    Attributes
+    ----------
+    first
+        Month index of column 0 of ``rates`` and of the counts.
+    rates
+        ``(areas, months)`` shrunk local move rates (`local_move_rates`).
+    counts
+        Per radius of ``[spatial] radii_m``, in their order: ``(n, 1 + products, months)``
+        counts within the radius, laid out as `nearby_counts` gives them (quantity 0: all
+        customers near; k: holders of the k-th product). Empty without products.
+    slot
+        Row in each of ``counts`` of every customer of the tables (−1: none).
+    """
+
+    first: int
+    rates: np.ndarray
+    counts: list[np.ndarray]
+    slot: np.ndarray
 
 
 def radius_label(radius: float) -> str:
@@ -78,7 +107,11 @@ def _move_rates(
 
 
 def add_spatial_context(
-    panel: pd.DataFrame, tables: Tables, *, config: Config | None = None
+    panel: pd.DataFrame,
+    tables: Tables,
+    *,
+    config: Config | None = None,
+    shared: SharedContext | None = None,
 ) -> pd.DataFrame:
     """The panel with the spatial context of each customer-month appended.
 
@@ -113,6 +146,9 @@ def add_spatial_context(
         The checked tables the panel was built from.
     config
         Uses the ``[spatial]`` settings.
+    shared
+        The move rates and nearby counts, when computed elsewhere over more customers than
+        ``tables`` holds (`SharedContext`); by default computed here from ``tables``.
 
     Returns
     -------
@@ -143,6 +179,11 @@ def add_spatial_context(
     check_context_names(panel, list(map(str, attributes.columns)), _nearby_names(products, radii))
     area = area_positions(tables, config)
     new = {str(name): attributes[name].to_numpy()[area[rows]] for name in attributes.columns}
+    if shared is not None:
+        month_col = months - shared.first
+        new["local_move_rate"] = shared.rates[area[rows], month_col].astype(np.float32)
+        new.update(_shared_nearby(shared, rows, month_col, products, radii))
+        return pd.concat([panel, pd.DataFrame(new, index=panel.index)], axis=1)
     start, end, rates = _move_rates(tables, config, area, first, last)
     new["local_move_rate"] = rates[area[rows], month_col].astype(np.float32)
     if products:
@@ -295,6 +336,24 @@ def _nearby_columns(
         counts = nearby_counts(x[keep], y[keep], radius, intervals, n_months).reshape(-1)
         columns.update(adoption_columns(counts, flat_row, n_months, products, radius))
         del counts
+    return {name: columns[name] for name in _nearby_names(products, radii)}
+
+
+def _shared_nearby(
+    shared: SharedContext,
+    rows: np.ndarray,
+    month_col: np.ndarray,
+    products: list[str],
+    radii: list[float],
+) -> dict[str, np.ndarray]:
+    """The nearby-adoption columns for the panel rows from counts computed elsewhere."""
+    columns: dict[str, np.ndarray] = {}
+    if not products:
+        return columns
+    for counts, radius in zip(shared.counts, radii, strict=True):
+        n_q, n_months = counts.shape[1], counts.shape[2]
+        flat_row = shared.slot[rows] * (n_q * n_months) + month_col
+        columns.update(adoption_columns(counts.reshape(-1), flat_row, n_months, products, radius))
     return {name: columns[name] for name in _nearby_names(products, radii)}
 
 
