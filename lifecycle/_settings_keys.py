@@ -281,6 +281,8 @@ _OFFERS = (
         Key("area_reasons", FLAG, False, "give area attributes (rental share, local move "
             "rate, ...) to staff as reasons; off by default, as they can act as proxies for "
             "protected characteristics"),
+        Key("contact_when_harmful", FLAG, False, "plan a customer for an offer predicted to "
+            "harm it (own effect raising the target's risk); off by default"),
     )),
     Section("reason_phrases", "words for reasons: feature pattern (regular expression) = phrase",
             open=(Key("<pattern>", PHRASE, None, "the phrase when the value is high, or both "
@@ -297,6 +299,10 @@ _STAGES = (
             "the report, key figures and CSV headers (blank: unnamed)", Check(
                 "of at most 8 characters without surrounding spaces",
                 lambda v: len(v) <= 8 and v == v.strip())),
+        Key("customer_effects", FLAG, True, "learn each customer's own effect of an offer from "
+            "its past randomised campaign and plan by it (false: one ratio for everyone)"),
+        Key("effect_features", TEXT_OR_TEXTS, [], "panel columns the own effects are learnt on "
+            "(default: every numeric feature except area, nearby, past-offer and season ones)"),
     )),
     Section("forecast", "the uptake forecast", (
         Key("horizon_months", WHOLE, 12, "months forecast", _HORIZON),

@@ -289,6 +289,7 @@ def test_public_surface_is_pinned():
             "POLICIES",
             "POLICY_COLUMNS",
             "Phrase",
+            "RESPONDS_REASON",
             "Plan",
             "PlanSettings",
             "allocate",

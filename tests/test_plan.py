@@ -636,6 +636,8 @@ def test_offer_figures_say_what_held_each_offer_back():
         "spend": 15.0,
         "capacity": None,
         "limited_by": "none",
+        "predicted_harmed": 0,
+        "harmed_planned": 0,
     }
 
 

@@ -236,7 +236,7 @@ def _locked_run(source, config, settings, checked, force, tick, client, history)
             settings.work, keys, panel, families, champions, settings.refit_months, force, saves
         )
         scored, plan, forecast = _score_plan_forecast(
-            tables, model, month, config, offers, client, tick
+            tables, model, month, config, offers, client, tick, panel
         )
         files = _write_tables(staging, scored, plan, forecast, result)
         summary = {
@@ -304,19 +304,38 @@ def _backtest_and_choose(tables, config, settings, month, keys, min_events, forc
     return families, result, champions, previous
 
 
-def _score_plan_forecast(tables, model, month, config, offers, client, tick):
-    """Scores, the contact plan and the uptake forecast (scores, offer values and the
-    forecast on the cluster's workers when there is a client)."""
-    from ._steps import forecast_portfolio, plan_contacts, score_on_cluster, score_portfolio
+def _score_plan_forecast(tables, model, month, config, offers, client, tick, panel):
+    """Scores (with each offer's effect per customer), the contact plan and the uptake
+    forecast (scores, offer values and the forecast on the cluster's workers when there is a
+    client)."""
+    from ._effects import customer_effects, with_effect_columns
+    from ._steps import (
+        forecast_portfolio,
+        plan_contacts,
+        portfolio_offer_values,
+        score_on_cluster,
+        score_portfolio,
+    )
 
     tick("score")
+    effects = {}
+
+    def own(snapshot):
+        effects.update(customer_effects(tables, config, offers, snapshot, panel=panel))
+        return effects
+
     if client is None:
         scored = score_portfolio(tables, model, month, config)
-        values = None
+        values = portfolio_offer_values(scored, offers, config, own(scored.snapshot))
     else:
-        scored, values, forecast = score_on_cluster(client, tables, model, month, config, offers)
+        scored, values, forecast = score_on_cluster(
+            client, tables, model, month, config, offers, own_effects=own
+        )
+    scored.scores = with_effect_columns(scored.scores, values, offers)
     tick("plan")
-    plan = plan_contacts(tables, model, scored, config, offers=offers, expected_values=values)
+    plan = plan_contacts(
+        tables, model, scored, config, offers=offers, expected_values=values, effects=effects
+    )
     tick("forecast")
     if client is None:
         forecast = forecast_portfolio(tables, scored, config, model)

@@ -7,7 +7,7 @@ from __future__ import annotations
 
 import dataclasses
 import logging
-from collections.abc import Sequence
+from collections.abc import Callable, Mapping, Sequence
 from dataclasses import dataclass
 
 import numpy as np
@@ -19,6 +19,7 @@ from ..data import Tables
 from ..errors import UsageError
 from ..models import HazardModel, make_model, score_customers
 from ..panel import build_panel, build_snapshot
+from ._effects import customer_effects, effect_flags, effect_summary, own_hazard_ratios
 
 log = logging.getLogger(__name__)
 
@@ -140,13 +141,17 @@ def plan_contacts(
     *,
     offers: tuple | None = None,
     expected_values: pd.DataFrame | None = None,
+    effects: Mapping | None = None,
 ):
     """The contact plan of the month after ``as_of`` (`lifecycle.decisions.Plan`).
 
     ``offers`` default to `plan_offers`; the expected values to `lifecycle.value.offer_values`
-    of the scored hazards (``expected_values``, computed elsewhere from the same hazards and
-    offers, e.g. on a cluster, may be given instead: ``customer_id``, ``offer``,
-    ``expected_value``).
+    of the scored hazards with each customer's own effect where an offer has one
+    (``expected_values``, computed elsewhere from the same hazards and offers, e.g. on a
+    cluster, may be given instead: ``customer_id``, ``offer``, ``expected_value``).
+    ``effects`` (`customer_effects`, computed here by default; ``{}``: none) also keep a
+    customer away from an offer predicted to harm it (unless ``[plan] contact_when_harmful``)
+    and give the reason "responds to this offer more than most".
     """
     from ..decisions import (
         guard_plan,
@@ -156,26 +161,19 @@ def plan_contacts(
         plan_settings_from_config,
         require_flag_columns,
     )
-    from ..value import offer_values, value_settings
 
     offers = plan_offers(tables, config) if offers is None else offers
     settings = plan_settings_from_config(config)
-    values = value_settings(config)
     snapshot = scored.snapshot
+    if effects is None:
+        effects = customer_effects(tables, config, offers, snapshot)
     if expected_values is not None:
         ev = expected_values
     elif scored.hazards is None:
         raise UsageError("the hazards stayed on the cluster; give expected_values")
     else:
-        ev = offer_values(
-            scored.hazards,
-            scored.causes,
-            snapshot["monthly_margin"].to_numpy(dtype=np.float64),
-            offers,
-            annual_discount=values.annual_discount,
-            horizon=values.horizon_months,
-            customer_ids=snapshot["customer_id"].to_numpy(),
-        )
+        ev = portfolio_offer_values(scored, offers, config, effects)
+    harmed, responsive = effect_flags(effects, offers)
     customers = tables.customers
     flags = list(settings.exclusions)
     consent = settings.consent_column
@@ -191,9 +189,32 @@ def plan_contacts(
         snapshot=snapshot,
         phrases=phrases_from_config(config),
         area_features=area_feature_names(tables),
+        harmed=harmed,
+        responsive=responsive,
     )
     guard_plan(plan.table, customers, flags, consent)
-    return plan
+    return dataclasses.replace(plan, own_effects=effect_summary(effects))
+
+
+def portfolio_offer_values(
+    scored: Scored, offers: Sequence, config: Config, effects: Mapping | None = None
+) -> pd.DataFrame:
+    """`lifecycle.value.offer_values` of the scored hazards over the ``[value]`` horizon, with
+    each customer's own hazard ratio for the offers whose ``effects`` vary."""
+    from ..value import offer_values, value_settings
+
+    values = value_settings(config)
+    snapshot = scored.snapshot
+    return offer_values(
+        scored.hazards,
+        scored.causes,
+        snapshot["monthly_margin"].to_numpy(dtype=np.float64),
+        offers,
+        annual_discount=values.annual_discount,
+        horizon=values.horizon_months,
+        customer_ids=snapshot["customer_id"].to_numpy(),
+        hazard_ratios=own_hazard_ratios(effects or {}),
+    )
 
 
 def planning_frame(tables: Tables, scored: Scored, flags: Sequence[str]) -> pd.DataFrame:
@@ -317,7 +338,14 @@ def forecast_extras(
 
 
 def score_on_cluster(
-    client, tables: Tables, model: HazardModel, as_of: str | int, config: Config, offers: tuple
+    client,
+    tables: Tables,
+    model: HazardModel,
+    as_of: str | int,
+    config: Config,
+    offers: tuple,
+    *,
+    own_effects: Callable[[pd.DataFrame], Mapping] | None = None,
 ) -> tuple[Scored, pd.DataFrame, pd.DataFrame]:
     """Scores, offer values and the uptake forecast computed on a Dask cluster.
 
@@ -329,13 +357,16 @@ def score_on_cluster(
     snapshot, the scores, the offer values and the forecast come back; the hazards stay on
     the workers (the result's ``hazards`` is ``None``). Each equals what `score_portfolio`,
     `plan_contacts` and `forecast_portfolio` compute in this process (tested).
+    ``own_effects`` maps the gathered snapshot to `customer_effects`, whose varying ratios the
+    offer values then use.
     """
     from .. import distributed as dist
 
     data = dist.distribute_tables(client, tables, config=config)
     remote = dist.score_portfolio(data, model, as_of)
-    values = dist.offer_values(remote, offers)
     snapshot = remote.snapshot.gather()
+    ratios = own_hazard_ratios(own_effects(snapshot)) if own_effects is not None else {}
+    values = dist.offer_values(remote, offers, hazard_ratios=ratios or None)
     extras = forecast_extras(tables, model, Scored(snapshot, None, (), 0, None), config)
     forecast = dist.forecast_portfolio(data, remote, extras=extras)
     scored = Scored(
@@ -345,8 +376,7 @@ def score_on_cluster(
         n_terminal=remote.n_terminal,
         scores=remote.scores.gather(),
     )
-    expected = values.gather()[["customer_id", "offer", "expected_value"]]
-    return scored, expected, forecast
+    return scored, values.gather(), forecast
 
 
 def default_cutoffs(as_of: str | int, horizon: int, count: int = 2, step: int = 3) -> list[str]:

@@ -39,6 +39,7 @@ from ._policies import (
 from ._policy_backtest import BACKTEST_COLUMNS, backtest_policies, policy_value_ipw
 from ._reasons import (
     DEFAULT_PHRASES,
+    RESPONDS_REASON,
     Phrase,
     cause_words,
     join_reasons,
@@ -59,6 +60,7 @@ __all__ = [
     "PLAN_COLUMNS",
     "POLICIES",
     "POLICY_COLUMNS",
+    "RESPONDS_REASON",
     "Allocation",
     "Eligibility",
     "Offer",

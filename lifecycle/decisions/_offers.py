@@ -54,6 +54,8 @@ prints every setting)::
                                  # move rate) may be given to staff as reasons; by default they
                                  # are not, as they can act as proxies for protected
                                  # characteristics (they still count in every hazard)
+    contact_when_harmful = false # true: a customer an offer is predicted to harm (own effect
+                                 # raising the target's risk) may still be planned for it
 
 Phrases for reasons live in ``[reason_phrases]`` (see `lifecycle.decisions._reasons`).
 Malformed settings raise `UsageError` naming the setting, the value and what is allowed.
@@ -114,6 +116,7 @@ _PLAN_KEYS = {
     "consent_column",
     "reasons",
     "area_reasons",
+    "contact_when_harmful",
 }
 _TRUE = {"1", "true", "yes", "y", "t"}
 _FALSE = {"", "0", "false", "no", "n", "f"}
@@ -217,6 +220,7 @@ class PlanSettings:
     flags_absent: tuple[str, ...] = ()
     consent_column: str | None = None
     area_reasons: bool = False
+    contact_when_harmful: bool = False
 
     def __post_init__(self) -> None:
         where = "[plan]"
@@ -308,12 +312,11 @@ def plan_settings_from_config(config: Config) -> PlanSettings:
     for key in ("solver", "urgency"):
         if key in raw:
             kwargs[key] = _text(raw[key], f"{src}: [plan] {key}")
-    if "area_reasons" in raw:
-        if not isinstance(raw["area_reasons"], bool):
-            raise UsageError(
-                f"{src}: [plan] area_reasons was {raw['area_reasons']!r} but must be true or false"
-            )
-        kwargs["area_reasons"] = raw["area_reasons"]
+    for key in ("area_reasons", "contact_when_harmful"):
+        if key in raw and not isinstance(raw[key], bool):
+            raise UsageError(f"{src}: [plan] {key} was {raw[key]!r} but must be true or false")
+        if key in raw:
+            kwargs[key] = raw[key]
     if "exclude" in raw:
         kwargs["exclude"] = _texts(raw["exclude"], f"{src}: [plan] exclude")
     if "flags_absent" in raw:

@@ -27,6 +27,7 @@ from ._reasons import (
     portfolio_reference,
     risk_reason,
     top_reasons,
+    with_response_reason,
 )
 from ._schedule import schedule_weeks
 from ._solve import Allocation, allocate
@@ -62,6 +63,10 @@ class Plan:
     allowed
         Customer × offer: True where the customer may receive the offer this month
         (eligibility, flags and cooldown), indexed by ``customer_id``.
+    own_effects
+        Per offer with a randomised campaign: ``per_customer`` (whether each customer's own
+        effect was used, else the average), ``average_hazard_ratio`` and ``reason``; added to
+        the summary's ``effects``.
     """
 
     table: pd.DataFrame
@@ -71,6 +76,7 @@ class Plan:
     excluded: int
     offer_figures: dict[str, dict[str, Any]] = field(default_factory=dict)
     allowed: pd.DataFrame | None = None
+    own_effects: dict[str, dict[str, Any]] = field(default_factory=dict)
 
     def planned_again(self, previous: pd.DataFrame | None) -> dict[str, Any] | None:
         """How many of last month's planned customers are planned again.
@@ -115,6 +121,7 @@ class Plan:
                     "from": "campaigns" if o.effect_interval else "settings",
                     "lower_95": o.effect_interval[0] if o.effect_interval else None,
                     "upper_95": o.effect_interval[1] if o.effect_interval else None,
+                    **self.own_effects.get(o.name, {"per_customer": False}),
                 }
                 for o in self.offers
             },
@@ -163,6 +170,8 @@ def make_plan(
     snapshot: pd.DataFrame | None = None,
     phrases: Sequence[Phrase] = DEFAULT_PHRASES,
     area_features: Sequence[str] = AREA_FEATURES,
+    harmed: pd.DataFrame | None = None,
+    responsive: pd.DataFrame | None = None,
 ) -> Plan:
     """The contact plan for one month.
 
@@ -195,6 +204,15 @@ def make_plan(
     area_features
         Area-level features (the areas table's attributes and the local move rate): not
         given as reasons unless ``settings.area_reasons``.
+    harmed
+        Customer × offer (indexed by ``customer_id``, a column per offer name; missing: False):
+        True where the offer is predicted to harm the customer (its own effect raises the risk
+        a retention offer targets). Such pairs are never planned unless
+        ``settings.contact_when_harmful``.
+    responsive
+        Customer × offer, as ``harmed``: True where the customer's own effect is clearly
+        stronger than the offer's average; a planned row gets the reason `RESPONDS_REASON`
+        first.
 
     Every planned row gets at least one reason: its top reasons (`top_reasons`), else its
     urgency against the portfolio's median (`risk_reason`).
@@ -208,6 +226,10 @@ def make_plan(
     rules, excluded, allowed = _allowed_pairs(
         frame, ids, offers, settings, last_contact, plan_month
     )
+    harm, before = _pair_flags(harmed, ids, offers), allowed
+    if not settings.contact_when_harmful:
+        allowed = allowed & ~harm
+        log.info("plan: %d pairs left out as predicted harmful", int((before & harm).sum()))
     allocation = _allocation(ev, offers, settings, allowed)
     urgency_all = np.column_stack([_numbers(frame[c]) for c in urgency_columns])
     table, rows, chosen, urgency = _scheduled_table(
@@ -223,7 +245,45 @@ def make_plan(
         )  # fmt: skip
     if settings.reasons > 0 and len(table):
         _risk_reasons(table, urgency_all, urgency_columns, chosen, urgency)
-    return _plan_result(table, ids, ev, offers, settings, allocation, rules, excluded, allowed)
+        table["reasons"] = with_response_reason(
+            table["reasons"].tolist(), _pair_flags(responsive, ids, offers)[rows, chosen]
+        )
+    result = _plan_result(table, ids, ev, offers, settings, allocation, rules, excluded, allowed)
+    add_harm_figures(result.offer_figures, offers, ev, before & ~allowed, harm, allocation.choice)
+    return result
+
+
+def _pair_flags(flags: pd.DataFrame | None, ids: pd.Series, offers: tuple[Offer, ...]):
+    """``(n, O)`` booleans from a customer × offer frame (missing customers or offers: False)."""
+    if flags is None:
+        return np.zeros((len(ids), len(offers)), dtype=bool)
+    wide = flags.astype(bool).reindex(
+        index=pd.Index(ids.to_numpy()), columns=[o.name for o in offers], fill_value=False
+    )
+    return wide.to_numpy(dtype=bool)
+
+
+def add_harm_figures(
+    figures: dict[str, dict[str, Any]],
+    offers: Sequence[Offer],
+    ev: np.ndarray,
+    held_back: np.ndarray,
+    harm: np.ndarray,
+    choice: np.ndarray,
+) -> None:
+    """Add ``predicted_harmed`` (customers the offer is predicted to harm) and
+    ``harmed_planned`` (of those, planned for it) to each offer's figures; ``limited_by``
+    becomes ``"predicted harm"`` when harmed customers with a positive expected value were
+    left out and neither the capacity nor the budget held the offer back. ``held_back``: the
+    pairs otherwise allowed that the harm rule left out."""
+    positive = np.nan_to_num(ev, nan=-np.inf) > 0
+    for j, offer in enumerate(offers):
+        f = figures[offer.name]
+        f["predicted_harmed"] = int(harm[:, j].sum())
+        f["harmed_planned"] = int(np.sum(harm[:, j] & (choice == j)))
+        blocked = held_back[:, j] & positive[:, j]
+        if blocked.any() and f["limited_by"] not in ("capacity", "budget"):
+            f["limited_by"] = "predicted harm"
 
 
 def _allocation(
@@ -421,7 +481,7 @@ def _model_reasons(
     return join_reasons(reasons, table["customer_id"].tolist())
 
 
-LIMITS = ("no positive value", "eligibility", "capacity", "budget", "none")
+LIMITS = ("no positive value", "eligibility", "capacity", "budget", "predicted harm", "none")
 
 
 def offer_figures(

@@ -437,6 +437,19 @@ def join_reasons(reasons: pd.DataFrame, customer_ids: Sequence[Any], sep: str = 
     return [joined.get(c, "") for c in customer_ids]
 
 
+RESPONDS_REASON = "responds to this offer more than most"
+"""The reason given first to a planned customer whose own effect of the offer is clearly
+stronger than the offer's average (learnt from a randomised campaign)."""
+
+
+def with_response_reason(reasons: Sequence[str], responds: Sequence[bool]) -> list[str]:
+    """``reasons`` with `RESPONDS_REASON` put first where ``responds`` is True."""
+    return [
+        "; ".join(p for p in (RESPONDS_REASON, text) if p) if yes else text
+        for text, yes in zip(reasons, responds, strict=True)
+    ]
+
+
 _COLUMNS = ["customer_id", "rank", "feature", "value", "reference", "effect", "cause", "phrase"]
 
 

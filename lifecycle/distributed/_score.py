@@ -145,6 +145,7 @@ def offer_values(
     annual_discount: float | None = None,
     horizon: int | None = None,
     uptake_values: Mapping[str, float] | None = None,
+    hazard_ratios: Mapping[str, pd.Series] | None = None,
 ) -> PartitionedFrame:
     """Expected value of each offer for each scored customer, partition by partition.
 
@@ -152,7 +153,8 @@ def offer_values(
     customer and offer, customer-major, as the single-process call on the whole portfolio
     gives them (value with the offer − value without it − cost, competing risks accounted
     for). ``annual_discount`` and ``horizon`` default to the ``[value]`` settings the
-    portfolio was scored with.
+    portfolio was scored with. ``hazard_ratios`` (offer → each customer's own ratio, a Series
+    indexed by customer id) is sent whole to every partition, which aligns it by id.
     """
     settings = value_settings(scored.config)
     discount = settings.annual_discount if annual_discount is None else annual_discount
@@ -168,6 +170,7 @@ def offer_values(
             discount,
             months,
             None if uptake_values is None else dict(uptake_values),
+            None if hazard_ratios is None else dict(hazard_ratios),
         )
         for hazards, snapshot in zip(scored.hazards, scored.snapshot.parts, strict=True)
     ]
@@ -183,6 +186,7 @@ def _offer_part(
     annual_discount: float,
     horizon: int,
     uptake_values: dict[str, float] | None,
+    hazard_ratios: dict[str, pd.Series] | None = None,
 ) -> pd.DataFrame:
     return _offer_values(
         hazards,
@@ -193,6 +197,7 @@ def _offer_part(
         horizon=horizon,
         uptake_values=uptake_values,
         customer_ids=snapshot["customer_id"].to_numpy(),
+        hazard_ratios=hazard_ratios,
     )
 
 

@@ -35,11 +35,15 @@ DEFAULT_HORIZON_MONTHS = 36
 
 @dataclass(frozen=True)
 class ValueSettings:
-    """The ``[value]`` section: ``annual_discount`` and ``horizon_months``."""
+    """The ``[value]`` section: ``annual_discount``, ``horizon_months``, ``currency``, and
+    whether to learn each customer's own offer effects (``customer_effects``) on which
+    features (``effect_features``; empty: the automatic choice)."""
 
     annual_discount: float = DEFAULT_ANNUAL_DISCOUNT
     horizon_months: int = DEFAULT_HORIZON_MONTHS
     currency: str = ""
+    customer_effects: bool = True
+    effect_features: tuple[str, ...] = ()
 
 
 def value_settings(config: Config) -> ValueSettings:
@@ -48,8 +52,13 @@ def value_settings(config: Config) -> ValueSettings:
     currency = raw.get("currency", "")
     annual = raw.get("annual_discount", DEFAULT_ANNUAL_DISCOUNT)
     horizon = raw.get("horizon_months", DEFAULT_HORIZON_MONTHS)
+    features = raw.get("effect_features", [])
     return ValueSettings(
-        annual_discount=float(annual), horizon_months=int(horizon), currency=currency
+        annual_discount=float(annual),
+        horizon_months=int(horizon),
+        currency=currency,
+        customer_effects=bool(raw.get("customer_effects", True)),
+        effect_features=(features,) if isinstance(features, str) else tuple(features),
     )
 
 

@@ -13,7 +13,7 @@ from __future__ import annotations
 import logging
 import numbers
 from collections.abc import Mapping, Sequence
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 from typing import Any
 
 import numpy as np
@@ -40,6 +40,8 @@ class _OfferSpec:
     hazard_ratio: float
     months: int
     value_per_uptake: float
+    ratios: np.ndarray | None = None
+    """One hazard ratio per customer (in the hazards' order), or None: ``hazard_ratio``."""
 
 
 def _value_blocks(h, specs, values, margins, disc, horizon_: int) -> dict[str, np.ndarray]:
@@ -61,7 +63,8 @@ def _value_blocks(h, specs, values, margins, disc, horizon_: int) -> dict[str, n
                 worth[spec.column] = spec.value_per_uptake
             # an uptake offer leaves the exits alone: only its own product's F_u changes
             only = spec.column if spec.column in h.uptakes else None
-            new = _outcome(_with_offer(block, h, spec), h, only=only, base=base)
+            ratio = spec.hazard_ratio if spec.ratios is None else spec.ratios[lo:hi, None]
+            new = _outcome(_with_offer(block, h, spec, ratio), h, only=only, base=base)
             out["value_without"][lo:hi, j] = _value(base, m, disc, worth)
             out["value_with"][lo:hi, j] = _value(new, m, disc, worth)
             out["survival_change"][lo:hi, j] = new.survival[:, -1] - base.survival[:, -1]
@@ -101,6 +104,7 @@ def offer_values(
     horizon: int | None = None,
     uptake_values: Mapping[str, float] | None = None,
     customer_ids: Sequence[object] | np.ndarray | None = None,
+    hazard_ratios: Mapping[str, Sequence[float] | np.ndarray | pd.Series] | None = None,
 ) -> pd.DataFrame:
     """Expected value of each offer for each customer, competing risks accounted for.
 
@@ -124,7 +128,10 @@ def offer_values(
       annual one, as in `lifetime_value`);
     - ``expected_value = V(with the offer) − V(without it) − C``.
 
-    An offer with θ = 1 therefore has expected value −C exactly.
+    An offer with θ = 1 therefore has expected value −C exactly. With ``hazard_ratios``, θ is
+    the customer's own ratio θ_i for the offers named there (learnt per customer from a
+    randomised campaign, `lifecycle.cycle.customer_effects`); equal θ_i give exactly the
+    single-ratio result.
 
     Parameters
     ----------
@@ -149,6 +156,10 @@ def offer_values(
         (when that is set). Default: none (an uptake offer still counts its own product).
     customer_ids
         Ids for an array input (default 0..n−1, or the DataFrame's ids).
+    hazard_ratios
+        Offer name → one hazard ratio per customer, aligned with the customers of
+        ``hazards`` (a Series indexed by customer id is aligned by its index), used instead of
+        that offer's single ``hazard_ratio``. Offers not named keep their single ratio.
 
     Returns
     -------
@@ -160,7 +171,7 @@ def offer_values(
     """
     h = read_hazards(hazards, causes, customer_ids)
     horizon_ = check_horizon(horizon, h.months, covered="the hazards")
-    specs = [_spec(o, h) for o in _as_list(offers)]
+    specs = _with_own_ratios([_spec(o, h) for o in _as_list(offers)], hazard_ratios, h)
     values = _product_values(uptake_values, h)
     margins = margin_matrix(margin, h.n, horizon_)
     disc = discount_factors(horizon_, annual_discount)
@@ -215,8 +226,11 @@ def _value(
     return value
 
 
-def _with_offer(block: np.ndarray, h: HazardInput, spec: _OfferSpec) -> np.ndarray:
-    """The hazards with the offer: the target's hazard times θ in months 1..M.
+def _with_offer(
+    block: np.ndarray, h: HazardInput, spec: _OfferSpec, ratio: float | np.ndarray
+) -> np.ndarray:
+    """The hazards with the offer: the target's hazard times θ in months 1..M (``ratio``: θ,
+    or one θ_i per customer of the block as a column ``(n, 1)``).
 
     A raised hazard (θ > 1) is made valid again by the models' one rule (`valid_hazards`):
     terminal hazards summing past 1 are split in continuous time, and each uptake is capped
@@ -224,8 +238,8 @@ def _with_offer(block: np.ndarray, h: HazardInput, spec: _OfferSpec) -> np.ndarr
     """
     out = block.copy()
     months = min(spec.months, block.shape[1])
-    out[:, :months, spec.column] *= spec.hazard_ratio
-    if spec.hazard_ratio > 1.0:
+    out[:, :months, spec.column] *= ratio
+    if np.any(np.asarray(ratio) > 1.0):
         order = h.terminal + h.uptakes
         back = np.argsort(order)
         out = valid_hazards(out[..., order], len(h.terminal))[..., back]
@@ -264,6 +278,46 @@ def _spec(offer: Any, h: HazardInput) -> _OfferSpec:
         months=int(months),
         value_per_uptake=per_uptake,
     )
+
+
+def _with_own_ratios(
+    specs: list[_OfferSpec], ratios: Mapping[str, Any] | None, h: HazardInput
+) -> list[_OfferSpec]:
+    """The specs with each named offer's per-customer ratios attached (checked)."""
+    if not ratios:
+        return specs
+    names = [s.name for s in specs]
+    unknown = [k for k in ratios if str(k) not in names]
+    if unknown:
+        raise UsageError(f"hazard_ratios names the offers {unknown} but the offers are {names}")
+    out = []
+    for spec in specs:
+        given = ratios.get(spec.name)
+        if given is None:
+            out.append(spec)
+            continue
+        if isinstance(given, pd.Series):
+            aligned = given.reindex(pd.Index(h.customer_ids))
+            if aligned.isna().any():
+                lost = pd.Index(h.customer_ids)[aligned.isna().to_numpy()][:5].tolist()
+                raise UsageError(
+                    f"hazard_ratios[{spec.name!r}] has no ratio for {int(aligned.isna().sum())} "
+                    f"customers of the hazards (for example {lost})"
+                )
+            given = aligned
+        values = np.asarray(given, dtype=np.float64).reshape(-1)
+        if len(values) != h.n:
+            raise UsageError(
+                f"hazard_ratios[{spec.name!r}] has {len(values)} values but the hazards have "
+                f"{h.n} customers; give one ratio per customer, in the hazards' order"
+            )
+        if not (np.isfinite(values) & (values >= 0)).all():
+            raise UsageError(
+                f"hazard_ratios[{spec.name!r}] holds missing, infinite or negative values; "
+                "each must be a finite number >= 0"
+            )
+        out.append(replace(spec, ratios=values))
+    return out
 
 
 def _product_values(values: Mapping[str, float] | None, h: HazardInput) -> dict[int, float]:
