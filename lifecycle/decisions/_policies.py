@@ -40,7 +40,14 @@ DEFAULT_DRAWS = 200
 _DRAW_BLOCK = 25  # draws valued at a time, so that memory stays bounded
 
 
-def effect_draws(model: Any, covariates: pd.DataFrame, *, draws: int, seed: int) -> np.ndarray:
+def effect_draws(
+    model: Any,
+    covariates: pd.DataFrame,
+    *,
+    draws: int,
+    seed: int,
+    centre: np.ndarray | None = None,
+) -> np.ndarray:
     """Hazard ratios of an offer for each customer under ``draws`` draws of the effect model.
 
     The coefficients :math:`b = (b_0, \\gamma)` of `lifecycle.value.OfferEffectModel` (its
@@ -48,7 +55,9 @@ def effect_draws(model: Any, covariates: pd.DataFrame, *, draws: int, seed: int)
     :math:`N(\\hat b, \\hat V)` with :math:`\\hat V` its ``covariance``, and customer i's ratio
     under draw d is :math:`\\exp(b_0^{(d)} + z_i\\cdot\\gamma^{(d)})`, :math:`z_i` its features
     standardised by the campaign's ``mean`` and ``sd``. A model that uses the average effect
-    draws :math:`b_0` alone. Without a covariance every draw is the point ratio.
+    draws :math:`b_0` alone. Without a covariance every draw is the point ratio. With
+    ``centre`` (point ratios computed elsewhere, e.g. from features held within the
+    campaign's range), the draws are ``centre · exp((b^{(d)} − \\hat b)·(1, z_i))``.
 
     Returns
     -------
@@ -56,21 +65,21 @@ def effect_draws(model: Any, covariates: pd.DataFrame, *, draws: int, seed: int)
         ``(draws, n)`` hazard ratios.
     """
     n = len(covariates)
+    point = model.predict_hazard_ratio(covariates) if centre is None else np.asarray(centre)
     covariance = getattr(model, "covariance", None)
     if covariance is None:
-        return np.tile(model.predict_hazard_ratio(covariates), (draws, 1))
+        return np.tile(point, (draws, 1))
     rng = np.random.default_rng(seed)
     if not model.varying:
         sd = float(np.sqrt(covariance.loc["intercept", "intercept"]))
-        intercept = np.log(model.average_hazard_ratio) + sd * rng.standard_normal(draws)
-        return np.exp(np.repeat(intercept[:, None], n, axis=1))
+        shift = sd * rng.standard_normal(draws)
+        return point[None, :] * np.exp(np.repeat(shift[:, None], n, axis=1))
     names = model.features["feature"].tolist()
-    centre = np.concatenate([[model.intercept], model.features["interaction"].to_numpy()])
     matrix = covariance.loc[["intercept", *names], ["intercept", *names]].to_numpy()
-    b = rng.multivariate_normal(centre, matrix, size=draws, method="eigh")
+    b = rng.multivariate_normal(np.zeros(len(names) + 1), matrix, size=draws, method="eigh")
     x = covariates[names].to_numpy(dtype=np.float64)
     z = (x - model.features["mean"].to_numpy()) / model.features["sd"].to_numpy()
-    return np.exp(b[:, :1] + b[:, 1:] @ z.T)
+    return point[None, :] * np.exp(b[:, :1] + b[:, 1:] @ z.T)
 
 
 def interval_draws(offer: Offer, n: int, *, draws: int, seed: int) -> np.ndarray:
