@@ -247,3 +247,21 @@ def test_champions_are_scored_on_a_held_out_cutoff_and_repeats_are_counted(two_m
     assert again["planned_again"] <= again["still_eligible"] <= again["previous_contacts"]
     now = set(pd.read_csv(second.files["plan"])["customer_id"])
     assert again["planned_again"] <= len(now & set(previous["customer_id"]))
+
+
+def test_scores_carry_each_offers_effect_and_the_plan_no_harmed_customer(two_months):
+    """scores.csv has effect_<offer> for every offer (the change in the target's cumulative
+    incidence over the value horizon if offered; a retention offer with a ratio below 1 lowers
+    it), and the key figures count the customers each offer is predicted to harm."""
+    _, _, second = two_months
+    scores = pd.read_csv(second.files["scores"])
+    key = json.loads((second.folder / "key_figures.json").read_text())
+    offers = key["offers"]
+    for name in offers:
+        assert f"effect_{name}" in scores.columns and scores[f"effect_{name}"].notna().all()
+    assert (scores["effect_moving_home_transfer"] <= 0).all()  # configured ratio 0.7
+    assert (scores["effect_backup_line_trial"] >= 0).all()  # an uptake offer raises uptake
+    for figures in offers.values():
+        assert figures["harmed_planned"] == 0 <= figures["predicted_harmed"]
+    effects = json.loads(second.files["summary"].read_text())["plan"]["effects"]
+    assert "per_customer" in effects["loyalty_credit"] and effects["loyalty_credit"]["reason"]

@@ -172,3 +172,189 @@ def test_a_strong_responder_gets_the_reason_first():
     reasons = plan.table.set_index("customer_id")["reasons"]
     assert reasons["c5"].startswith(RESPONDS_REASON + "; ")
     assert RESPONDS_REASON not in reasons["c4"] and reasons["c4"]
+
+
+# -- own effects in the cycle, on the demo --------------------------------------------------
+@pytest.fixture(scope="module")
+def demo_effects(tmp_path_factory):
+    from lifecycle.config import load_config
+    from lifecycle.cycle import customer_effects, panel_with_context, snapshot_with_context
+    from lifecycle.data import RawTables, check_tables
+    from lifecycle.decisions import offers_from_config
+    from lifecycle.demo import simulate_demo
+
+    scenario = simulate_demo(customers=20_000, seed=7)  # the default demo
+    folder = tmp_path_factory.mktemp("plan-by-effect")
+    (folder / "lifecycle.toml").write_text(scenario.config)
+    config = load_config(folder / "lifecycle.toml")
+    raw = RawTables(
+        customers=scenario.customers,
+        activity=scenario.activity,
+        uptakes=scenario.uptakes,
+        areas=scenario.areas,
+        campaigns=scenario.campaigns,
+    )
+    tables = check_tables(raw, config)
+    month = tables.extract_month
+    panel = panel_with_context(tables, month, config)
+    snapshot = snapshot_with_context(tables, month, config)
+    offers = offers_from_config(config)
+    effects = customer_effects(tables, config, offers, snapshot, panel=panel)
+    return scenario, folder, tables, config, offers, panel, snapshot, effects
+
+
+def _true_ratios(frame: pd.DataFrame, truth: dict) -> np.ndarray:
+    """The true ratio per row from truth.json alone: the first segment whose rule holds."""
+    out = np.full(len(frame), np.nan)
+    for segment in truth["campaign"]["segments"]:
+        rule = segment["rule"]
+        hit = np.ones(len(frame), bool) if rule == "otherwise" else frame.eval(rule).to_numpy()
+        out = np.where(np.isnan(out) & hit, segment["hazard_ratio"], out)
+    return out
+
+
+def test_scored_customers_get_their_own_effect_of_the_campaign_offer(demo_effects):
+    """Against the demo's truth (truth.json's segment rules on the snapshot's features): the
+    own ratios rank the scored customers like the true ones, and the harmful segment is
+    predicted harmful on average."""
+    from scipy import stats
+
+    from lifecycle.cycle import CustomerEffects
+
+    scenario, _, _, _, _, _, snapshot, effects = demo_effects
+    assert set(effects) == {"loyalty_credit"}  # the only offer with a randomised campaign
+    effect = effects["loyalty_credit"]
+    assert isinstance(effect, CustomerEffects) and effect.model.varying, effect.model.reason
+    ids = snapshot["customer_id"].to_numpy()
+    assert (effect.hazard_ratio.index.to_numpy() == ids).all()
+    assert "tenure_start" in effect.features and "rental_share" not in effect.features
+    true = _true_ratios(snapshot, scenario.truth)
+    own = effect.hazard_ratio.to_numpy()
+    assert stats.spearmanr(own, true).statistic >= 0.5
+    by_name = {s["name"]: s["hazard_ratio"] for s in scenario.truth["campaign"]["segments"]}
+    harmful = own[true == by_name["complained"]].mean()
+    strong = own[true == by_name["contract_end"]].mean()
+    none = own[true == by_name["others"]].mean()
+    assert strong < none < harmful and harmful > 1.0, (strong, none, harmful)
+
+
+def test_own_effects_drive_values_harm_and_effect_columns(demo_effects):
+    from lifecycle.cycle import effect_columns
+    from lifecycle.cycle._effects import effect_flags, own_hazard_ratios
+    from lifecycle.value import offer_values
+
+    _, _, _, _, offers, _, _, effects = demo_effects
+    ratios = effects["loyalty_credit"].hazard_ratio
+    harmed, responsive = effect_flags(effects, offers)
+    np.testing.assert_array_equal(harmed["loyalty_credit"].to_numpy(), ratios.to_numpy() > 1)
+    assert not (harmed["loyalty_credit"] & responsive["loyalty_credit"]).any()
+    # a few customers, constant hazards: the effect column is cif_change of the target
+    pick = ratios.index[[0, 1, 2]]
+    hazards = np.broadcast_to(np.array([0.02, 0.005, 0.002, 0.01]), (3, 36, 4)).copy()
+    own = {"loyalty_credit": ratios.loc[pick]}
+    values = offer_values(hazards, CAUSES, 20.0, offers, customer_ids=pick, hazard_ratios=own)
+    columns = effect_columns(values, offers).set_index("customer_id")
+    assert list(columns.columns) == [f"effect_{o.name}" for o in offers]
+    loyalty = values.loc[values["offer"] == "loyalty_credit"].set_index("customer_id")
+    np.testing.assert_array_equal(columns["effect_loyalty_credit"], loyalty["cif_change_churn"])
+    # harm (ratio > 1) and a raised churn incidence go together
+    assert ((columns["effect_loyalty_credit"] > 0) == (ratios.loc[pick] > 1)).all()
+    assert own_hazard_ratios(effects)["loyalty_credit"] is ratios
+
+
+def test_own_effects_can_be_turned_off(demo_effects, tmp_path):
+    from lifecycle.config import load_config
+    from lifecycle.cycle import customer_effects
+
+    _, folder, tables, _, offers, panel, snapshot, _ = demo_effects
+    text = (folder / "lifecycle.toml").read_text() + "\n"
+    off = tmp_path / "lifecycle.toml"
+    if "[value]" in text:
+        off.write_text(text.replace("[value]", "[value]\ncustomer_effects = false", 1))
+    else:
+        off.write_text(text + "[value]\ncustomer_effects = false\n")
+    assert customer_effects(tables, load_config(off), offers, snapshot, panel=panel) == {}
+    chosen = tmp_path / "chosen.toml"
+    chosen.write_text(
+        text.replace("[value]", '[value]\neffect_features = ["nothing_here"]', 1)
+        if "[value]" in text
+        else text + '[value]\neffect_features = ["nothing_here"]\n'
+    )
+    with pytest.raises(UsageError, match="nothing_here"):
+        customer_effects(tables, load_config(chosen), offers, snapshot, panel=panel)
+
+
+def test_the_report_says_which_effects_were_used_and_how_many_are_harmed():
+    from lifecycle.report._blocks import Section
+    from lifecycle.report._sections_plan import _offer_limits, _own_effects_text
+
+    effects = {
+        "credit": {
+            "hazard_ratio": 0.6,
+            "from": "campaigns",
+            "per_customer": True,
+            "reason": "the effect varies (p = 0.001)",
+        },
+        "trial": {
+            "hazard_ratio": 0.8,
+            "from": "campaigns",
+            "per_customer": False,
+            "reason": "no evidence that the effect varies",
+        },
+        "move": {"hazard_ratio": 0.7, "from": "settings", "per_customer": False},
+    }
+    figures = {"predicted_harmed": 12, "harmed_planned": 0, "limited_by": "predicted harm"}
+    base = {"candidates": 50, "eligible": 40, "positive_value": 30, "chosen": 0, "spend": 0.0}
+    offers = {"credit": {**base, **figures}}
+    section = Section("plan", "Plan")
+    _own_effects_text(section, effects, offers)
+    _offer_limits(section, offers, "")
+    text = " ".join(b.text for b in section.blocks if b.kind == "text")
+    assert (
+        "credit: each customer's own effect" in text and "12 customer(s) predicted harmed" in text
+    )
+    assert "trial: the campaign's average effect" in text
+    assert "move: one effect for everyone" in text
+    assert "predicted to be harmed" in text  # why credit got no contacts
+
+
+def test_harm_and_strong_response_are_read_from_the_own_ratios():
+    """Worked by hand: average ratio 0.6 (log −0.51); a customer responds more than most when
+    its log ratio is at most −0.61 and in the strongest quarter; harm is a ratio above 1 for a
+    retention offer and below 1 for an uptake offer."""
+    from types import SimpleNamespace
+
+    from lifecycle.cycle import CustomerEffects
+    from lifecycle.cycle._effects import harmful, stronger_than_average
+
+    ids = [f"c{i}" for i in range(8)]
+    ratios = pd.Series([0.2, 0.3, 0.55, 0.6, 0.7, 0.9, 1.0, 1.4], index=ids)
+    model = SimpleNamespace(varying=True, average_hazard_ratio=0.6, reason="")
+    effect = CustomerEffects("credit", model, ratios, ("x",))
+    # quartile of log ratios: between c1 and c2; 0.3 < 0.6·e^−0.1 = 0.543
+    assert stronger_than_average(effect, ids).tolist() == [True, True] + [False] * 6
+    flat = CustomerEffects("credit", SimpleNamespace(varying=False, average_hazard_ratio=0.6),
+                           ratios, ("x",))  # fmt: skip
+    assert not stronger_than_average(flat, ids).any()
+    retention = SimpleNamespace(target="churn")
+    uptake = SimpleNamespace(target="uptake_backup_line")
+    assert harmful(retention, ratios).tolist() == [False] * 7 + [True]
+    assert harmful(uptake, ratios).tolist() == [True] * 6 + [False, False]
+
+
+def test_a_campaign_whose_fit_fails_keeps_the_single_ratio(demo_effects, monkeypatch, caplog):
+    """A small campaign can make the interaction fit diverge (lifelines' ConvergenceError,
+    seen on an 800-customer demo): the offer then keeps its single ratio, with a warning."""
+    from lifelines.exceptions import ConvergenceError
+
+    import lifecycle.value
+    from lifecycle.cycle import customer_effects
+
+    _, _, tables, config, offers, panel, snapshot, _ = demo_effects
+
+    def diverge(*args, **kwargs):
+        raise ConvergenceError("delta contains nan value(s). Convergence halted.")
+
+    monkeypatch.setattr(lifecycle.value, "customer_offer_effects", diverge)
+    assert customer_effects(tables, config, offers, snapshot, panel=panel) == {}
+    assert "its single hazard ratio is used (ConvergenceError" in caplog.text

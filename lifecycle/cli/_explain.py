@@ -85,6 +85,9 @@ def show(found: dict[str, Any]) -> None:
         offer.add_row("  = value saved", f"{o['value_saved']:,.2f}")
         offer.add_row("  + uptake value", f"{o['uptake_value']:,.2f}")
         offer.add_row("  − cost", f"{o['cost']:,.2f}")
+        source = "own, from its campaign" if o.get("own_effect") else "the offer's"
+        offer.add_row("hazard ratio", f"{o['hazard_ratio']:.3f} ({source})")
+        offer.add_row(f"effect on {o['target']} risk", f"{o['effect']:+.4f}")
         offer.add_row("may receive it", "yes" if o["eligible"] else "no")
         for words in o["exclusions"]:
             offer.add_row("  not allowed:", words)

@@ -21,6 +21,7 @@ from dataclasses import dataclass
 
 import numpy as np
 import pandas as pd
+from lifelines.exceptions import ConvergenceError
 
 from .._layout import TERMINAL_CAUSES, UPTAKE_PREFIX, panel_layout
 from ..config import Config
@@ -133,7 +134,8 @@ def customer_effects(
     dict
         Offer name → `CustomerEffects`; empty when the setting is off or no offer has a
         randomised campaign. An offer whose campaign cannot give an effect (no target event in
-        an arm) is left out with a warning.
+        an arm, or a fit that does not converge, as on a small campaign) is left out with a
+        warning: it keeps its single hazard ratio.
     """
     from ..value import value_settings
 
@@ -170,8 +172,12 @@ def _offer_effect(tables, offer, panel, snapshot, features) -> CustomerEffects |
     means = covariates.mean()
     try:
         model = customer_offer_effects(follow, covariates.fillna(means).fillna(0.0))
-    except UsageError as exc:
-        log.warning("offer %s: no effect per customer from its campaign: %s", offer.name, exc)
+    except (UsageError, ConvergenceError, np.linalg.LinAlgError) as exc:
+        # e.g. a campaign too small for every interaction: the offer keeps its single ratio
+        log.warning(
+            "offer %s: no effect per customer from its campaign, so its single hazard ratio is "
+            "used (%s: %s)", offer.name, type(exc).__name__, str(exc).split(". ")[0],
+        )  # fmt: skip
         return None
     current = _within_campaign_range(
         snapshot[features].astype(np.float64).fillna(means).fillna(0.0), covariates, offer.name
@@ -310,10 +316,16 @@ def effect_summary(effects: Mapping[str, CustomerEffects]) -> dict[str, dict[str
 
 
 def stronger_than_average(effect: CustomerEffects, customer_ids) -> pd.Series:
-    """Whether each customer's own effect is clearly stronger than the offer's average: its
-    log hazard ratio at least `STRONGER_BY` further from 0 than the average's, same side."""
+    """Whether each customer responds to the offer more than most: its own effect is among the
+    strongest quarter of the scored customers' (common practice: the top quartile) and its log
+    hazard ratio at least `STRONGER_BY` further from 0 than the average's, on the same side."""
+    everyone = np.log(effect.hazard_ratio.to_numpy(dtype=np.float64))
     ratio = effect.hazard_ratio.reindex(pd.Index(customer_ids)).to_numpy(dtype=np.float64)
     own, average = np.log(ratio), np.log(effect.average_hazard_ratio)
     stronger = effect.varying & (np.sign(own) == np.sign(average))
     stronger &= np.abs(own) >= np.abs(average) + STRONGER_BY
+    if average < 0:
+        stronger &= own <= np.quantile(everyone, 0.25)
+    else:
+        stronger &= own >= np.quantile(everyone, 0.75)
     return pd.Series(stronger, index=pd.Index(customer_ids))

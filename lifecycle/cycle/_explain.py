@@ -58,7 +58,10 @@ def explain_customer(
         (1..T), ``hazards`` and ``incidence`` (cause → T monthly values), ``survival`` (T
         values), ``scores`` (the row of ``scores.csv``), ``lifetime_value``, ``offers`` (one
         entry per offer: ``offer``, ``target``, ``eligible``, ``exclusions`` (texts),
-        ``expected_value`` = ``value_saved`` + ``uptake_value`` − ``cost``, ``reasons``) and
+        ``expected_value`` = ``value_saved`` + ``uptake_value`` − ``cost``, ``reasons``,
+        ``hazard_ratio`` (the customer's own where ``own_effect``, else the offer's), ``effect``
+        (the change in the target's cumulative incidence over the value horizon if offered))
+        and
         ``history`` (one entry per stored month up to ``as_of``: its scores, and the offer
         and reasons if the customer was planned).
 
@@ -121,6 +124,7 @@ def _check_known(tables: Tables, customer_id: Any, month: str) -> None:
 def _offers(tables: Tables, model, scored, config: Config, i: int) -> list[dict[str, Any]]:
     """Per offer: value terms, eligibility and exclusions, reasons (as the plan gives them)."""
     from ..decisions import (
+        RESPONDS_REASON,
         last_contact_months,
         phrases_from_config,
         plan_settings_from_config,
@@ -129,6 +133,7 @@ def _offers(tables: Tables, model, scored, config: Config, i: int) -> list[dict[
         top_reasons,
     )
     from ..value import offer_values, value_settings
+    from ._effects import harmful
     from ._steps import area_feature_names, plan_offers, planning_frame
 
     offers = plan_offers(tables, config)
@@ -141,7 +146,12 @@ def _offers(tables: Tables, model, scored, config: Config, i: int) -> list[dict[
     one = frame.iloc[[i]].reset_index(drop=True)
     hazards = scored.hazards[i : i + 1]
     margin = scored.snapshot["monthly_margin"].to_numpy(dtype=np.float64)[i : i + 1]
-    kwargs = dict(annual_discount=values.annual_discount, horizon=values.horizon_months)
+    own, responds = _own_effects(tables, config, offers, scored, i)
+    kwargs = dict(
+        annual_discount=values.annual_discount,
+        horizon=values.horizon_months,
+        hazard_ratios={name: [ratio] for name, ratio in own.items()},
+    )
     full = offer_values(hazards, scored.causes, margin, offers, **kwargs)
     # the same arithmetic with no margin leaves only the uptakes' value
     uptake = offer_values(hazards, scored.causes, np.zeros(1), offers, **kwargs)
@@ -167,7 +177,12 @@ def _offers(tables: Tables, model, scored, config: Config, i: int) -> list[dict[
         if not phrases and column in frame:
             everyone = pd.to_numeric(frame[column], errors="coerce")
             phrases = [risk_reason(column, float(everyone.iloc[i]), float(everyone.median()))]
+        if offer.name in responds:
+            phrases = [RESPONDS_REASON, *phrases]
         exclusions = _exclusions(one, offer, settings, last, scored.first_month)
+        ratio = own.get(offer.name, float(offer.hazard_ratio))
+        if harmful(offer, [ratio])[0] and not settings.contact_when_harmful:
+            exclusions.append("predicted to be harmed by it (its own effect raises the risk)")
         entries.append(
             {
                 "offer": offer.name,
@@ -179,9 +194,32 @@ def _offers(tables: Tables, model, scored, config: Config, i: int) -> list[dict[
                 "uptake_value": _cents(won),
                 "cost": _cents(offer.cost),
                 "reasons": phrases,
+                "hazard_ratio": float(ratio),
+                "own_effect": offer.name in own,
+                "effect": float(full[f"cif_change_{offer.target}"].iloc[j]),
             }
         )
     return entries
+
+
+def _own_effects(tables: Tables, config: Config, offers, scored, i: int):
+    """The customer's own hazard ratio of each offer whose effect varies, and the offers it
+    responds to more than most (`customer_effects`, on the panel of the scored month, as the
+    run learns them)."""
+    from ._effects import customer_effects, effect_flags, own_hazard_ratios
+    from ._steps import panel_with_context
+
+    month = format_month(parse_month(scored.first_month) - 1)
+    panel = panel_with_context(tables, month, config)
+    effects = customer_effects(tables, config, offers, scored.snapshot, panel=panel)
+    own = {n: float(r.iloc[i]) for n, r in own_hazard_ratios(effects).items()}
+    _, responsive = effect_flags(effects, offers)
+    responds = (
+        set()
+        if responsive is None
+        else set(responsive.columns[responsive.iloc[i].to_numpy(dtype=bool)])
+    )
+    return own, responds
 
 
 def _exclusions(one: pd.DataFrame, offer, settings, last: pd.Series, month: str) -> list[str]:

@@ -38,6 +38,7 @@ def plan_section(inputs: ReportInputs) -> tuple[Section, dict[str, Any]]:
     _plan_overview(section, plan, summary.get("budget"), unit)
     by_offer = _offers_table(section, plan, unit)
     _offer_effects(section, summary.get("effects"))
+    _own_effects_text(section, summary.get("effects"), summary.get("offers"))
     _offer_limits(section, summary.get("offers"), unit)
     _solver_table(section, summary)
     weekly = _schedule_table(section, plan)
@@ -181,6 +182,9 @@ _LIMIT_WORDS = {
     "capacity": "its weekly capacity was reached",
     "budget": "the budget ran out before it",
     "none": "every customer worth contacting with it was planned (some with a better offer)",
+    "predicted harm": "customers it would otherwise have gone to are predicted to be harmed "
+    "by it (their own effect raises the risk it targets), and harmed customers are not "
+    "contacted ([plan] contact_when_harmful)",
 }
 
 
@@ -243,6 +247,35 @@ def _offer_effects(section: Section, effects: dict[str, Any] | None) -> None:
         ["offer", "hazard ratio", "95% interval", "effect from"],
         rows,
         caption="Offer effects: estimated from past campaigns, or as configured",
+    )
+
+
+def _own_effects_text(
+    section: Section, effects: dict[str, Any] | None, offers: dict[str, Any] | None
+) -> None:
+    """For each offer: whether each customer's own effect or the average was used, why, and
+    how many customers it is predicted to harm."""
+    if not effects:
+        return
+    offers = offers or {}
+    lines = []
+    for name, e in effects.items():
+        harmed = offers.get(name, {}).get("predicted_harmed")
+        tail = f"; {harmed:,} customer(s) predicted harmed" if harmed is not None else ""
+        if e.get("per_customer"):
+            lines.append(f"{name}: each customer's own effect ({e.get('reason', '')}){tail}.")
+        elif "reason" in e:
+            lines.append(f"{name}: the campaign's average effect ({e['reason']}){tail}.")
+        else:
+            lines.append(f"{name}: one effect for everyone (no randomised campaign){tail}.")
+    section.text(
+        "Effects per customer. An offer's effect on a customer is the change in the chance "
+        "that the customer leaves (or takes the product up) within the value horizon if "
+        "offered. Where a past campaign held a random group out, each customer's effect is "
+        "learnt from it (a Cox model of the target with shrunk arm × feature interactions, "
+        "used only when a test finds that the effect varies); otherwise every customer gets "
+        "the average. Effects are predictions, not guarantees, and customers unlike the "
+        "campaign's get effects extrapolated from it. " + " ".join(lines)
     )
 
 
