@@ -43,7 +43,10 @@ def month_policy_comparison(
 
     ``effects`` are `customer_effects` (offer → own ratios and the model); an offer without
     one is valued with its single ratio, drawn within its ``effect_interval`` when it was
-    estimated from a campaign.
+    estimated from a campaign. ``top_risk`` and ``random`` choose among the pairs the plan
+    could choose from (``plan.allowed``: eligibility, flags, cooldown and, unless ``[plan]
+    contact_when_harmful``, the predicted harm), so the comparison isolates how customers are
+    ranked: by their risk, at random, or by their expected value with their own effect.
     """
     from ..decisions import compare_policies, policy_selections
     from ..value import value_settings

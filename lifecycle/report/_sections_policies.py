@@ -43,7 +43,7 @@ def policy_section(inputs: ReportInputs) -> tuple[Section, dict[str, Any]]:
     section.figure(
         policy_chart(table),
         alt="Expected value of each policy with its 90% interval, one marker shape per policy",
-        caption="Expected value with the 90% interval from 200 draws of the offer effects.",
+        caption="Expected value with the 90% interval from draws of the offer effects.",
     )
     section.table(
         ["policy", "contacts", "cost", "expected saves", "expected value", "lower 90%",
