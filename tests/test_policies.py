@@ -116,8 +116,9 @@ def test_none_is_zero_everywhere():
 
 def test_intervals_contain_the_point_estimate_and_carry_the_effects_uncertainty():
     table, _ = _compare()
-    assert (table["lower_90"] <= table["expected_value"]).all()
-    assert (table["expected_value"] <= table["upper_90"]).all()
+    slack = 1e-9 * (1 + table["expected_value"].abs())  # a fixed ratio: draws equal the point
+    assert (table["lower_90"] <= table["expected_value"] + slack).all()
+    assert (table["expected_value"] <= table["upper_90"] + slack).all()
     plan = table.set_index("policy").loc["plan"]
     assert plan["upper_90"] - plan["lower_90"] > 1.0  # the draws move the plan's value
 

@@ -209,8 +209,8 @@ def compare_policies(
                 "cost": cost,
                 "expected_saves": saves,
                 "expected_value": float(totals[0]),
-                "lower_90": float(min(low, totals[0])),
-                "upper_90": float(max(high, totals[0])),
+                "lower_90": float(low),
+                "upper_90": float(high),
             }
         )
     return pd.DataFrame(rows, columns=POLICY_COLUMNS)
