@@ -37,7 +37,13 @@ BACKTEST_FOLDS = 5
 
 
 def month_policy_comparison(
-    scored, plan, offers: Sequence, config: Config, effects: Mapping | None
+    scored,
+    plan,
+    offers: Sequence,
+    config: Config,
+    effects: Mapping | None,
+    *,
+    ranges: Mapping | None = None,
 ) -> pd.DataFrame | None:
     """``policy_comparison.csv`` of the month (``None`` when the hazards stayed on a cluster).
 
@@ -59,7 +65,7 @@ def month_policy_comparison(
     allowed = plan.allowed.reindex(index=ids, columns=names, fill_value=False).to_numpy(bool)
     risk = np.column_stack([_risk(scored.scores, ids, o.target) for o in offers])
     selections = policy_selections(plan.table, ids, offers, allowed, risk, seed=POLICY_SEED)
-    points, draws = policy_effects(offers, scored.snapshot, effects or {})
+    points, draws = policy_effects(offers, scored.snapshot, effects or {}, ranges=ranges)
     values = value_settings(config)
     table = compare_policies(
         scored.hazards, scored.causes, scored.snapshot["monthly_margin"].to_numpy(np.float64),
@@ -71,7 +77,12 @@ def month_policy_comparison(
 
 
 def policy_effects(
-    offers: Sequence, snapshot: pd.DataFrame, effects: Mapping, *, draws: int = POLICY_DRAWS
+    offers: Sequence,
+    snapshot: pd.DataFrame,
+    effects: Mapping,
+    *,
+    draws: int = POLICY_DRAWS,
+    ranges: Mapping | None = None,
 ) -> tuple[dict[str, np.ndarray], dict[str, np.ndarray]]:
     """Each offer's point ratio per customer and ``(draws, n)`` drawn ratios.
 
@@ -90,8 +101,14 @@ def policy_effects(
         if own is not None and own.varying:
             ratio = own.hazard_ratio.reindex(ids).to_numpy(np.float64)
             features = own.model.features
-            covariates = snapshot.reindex(columns=features["feature"]).astype(np.float64)
-            covariates = covariates.fillna(features.set_index("feature")["mean"])
+            covariates = _held_features(snapshot, features, (ranges or {}).get(offer.name))
+            again = own.model.predict_hazard_ratio(covariates)
+            if not np.allclose(again, ratio, rtol=1e-6, equal_nan=True):
+                log.warning(
+                    "policy comparison: offer %s: the effect draws' features give other ratios "
+                    "than the plan's (largest gap %.3g); the draws are centred on the plan's",
+                    offer.name, float(np.nanmax(np.abs(again - ratio))),
+                )  # fmt: skip
             points[offer.name] = ratio
             drawn[offer.name] = effect_draws(
                 own.model, covariates, draws=draws, seed=seed, centre=ratio
@@ -100,6 +117,38 @@ def policy_effects(
             points[offer.name] = np.full(len(ids), float(offer.hazard_ratio))
             drawn[offer.name] = interval_draws(offer, len(ids), draws=draws, seed=seed)
     return points, drawn
+
+
+def _held_features(snapshot: pd.DataFrame, features: pd.DataFrame, bounds) -> pd.DataFrame:
+    """The snapshot's effect features, a missing one at the campaign's mean, each held within
+    the campaign's range (``bounds``: its mean, minimum and maximum per feature, from
+    `campaign_ranges`) as the own ratios were predicted; without ``bounds``, the draws of a
+    customer far outside that range spread as its features say (wider than they should)."""
+    names = features["feature"].tolist()
+    covariates = snapshot.reindex(columns=names).astype(np.float64)
+    if bounds is None:
+        return covariates.fillna(features.set_index("feature")["mean"])
+    mean, low, high = (bounds[k].reindex(names) for k in ("mean", "min", "max"))
+    return covariates.fillna(mean).fillna(0.0).clip(lower=low, upper=high, axis=1)
+
+
+def campaign_ranges(tables: Tables, offers: Sequence, effects: Mapping, panel) -> dict:
+    """Per offer with own effects: the mean, minimum and maximum of each effect feature over
+    its campaign's customers in their offer month (as `customer_effects` holds the snapshot's
+    features within them)."""
+    from ..value import campaign_covariates, campaign_follow_up
+
+    out = {}
+    for offer in offers:
+        own = effects.get(offer.name)
+        if own is None or not own.varying:
+            continue
+        follow = campaign_follow_up(tables, offer.name, target=offer.target, months=offer.months)
+        covariates = campaign_covariates(panel, follow, list(own.features))
+        out[offer.name] = {
+            "mean": covariates.mean(), "min": covariates.min(), "max": covariates.max()
+        }  # fmt: skip
+    return out
 
 
 def _risk(scores: pd.DataFrame, ids: np.ndarray, target: str) -> np.ndarray:
@@ -218,7 +267,8 @@ def policy_tables(tables, config, scored, plan, offers, effects, panel, month: s
     from .._months import parse_month
     from ..value import value_settings
 
-    comparison = month_policy_comparison(scored, plan, offers, config, effects)
+    ranges = campaign_ranges(tables, offers, effects or {}, panel)
+    comparison = month_policy_comparison(scored, plan, offers, config, effects, ranges=ranges)
     backtest = campaign_policy_backtest(
         tables, offers, effects or {}, panel, parse_month(month),
         horizon=value_settings(config).horizon_months,
