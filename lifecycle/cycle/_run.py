@@ -338,10 +338,10 @@ def _score_plan_forecast(tables, model, month, config, offers, client, tick, pan
     plan = plan_contacts(
         tables, model, scored, config, offers=offers, expected_values=values, effects=effects
     )
+    policies = policy_tables(tables, config, scored, plan, offers, effects, panel, month)
     tick("forecast")
     if client is None:
         forecast = forecast_portfolio(tables, scored, config, model)
-    policies = policy_tables(tables, config, scored, plan, offers, effects, panel, month)
     return scored, plan, forecast, policies
 
 
