@@ -67,6 +67,30 @@ def test_a_run_writes_its_month_folder_whole(demo, two_months):
     assert not set(plan["customer_id"]) & set(flagged)
 
 
+def test_the_policy_comparison_values_the_plan_as_the_plan_does(two_months):
+    """policy_comparison.csv: the plan's row is the sum of the plan's expected values (each to
+    cents), nobody contacted is worth 0, every interval holds its point; policy_backtest.csv
+    holds the campaign's rows (the inverse-propensity estimator is checked against outside
+    sources in test_policies.py)."""
+    from lifecycle.decisions import BACKTEST_COLUMNS, POLICY_COLUMNS
+
+    _, _, second = two_months
+    table = pd.read_csv(second.files["policy_comparison"]).set_index("policy")
+    assert list(table.reset_index().columns) == POLICY_COLUMNS
+    assert list(table.index) == ["plan", "top_risk", "random", "none"]
+    plan = pd.read_csv(second.files["plan"])
+    assert table.loc["plan", "contacts"] == len(plan)
+    assert table.loc["plan", "cost"] == pytest.approx(plan["cost"].sum(), abs=0.01)
+    assert table.loc["plan", "expected_value"] == pytest.approx(
+        plan["expected_value"].sum(), abs=0.005 * len(plan) + 0.01
+    )
+    assert (table.loc["none"] == 0).all()
+    assert (table["lower_90"] <= table["expected_value"]).all()
+    assert (table["expected_value"] <= table["upper_90"]).all()
+    backtest = pd.read_csv(second.files["policy_backtest"])
+    assert list(backtest.columns) == ["offer", "offer_month", *BACKTEST_COLUMNS]
+
+
 def test_every_planned_contact_has_a_reason_and_none_names_an_area(demo, two_months):
     _, _, second = two_months
     plan = pd.read_csv(second.files["plan"], keep_default_na=False)
@@ -150,8 +174,12 @@ def test_same_seed_fresh_runs_give_byte_identical_outputs(tmp_path):
         paths["config"].write_text(text)
         result = run_cycle(base / "data", load_config(paths["config"]), as_of="2026-10")
         outputs.append(
-            {k: result.files[k].read_bytes() for k in ("key_figures", "plan", "forecast", "scores")}
-        )
+            {
+                k: result.files[k].read_bytes()
+                for k in ("key_figures", "plan", "forecast", "scores", "policy_comparison",
+                          "policy_backtest")
+            }
+        )  # fmt: skip
     assert outputs[0] == outputs[1]
 
 

@@ -66,6 +66,7 @@ SECTIONS = [
     "forecast",
     "forecast-track",
     "plan",
+    "policies",
     "cautions",
 ]
 PLAN_CONFIG = """
@@ -297,6 +298,25 @@ def report_case(tmp_path_factory):
     return build_case(tmp_path_factory)
 
 
+def _policy_comparison(model, snapshot, scores, offers, plan) -> pd.DataFrame:
+    """The case's policy_comparison table (each offer's single ratio, drawn in its interval)."""
+    from lifecycle.decisions import compare_policies, interval_draws, policy_selections
+
+    ids = snapshot["customer_id"].to_numpy()
+    names = [o.name for o in offers]
+    allowed = plan.allowed.reindex(index=ids, columns=names, fill_value=False).to_numpy(bool)
+    risk = scores.set_index("customer_id").reindex(ids)
+    risk = np.column_stack([risk[f"cif_{o.target}_12m"].to_numpy(float) for o in offers])
+    selections = policy_selections(plan.table, ids, offers, allowed, risk, seed=0)
+    n = len(ids)
+    return compare_policies(
+        model.hazard_array(snapshot, 24), model.causes_, snapshot["monthly_margin"].to_numpy(float),
+        offers, selections, {o.name: np.full(n, o.hazard_ratio) for o in offers},
+        {o.name: interval_draws(o, n, draws=20, seed=0) for o in offers},
+        annual_discount=0.0, horizon=24,
+    )  # fmt: skip
+
+
 def _make_case(root: Path) -> SimpleNamespace:
     """Inputs built on a small demo: panel, boosted and Cox fits, a small forest, a backtest,
     a plan and a forecast (everything the report shows), and the page rendered from them."""
@@ -404,6 +424,7 @@ def _make_case(root: Path) -> SimpleNamespace:
     )
     inputs.forecast_track = result.forecasts
     inputs.cohort_alive = cohort_alive(panel, parse_month("2026-10"))
+    inputs.policy_comparison = _policy_comparison(model, snapshot, scores, offers, plan)
     inputs.uptake_history = (
         tables.uptakes.assign(month=tables.uptakes["month"].map(format_month))
         .groupby(["product", "month"]).size().rename("realised").reset_index().tail(24)
@@ -472,8 +493,13 @@ def test_every_section_is_there_and_has_content(report_case):
         assert len(body) > 80, name  # more than the title
         if name != "cautions":
             assert content["images"] + content["tables"] > 0, name
-    for name in ("portfolio", "tenure", "risk-map", "accuracy", "drivers", "drift", "plan"):
+    for name in ("portfolio", "tenure", "risk-map", "accuracy", "drivers", "drift", "plan",
+                 "policies"):  # fmt: skip
         assert page.sections[name]["images"] >= 1, name
+    policies = report_case.key["policies"]
+    assert set(policies) == {"plan", "top_risk", "random", "none"}
+    assert policies["none"]["expected_value"] == 0.0
+    assert policies["plan"]["contacts"] == len(report_case.plan.table)
     assert page.sections["forecast"]["images"] == 2  # monthly and cumulative fan charts
     assert page.sections["forecast-track"]["tables"] == 2  # the record, the families
 

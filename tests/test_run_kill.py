@@ -20,7 +20,7 @@ from lifecycle.history._store import ScoreHistory
 
 MONTH_FILES = {
     "scores.csv", "contact_plan.csv", "uptake_forecast.csv", "backtest_metrics.csv",
-    "forecast_backtest.csv",
+    "forecast_backtest.csv", "policy_comparison.csv", "policy_backtest.csv",
     "run_summary.json", "report.html", "key_figures.json",
 }  # fmt: skip
 TRIALS = 20

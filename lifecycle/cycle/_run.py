@@ -53,6 +53,7 @@ from ..errors import ModelFileError, OutputError, UsageError
 from ._cache import candidates, entry_name, load_frames, save_entry, save_frames
 from ._checks import checked_inputs, refuse_existing
 from ._lock import run_lock
+from ._policies import policy_tables, write_policy_tables
 from ._publish import HistoryEntry, mend, publish_with_history, staging_folder
 
 log = logging.getLogger(__name__)
@@ -235,10 +236,11 @@ def _locked_run(source, config, settings, checked, force, tick, client, history)
         model = _champion_model(
             settings.work, keys, panel, families, champions, settings.refit_months, force, saves
         )
-        scored, plan, forecast = _score_plan_forecast(
+        scored, plan, forecast, policies = _score_plan_forecast(
             tables, model, month, config, offers, client, tick, panel
         )
         files = _write_tables(staging, scored, plan, forecast, result)
+        files.update(write_policy_tables(staging, policies))
         summary = {
             "month": month,
             "customers_scored": len(scored.scores),
@@ -254,7 +256,7 @@ def _locked_run(source, config, settings, checked, force, tick, client, history)
         files.update(
             _write_month_report(
                 staging, tables, config, month, month_index, panel, scored, model, result,
-                plan, forecast, history, previous,
+                plan, forecast, history, previous, policies["comparison"],
             )
         )  # fmt: skip
         tick("publish")
@@ -336,10 +338,11 @@ def _score_plan_forecast(tables, model, month, config, offers, client, tick, pan
     plan = plan_contacts(
         tables, model, scored, config, offers=offers, expected_values=values, effects=effects
     )
+    policies = policy_tables(tables, config, scored, plan, offers, effects, panel, month)
     tick("forecast")
     if client is None:
         forecast = forecast_portfolio(tables, scored, config, model)
-    return scored, plan, forecast
+    return scored, plan, forecast, policies
 
 
 def _write_tables(staging: Path, scored, plan, forecast, result) -> dict[str, Path]:
@@ -358,7 +361,7 @@ def _write_tables(staging: Path, scored, plan, forecast, result) -> dict[str, Pa
 
 def _write_month_report(
     staging, tables, config, month, month_index, panel, scored, model, result, plan,
-    forecast, history, previous,
+    forecast, history, previous, policy_comparison=None,
 ) -> dict[str, Path]:  # fmt: skip
     """The report's inputs gathered and the report written into the staging folder."""
     from ..report import write_report
@@ -369,6 +372,7 @@ def _write_month_report(
     inputs.forecast_track = result["forecasts"]  # every family: shown side by side
     inputs.uptake_history = _uptake_history(tables, month_index)
     inputs.cohort_alive = _cohort_alive(panel, month_index)
+    inputs.policy_comparison = policy_comparison
     return write_report(inputs, staging)
 
 

@@ -28,6 +28,15 @@ from ._plan import (
     make_plan,
     offer_figures,
 )
+from ._policies import (
+    POLICIES,
+    POLICY_COLUMNS,
+    compare_policies,
+    effect_draws,
+    interval_draws,
+    policy_selections,
+)
+from ._policy_backtest import BACKTEST_COLUMNS, backtest_policies, policy_value_ipw
 from ._reasons import (
     DEFAULT_PHRASES,
     RESPONDS_REASON,
@@ -45,9 +54,12 @@ from ._solve import Allocation, allocate
 
 __all__ = [
     "AREA_FEATURES",
+    "BACKTEST_COLUMNS",
     "DEFAULT_PHRASES",
     "LIMITS",
     "PLAN_COLUMNS",
+    "POLICIES",
+    "POLICY_COLUMNS",
     "RESPONDS_REASON",
     "Allocation",
     "Eligibility",
@@ -56,13 +68,17 @@ __all__ = [
     "Plan",
     "PlanSettings",
     "allocate",
+    "backtest_policies",
     "cause_words",
+    "compare_policies",
     "consent_mask",
     "cooldown_ok",
+    "effect_draws",
     "eligible_mask",
     "excluded_mask",
     "expected_value_matrix",
     "guard_plan",
+    "interval_draws",
     "join_reasons",
     "last_contact_months",
     "make_plan",
@@ -70,6 +86,8 @@ __all__ = [
     "offers_from_config",
     "phrases_from_config",
     "plan_settings_from_config",
+    "policy_selections",
+    "policy_value_ipw",
     "portfolio_reference",
     "reason_concept",
     "require_flag_columns",

@@ -22,6 +22,7 @@ from ._sections_action import (
 )
 from ._sections_cohorts import cohort_section
 from ._sections_plan import plan_section
+from ._sections_policies import policy_section
 from ._sections_track import track_section
 
 log = logging.getLogger(__name__)
@@ -40,7 +41,8 @@ def render_report(inputs: ReportInputs) -> tuple[str, dict[str, Any]]:
     can be mailed as it is. Its sections, in order: the portfolio this month (against last
     month and a year before), hazard by tenure and incidence by segment, the risk map, how
     last month's predictions did with the backtest table, drivers, drift, the uptake
-    forecast, the contact plan with offer rates by area, and the cautions. A section with
+    forecast, the contact plan with offer rates by area, what the plan is worth against
+    simpler choices, and the cautions. A section with
     nothing to show says why.
 
     Parameters
@@ -58,7 +60,8 @@ def render_report(inputs: ReportInputs) -> tuple[str, dict[str, Any]]:
         ``risk``, ``last_month``, ``champions``, ``strongest_effects``, ``drift``,
         ``forecast``, ``plan``, ``offer_rates``, ``offers`` (per offer: ``candidates``,
         ``eligible``, ``allowed``, ``positive_value``, ``chosen``, ``spend``, ``capacity``,
-        ``limited_by``; see `lifecycle.decisions.offer_figures`).
+        ``limited_by``; see `lifecycle.decisions.offer_figures`), ``policies`` (per policy of
+        ``policy_comparison.csv``: its columns; ``None`` without a comparison)
     """
     inputs = check_inputs(inputs)
     sections: list[Section] = []
@@ -75,13 +78,14 @@ def render_report(inputs: ReportInputs) -> tuple[str, dict[str, Any]]:
             key["risk"] = figures
         else:
             key.update(figures)
-    for build in (drift_section, forecast_section, track_section, plan_section):
+    for build in (drift_section, forecast_section, track_section, plan_section, policy_section):
         section, figures = build(inputs)
         sections.append(section)
         key.update(figures)
     key.setdefault("strongest_effects", None)
     key.setdefault("offer_rates", None)
     key.setdefault("offers", None)
+    key.setdefault("policies", None)
     sections.append(cautions_section())
     empty = [s.id for s in sections if not s.blocks]
     if empty:  # every section builder adds at least a note; this guards the page's promise

@@ -45,6 +45,15 @@ REQUIRED: dict[str, tuple[str, ...]] = {
     "forecast": ("month", "area_id", "product", "expected"),
     "plan": ("customer_id", "offer", "week", "expected_value", "cost"),
     "offer_rates": ("area_id", "customers", "contacts", "customer_share", "contact_rate"),
+    "policy_comparison": (
+        "policy",
+        "contacts",
+        "cost",
+        "expected_saves",
+        "expected_value",
+        "lower_90",
+        "upper_90",
+    ),
 }
 OPTIONAL = (
     "decile_check",
@@ -55,6 +64,7 @@ OPTIONAL = (
     "forecast",
     "plan",
     "offer_rates",
+    "policy_comparison",
 )
 
 
@@ -134,6 +144,10 @@ class ReportInputs:
     planned_again
         `Plan.planned_again` of last month's plan: ``previous_contacts``, ``still_eligible``,
         ``planned_again``, ``share`` (``None`` the first month).
+    policy_comparison
+        ``policy_comparison.csv`` (`lifecycle.decisions.compare_policies`): ``policy``,
+        ``contacts``, ``cost``, ``expected_saves``, ``expected_value``, ``lower_90``,
+        ``upper_90``; ``None`` when no comparison was made.
     currency
         The currency of the amounts (``[value] currency``; "" when not named).
     title
@@ -165,6 +179,7 @@ class ReportInputs:
     plan_summary: dict[str, Any] | None = None
     offer_rates: pd.DataFrame | None = None
     planned_again: dict[str, Any] | None = None
+    policy_comparison: pd.DataFrame | None = None
     currency: str = ""
     title: str = DEFAULT_TITLE
     notes: list[str] = field(default_factory=list)

@@ -67,6 +67,13 @@ class OfferEffectModel:
         The log hazard ratio of a customer at the campaign's mean features.
     reason
         One sentence: why the per-customer or the average effect is used.
+    covariance
+        The estimated covariance of the coefficients that make the ratios, from the final
+        lifelines fit's ``variance_matrix_`` (the inverse of the penalised information):
+        rows and columns ``intercept`` and the features (the interactions per standard
+        deviation) when ``varying``, else ``intercept`` alone (the average effect's log
+        ratio). Draws of the coefficients from the normal law with this covariance carry the
+        effects' uncertainty (`lifecycle.decisions.effect_draws`). ``None`` when not known.
     """
 
     effects: pd.DataFrame
@@ -80,6 +87,7 @@ class OfferEffectModel:
     features: pd.DataFrame
     intercept: float
     reason: str
+    covariance: pd.DataFrame | None = None
 
     def predict_hazard_ratio(self, covariates: pd.DataFrame) -> np.ndarray:
         """Each customer's hazard ratio from its features (the columns of ``features``).
@@ -202,7 +210,7 @@ def customer_offer_effects(
     data, features = _design(follow, covariates, penalizers, folds, alpha)
     z_cols = [f"z_{i}" for i in range(len(features))]
     x_cols = [f"x_{i}" for i in range(len(features))]
-    average, lr, p_value = _interaction_test(data, z_cols, x_cols)
+    average, lr, p_value, covariance = _interaction_test(data, z_cols, x_cols)
     cv = _cross_validate(data, x_cols, penalizers, folds, seed)
     best = cv.loc[cv["log_likelihood"].idxmax()]
     varying = p_value < alpha and best["qini"] > 0
@@ -212,6 +220,7 @@ def customer_offer_effects(
         final = _fit(data, _penalty(data, x_cols, penalizer))
         gamma = final.params_[x_cols].to_numpy()
         intercept = float(final.params_[_ARM])
+        covariance = _coefficient_covariance(final, x_cols, features["feature"].tolist())
     reason = _reason(varying, p_value, alpha, penalizer, float(best["qini"]))
     log.info("offer effects: %s", reason)
     log_hr = intercept + data[z_cols].to_numpy() @ gamma
@@ -237,19 +246,33 @@ def customer_offer_effects(
         features=features.assign(interaction=gamma),
         intercept=float(intercept),
         reason=reason,
+        covariance=covariance,
     )
 
 
 def _interaction_test(
     data: pd.DataFrame, z_cols: list[str], x_cols: list[str]
-) -> tuple[float, float, float]:
-    """The average log hazard ratio (arm only), and the likelihood-ratio statistic and p-value
-    of the interactions (arm + features + interactions against arm + features, no penalty)."""
-    average = float(_fit(data[["duration", "event", _ARM]], 0.0).params_[_ARM])
+) -> tuple[float, float, float, pd.DataFrame]:
+    """The average log hazard ratio (arm only), the likelihood-ratio statistic and p-value
+    of the interactions (arm + features + interactions against arm + features, no penalty),
+    and the average's variance (as a 1 × 1 covariance labelled ``intercept``)."""
+    arm_only = _fit(data[["duration", "event", _ARM]], 0.0)
+    average = float(arm_only.params_[_ARM])
     reduced = _fit(data[["duration", "event", _ARM, *z_cols]], 0.0)
     full = _fit(data, 0.0)
     lr = max(2.0 * (full.log_likelihood_ - reduced.log_likelihood_), 0.0)
-    return average, float(lr), float(stats.chi2.sf(lr, len(x_cols)))
+    covariance = _coefficient_covariance(arm_only, [], [])
+    return average, float(lr), float(stats.chi2.sf(lr, len(x_cols))), covariance
+
+
+def _coefficient_covariance(
+    fitter: CoxPHFitter, x_cols: list[str], names: list[str]
+) -> pd.DataFrame:
+    """The covariance of (arm, interactions) from a fit, labelled ``intercept`` + ``names``."""
+    keep = [_ARM, *x_cols]
+    matrix = fitter.variance_matrix_.loc[keep, keep].to_numpy(dtype=np.float64)
+    labels = ["intercept", *names]
+    return pd.DataFrame(matrix, index=labels, columns=labels)
 
 
 def _reason(varying: bool, p_value: float, alpha: float, penalizer: float, qini: float) -> str:
