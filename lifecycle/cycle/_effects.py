@@ -58,12 +58,17 @@ class CustomerEffects:
         campaign's average ratio when ``model.varying`` is False.
     features
         The features the effects were learnt on (before constant ones were dropped).
+    covariates
+        The scored customers' features the ratios were predicted from (missing values at the
+        campaign's mean, each held within the campaign's range), in the snapshot's order; the
+        policy comparison draws the ratios' uncertainty on exactly these.
     """
 
     offer: str
     model: object
     hazard_ratio: pd.Series
     features: tuple[str, ...]
+    covariates: pd.DataFrame | None = None
 
     @property
     def varying(self) -> bool:
@@ -198,7 +203,7 @@ def _offer_effect(tables, offer, panel, snapshot, features) -> CustomerEffects |
             "offer %s: every customer gets the average effect (hazard ratio %.3f): %s",
             offer.name, model.average_hazard_ratio, model.reason,
         )  # fmt: skip
-    return CustomerEffects(offer.name, model, ratio, tuple(features))
+    return CustomerEffects(offer.name, model, ratio, tuple(features), current)
 
 
 def _within_campaign_range(

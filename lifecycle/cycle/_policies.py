@@ -42,8 +42,6 @@ def month_policy_comparison(
     offers: Sequence,
     config: Config,
     effects: Mapping | None,
-    *,
-    ranges: Mapping | None = None,
 ) -> pd.DataFrame | None:
     """``policy_comparison.csv`` of the month (``None`` when the hazards stayed on a cluster).
 
@@ -65,7 +63,7 @@ def month_policy_comparison(
     allowed = plan.allowed.reindex(index=ids, columns=names, fill_value=False).to_numpy(bool)
     risk = np.column_stack([_risk(scored.scores, ids, o.target) for o in offers])
     selections = policy_selections(plan.table, ids, offers, allowed, risk, seed=POLICY_SEED)
-    points, draws = policy_effects(offers, scored.snapshot, effects or {}, ranges=ranges)
+    points, draws = policy_effects(offers, scored.snapshot, effects or {})
     values = value_settings(config)
     table = compare_policies(
         scored.hazards, scored.causes, scored.snapshot["monthly_margin"].to_numpy(np.float64),
@@ -82,13 +80,12 @@ def policy_effects(
     effects: Mapping,
     *,
     draws: int = POLICY_DRAWS,
-    ranges: Mapping | None = None,
 ) -> tuple[dict[str, np.ndarray], dict[str, np.ndarray]]:
     """Each offer's point ratio per customer and ``(draws, n)`` drawn ratios.
 
     An offer with an own effect that varies: its ratios (as the plan used them) and draws of
-    its model's coefficients centred on them (`effect_draws`; the features as in the
-    snapshot, missing ones at the campaign's mean). Any other offer: its single ratio, drawn
+    its model's coefficients centred on them (`effect_draws`, on the features the ratios were
+    predicted from: ``CustomerEffects.covariates``). Any other offer: its single ratio, drawn
     within its ``effect_interval`` (`interval_draws`; fixed when configured).
     """
     from ..decisions import effect_draws, interval_draws
@@ -98,17 +95,15 @@ def policy_effects(
     for k, offer in enumerate(offers):
         own = effects.get(offer.name)
         seed = POLICY_SEED + 1 + k
-        if own is not None and own.varying:
-            ratio = own.hazard_ratio.reindex(ids).to_numpy(np.float64)
-            features = own.model.features
-            covariates = _held_features(snapshot, features, (ranges or {}).get(offer.name))
-            again = own.model.predict_hazard_ratio(covariates)
-            if not np.allclose(again, ratio, rtol=1e-6, equal_nan=True):
-                log.warning(
-                    "policy comparison: offer %s: the effect draws' features give other ratios "
-                    "than the plan's (largest gap %.3g); the draws are centred on the plan's",
-                    offer.name, float(np.nanmax(np.abs(again - ratio))),
-                )  # fmt: skip
+        if own is not None and own.varying and own.covariates is not None:
+            order = pd.Index(own.hazard_ratio.index).get_indexer(ids)
+            if (order < 0).any():
+                raise UsageError(
+                    f"offer {offer.name}: {int((order < 0).sum())} scored customers have no own "
+                    f"effect (for example {ids[order < 0][:5].tolist()})"
+                )
+            ratio = own.hazard_ratio.to_numpy(np.float64)[order]
+            covariates = own.covariates.iloc[order]
             points[offer.name] = ratio
             drawn[offer.name] = effect_draws(
                 own.model, covariates, draws=draws, seed=seed, centre=ratio
@@ -117,38 +112,6 @@ def policy_effects(
             points[offer.name] = np.full(len(ids), float(offer.hazard_ratio))
             drawn[offer.name] = interval_draws(offer, len(ids), draws=draws, seed=seed)
     return points, drawn
-
-
-def _held_features(snapshot: pd.DataFrame, features: pd.DataFrame, bounds) -> pd.DataFrame:
-    """The snapshot's effect features, a missing one at the campaign's mean, each held within
-    the campaign's range (``bounds``: its mean, minimum and maximum per feature, from
-    `campaign_ranges`) as the own ratios were predicted; without ``bounds``, the draws of a
-    customer far outside that range spread as its features say (wider than they should)."""
-    names = features["feature"].tolist()
-    covariates = snapshot.reindex(columns=names).astype(np.float64)
-    if bounds is None:
-        return covariates.fillna(features.set_index("feature")["mean"])
-    mean, low, high = (bounds[k].reindex(names) for k in ("mean", "min", "max"))
-    return covariates.fillna(mean).fillna(0.0).clip(lower=low, upper=high, axis=1)
-
-
-def campaign_ranges(tables: Tables, offers: Sequence, effects: Mapping, panel) -> dict:
-    """Per offer with own effects: the mean, minimum and maximum of each effect feature over
-    its campaign's customers in their offer month (as `customer_effects` holds the snapshot's
-    features within them)."""
-    from ..value import campaign_covariates, campaign_follow_up
-
-    out = {}
-    for offer in offers:
-        own = effects.get(offer.name)
-        if own is None or not own.varying:
-            continue
-        follow = campaign_follow_up(tables, offer.name, target=offer.target, months=offer.months)
-        covariates = campaign_covariates(panel, follow, list(own.features))
-        out[offer.name] = {
-            "mean": covariates.mean(), "min": covariates.min(), "max": covariates.max()
-        }  # fmt: skip
-    return out
 
 
 def _risk(scores: pd.DataFrame, ids: np.ndarray, target: str) -> np.ndarray:
@@ -267,8 +230,7 @@ def policy_tables(tables, config, scored, plan, offers, effects, panel, month: s
     from .._months import parse_month
     from ..value import value_settings
 
-    ranges = campaign_ranges(tables, offers, effects or {}, panel)
-    comparison = month_policy_comparison(scored, plan, offers, config, effects, ranges=ranges)
+    comparison = month_policy_comparison(scored, plan, offers, config, effects)
     backtest = campaign_policy_backtest(
         tables, offers, effects or {}, panel, parse_month(month),
         horizon=value_settings(config).horizon_months,
