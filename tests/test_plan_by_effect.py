@@ -310,9 +310,7 @@ def test_the_report_says_which_effects_were_used_and_how_many_are_harmed():
     _own_effects_text(section, effects, offers)
     _offer_limits(section, offers, "")
     text = " ".join(b.text for b in section.blocks if b.kind == "text")
-    assert (
-        "credit: each customer's own effect" in text and "12 customer(s) predicted harmed" in text
-    )
+    assert "credit: each customer's own effect" in text and "12 customers predicted harmed" in text
     assert "trial: the campaign's average effect" in text
     assert "move: one effect for everyone" in text
     assert "predicted to be harmed" in text  # why credit got no contacts

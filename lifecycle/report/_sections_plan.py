@@ -261,7 +261,7 @@ def _own_effects_text(
     lines = []
     for name, e in effects.items():
         harmed = offers.get(name, {}).get("predicted_harmed")
-        tail = f"; {harmed:,} customer(s) predicted harmed" if harmed is not None else ""
+        tail = "" if harmed is None else f"; {_customers(harmed)} predicted harmed"
         if e.get("per_customer"):
             lines.append(f"{name}: each customer's own effect ({e.get('reason', '')}){tail}.")
         elif "reason" in e:
@@ -449,3 +449,10 @@ def _plain_text(value: Any) -> str:
     if isinstance(value, float | np.floating):
         return f"{float(value):.4g}"
     return str(value)
+
+
+def _customers(count: int) -> str:
+    """``1 customer``, ``2,000 customers``, ``no customer``."""
+    if count == 0:
+        return "no customer"
+    return f"{count:,} customer" + ("" if count == 1 else "s")
