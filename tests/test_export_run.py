@@ -46,7 +46,10 @@ def test_the_export_runs_for_two_months_and_never_plans_flagged_customers(tmp_pa
         assert effects["loyalty_credit"]["lower_95"] < effects["loyalty_credit"]["hazard_ratio"]
         assert effects["leak_cover_trial"] == {
             "from": "settings", "hazard_ratio": 1.5, "lower_95": None, "upper_95": None,
+            "per_customer": False,
         }  # fmt: skip
+        scores = pd.read_csv(folder / "scores.csv")
+        assert {"effect_loyalty_credit", "effect_leak_cover_trial"} <= set(scores.columns)
         html = (folder / "report.html").read_text(encoding="utf-8")
         assert "Offer effects" in html and "past campaigns with a hold-out" in html
     assert sorted(p.name for p in (data / "reports").iterdir() if p.is_dir()) == [
