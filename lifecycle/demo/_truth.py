@@ -246,9 +246,13 @@ contract_ending = "within:contract_months_left:1"
 radii_m = [{P.RADIUS_M}]
 move_rate_months = {move_rate_months}
 
+# A weighted 5 % of the rows without an event (every event row kept): `lifecycle bench models`
+# at 10,000 customers measured the same 12-month churn concordance (0.630) in 1.7 s against
+# 14 s on every row.
 [models.boosted]
 max_iter = 100
 n_threads = 1
+sample_fraction = 0.05
 
 [models.cox]
 sample_fraction = 0.1
