@@ -68,3 +68,21 @@ def _campaigns(rows: list[dict]) -> pd.DataFrame:
     if len(frame):
         frame["month"] = frame["month"].map(parse_month).astype(np.int32)
     return frame
+
+
+def scenario_tables(scenario, folder):
+    """The checked tables and settings of a simulated demo scenario (`simulate_demo`), its
+    ``lifecycle.toml`` written into ``folder``."""
+    from lifecycle.config import load_config
+    from lifecycle.data import RawTables, check_tables
+
+    (folder / "lifecycle.toml").write_text(scenario.config)
+    config = load_config(folder / "lifecycle.toml")
+    raw = RawTables(
+        customers=scenario.customers,
+        activity=scenario.activity,
+        uptakes=scenario.uptakes,
+        areas=scenario.areas,
+        campaigns=scenario.campaigns,
+    )
+    return check_tables(raw, config), config

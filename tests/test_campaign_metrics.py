@@ -25,6 +25,7 @@ from lifecycle.evaluation._campaign_metrics import (
     cross_fitted_qini,
 )
 from lifecycle.value import campaign_covariates, campaign_follow_up
+from tests._builders import scenario_tables
 
 FEATURES = ("contract_ending", "tenure_start", "complaints_3m")
 
@@ -59,22 +60,11 @@ def test_cross_fitted_qini_finds_a_known_varying_effect():
 
 @pytest.fixture(scope="module")
 def demo(tmp_path_factory):
-    from lifecycle.config import load_config
-    from lifecycle.data import RawTables, check_tables
     from lifecycle.demo import simulate_demo
 
     scenario = simulate_demo(customers=2000, seed=7)
-    folder = tmp_path_factory.mktemp("qini")
-    (folder / "lifecycle.toml").write_text(scenario.config)
-    config = load_config(folder / "lifecycle.toml")
-    raw = RawTables(
-        customers=scenario.customers,
-        activity=scenario.activity,
-        uptakes=scenario.uptakes,
-        areas=scenario.areas,
-        campaigns=scenario.campaigns,
-    )
-    return scenario, check_tables(raw, config), config
+    tables, config = scenario_tables(scenario, tmp_path_factory.mktemp("qini"))
+    return scenario, tables, config
 
 
 def test_qini_row_of_a_campaign_in_the_outcome_window(demo):

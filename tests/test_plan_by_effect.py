@@ -11,29 +11,19 @@ References:
 
 from __future__ import annotations
 
-from dataclasses import dataclass
-
 import numpy as np
 import pandas as pd
 import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
+from lifecycle.decisions import Offer
 from lifecycle.errors import UsageError
 from lifecycle.value import discount_factors, offer_values
+from tests._builders import scenario_tables
 
 CAUSES = ["churn", "move_out", "other_exit", "uptake_backup_line"]
 FAST = settings(max_examples=30, deadline=None)
-
-
-@dataclass(frozen=True)
-class Offer:
-    name: str
-    target: str
-    cost: float
-    hazard_ratio: float
-    months: int
-    value_per_uptake: float = 0.0
 
 
 def _hazards(n: int, horizon: int, seed: int) -> np.ndarray:
@@ -117,7 +107,6 @@ def test_bad_own_ratios_are_refused():
 
 # -- the plan's rule on harm ----------------------------------------------------------------
 def _harm_case():
-    from lifecycle.decisions import Offer as PlanOffer
 
     n = 6
     frame = pd.DataFrame(
@@ -128,7 +117,7 @@ def _harm_case():
             "hardship": 0,
         }
     )
-    offer = PlanOffer("credit", "churn", cost=10.0, hazard_ratio=0.6, months=6)
+    offer = Offer("credit", "churn", cost=10.0, hazard_ratio=0.6, months=6)
     ev = np.linspace(5.0, 500.0, n)[:, None]  # c5 has by far the most value at risk
     harmed = pd.DataFrame(
         {"credit": [False, False, False, False, False, True]}, index=frame.customer_id
@@ -177,24 +166,13 @@ def test_a_strong_responder_gets_the_reason_first():
 # -- own effects in the cycle, on the demo --------------------------------------------------
 @pytest.fixture(scope="module")
 def demo_effects(tmp_path_factory):
-    from lifecycle.config import load_config
     from lifecycle.cycle import customer_effects, panel_with_context, snapshot_with_context
-    from lifecycle.data import RawTables, check_tables
     from lifecycle.decisions import offers_from_config
     from lifecycle.demo import simulate_demo
 
     scenario = simulate_demo(customers=20_000, seed=7)  # the default demo
     folder = tmp_path_factory.mktemp("plan-by-effect")
-    (folder / "lifecycle.toml").write_text(scenario.config)
-    config = load_config(folder / "lifecycle.toml")
-    raw = RawTables(
-        customers=scenario.customers,
-        activity=scenario.activity,
-        uptakes=scenario.uptakes,
-        areas=scenario.areas,
-        campaigns=scenario.campaigns,
-    )
-    tables = check_tables(raw, config)
+    tables, config = scenario_tables(scenario, folder)
     month = tables.extract_month
     panel = panel_with_context(tables, month, config)
     snapshot = snapshot_with_context(tables, month, config)
