@@ -9,6 +9,7 @@ import pytest
 from lifecycle._months import format_month, parse_month
 from lifecycle.bench._yardstick import goal_note, truth_comparison
 from lifecycle.demo import simulate_demo, true_incidence
+from lifecycle.demo._params import campaign_hazard_ratios
 from lifecycle.errors import UsageError
 
 SIZE = dict(customers=3000, seed=3, months=24)
@@ -76,6 +77,53 @@ def test_realised_twelve_months_agree_with_the_true_incidence(scenario, truth):
         assert abs(observed - p.sum()) <= 4 * sd, (reason, observed, p.sum(), sd)
 
 
+def _month(features: pd.DataFrame, month: str) -> pd.DataFrame:
+    return features[features["month"].astype(str) == month].set_index("customer_id")
+
+
+def test_truth_knowable_at_the_cutoff_gives_every_offered_customer_the_average(scenario, truth):
+    """With ``campaign_effect="average"`` the first month after the cutoff is again exact: the
+    hazards the simulation used (features table), the offered customers' churn hazard divided
+    by their own ratio (their segment's, from the offer month's features) and multiplied by
+    the campaign's average, ``Σ λ_i·hr_i / Σ λ_i`` over the effect-window months up to the
+    cutoff, computed here from the same table."""
+    knowable = true_incidence(CUTOFF, horizon=1, paths=1, campaign_effect="average", **SIZE)
+    f = scenario.features
+    arm = scenario.campaigns.set_index("customer_id")["arm"].astype(str)
+    offered = arm.index[arm == "offered"].astype(str)
+    own_ratio = pd.Series(
+        campaign_hazard_ratios(_month(f, "2025-09").loc[offered].reset_index()),
+        index=offered,
+    )
+    window = _month(f, CUTOFF)  # the only effect month up to the cutoff
+    window = window[window["offer_loyalty_credit"] == 1]
+    seen = window["hazard_churn"]
+    without = seen / own_ratio.loc[window.index.astype(str)].to_numpy()
+    assert knowable.campaign_ratio == pytest.approx(seen.sum() / without.sum(), rel=1e-12)
+    assert 0.3 < knowable.campaign_ratio < 2.5 and truth.campaign_ratio is None
+
+    month = _month(f, format_month(parse_month(CUTOFF) + 1))
+    month = month[month.index.astype(str).isin(knowable.customer_id)]
+    lam = month[["hazard_churn", "hazard_move_out", "hazard_other_exit"]].to_numpy()
+    mine = month.index.astype(str).isin(offered) & (month["offer_loyalty_credit"] == 1).to_numpy()
+    mine_ids = month.index[mine].astype(str)
+    lam[mine, 0] *= knowable.campaign_ratio / own_ratio.loc[mine_ids].to_numpy()
+    assert mine.sum() > 100
+    total = lam.sum(axis=1)
+    expected = -np.expm1(-total)[:, None] * lam / total[:, None]
+    got = knowable.frame(1).set_index("customer_id").loc[month.index.astype(str)]
+    np.testing.assert_allclose(got[["churn", "move_out", "other_exit"]], expected, atol=1e-14)
+
+
+def test_no_effect_month_seen_means_no_effect_known():
+    """At the offer month itself no month of the effect window has passed: nothing of the
+    effect can be known, so the knowable truth gives every offered customer the ratio 1."""
+    knowable = true_incidence("2025-09", horizon=1, paths=1, campaign_effect="average", **SIZE)
+    assert knowable.campaign_ratio == 1.0
+    with pytest.raises(UsageError, match="campaign_effect"):
+        true_incidence(CUTOFF, horizon=1, paths=1, campaign_effect="mean", **SIZE)
+
+
 def test_truth_compared_with_itself_has_ratio_one():
     rng = np.random.default_rng(0)
     n = 400
@@ -100,4 +148,4 @@ def test_truth_compared_with_itself_has_ratio_one():
     )["churn"]
     assert noisy["ratio"] < 1.0 and noisy["brier_diff"] > 0.0
     note = goal_note({"a": {"churn": same}, "b": {"churn": noisy}})
-    assert "churn 1.00 (a, " in note
+    assert "churn 1.000 (a, " in note

@@ -62,13 +62,13 @@ def _decisions_suite(customers: int | None, months: int) -> list[Measurement]:
     )
 
 
-def _models_suite(customers: int | None, months: int) -> list[Measurement]:
-    from ._models import run_models_bench
+def _models_suite(customers: int | None, months: int, seed: int | None = None) -> list[Measurement]:
+    from ._models import DEMO_SEED, run_models_bench
 
     n = min(customers or DEFAULT_CUSTOMERS["models"], MODELS_MAX_CUSTOMERS)
     if customers and customers > n:
         log.info("models suite: %d customers (its every-row Cox fit takes hours beyond)", n)
-    return run_models_bench(customers=n)
+    return run_models_bench(customers=n, seed=DEMO_SEED if seed is None else seed)
 
 
 def _metrics_suite(customers: int | None, months: int) -> list[Measurement]:
@@ -89,7 +89,7 @@ def _response_suite(customers: int | None, months: int) -> list[Measurement]:
     return run_response_bench(customers or DEFAULT_CUSTOMERS["response"])
 
 
-SUITES: dict[str, Callable[[int | None, int], list[Measurement]]] = {
+SUITES: dict[str, Callable[..., list[Measurement]]] = {
     "panel": _panel_suite,
     "spatial": _spatial_suite,
     "models": _models_suite,
@@ -101,16 +101,23 @@ SUITES: dict[str, Callable[[int | None, int], list[Measurement]]] = {
 
 
 def run_benchmarks(
-    suites: Sequence[str] = (), *, customers: int | None = None, months: int = 48
+    suites: Sequence[str] = (),
+    *,
+    customers: int | None = None,
+    months: int = 48,
+    seed: int | None = None,
 ) -> str:
-    """Run the named suites (all when empty) and return the table of figures and ratios."""
+    """Run the named suites (all when empty) and return the table of figures and ratios.
+    ``seed``: the demo's seed in the models suite (default `lifecycle.bench._models.DEMO_SEED`),
+    to see how its truth ratios vary between demos."""
     unknown = sorted(set(suites) - set(SUITES))
     if unknown:
         raise UsageError(f"unknown benchmark suite(s) {unknown}; choose from {sorted(SUITES)}")
     results: list[Measurement] = []
     for name in suites or list(SUITES):
         log.info("benchmark suite %s", name)
-        results.extend(SUITES[name](customers, months))
+        extra = {"seed": seed} if name == "models" and seed is not None else {}
+        results.extend(SUITES[name](customers, months, **extra))
     return format_table(results)
 
 

@@ -27,7 +27,9 @@ process scores the same customers as of the same cutoff (forward simulation from
 state, not timed), and per cause the note gives ``C`` against ``C_truth``, the ratio
 ``(C − 0.5)/(C_truth − 0.5)`` and the Brier score at 12 months minus the truth's; the forest's
 note ends with the best family per cause against the goal (churn ≥ 0.93, every cause ≥ 0.90,
-causes whose truth has C < 0.55 exempt).
+causes whose truth has C < 0.55 exempt). Both are given twice: against the exact truth and
+against the truth knowable at the cutoff (the campaign's effect averaged over the offered
+customers; why, in `lifecycle.bench._yardstick`).
 
 The Cox pair may run on a smaller demo than the rest (``cox_customers``): the fit on every row
 of the full-size panel takes long (about 5 minutes on 100,000 demo customers, 5M rows, on an
@@ -51,7 +53,7 @@ import pandas as pd
 
 from ..errors import UsageError
 from ._harness import Measurement, measure
-from ._yardstick import goal_note, truth_comparison, truth_note, write_truth_file
+from ._yardstick import TRUTHS, goal_note, truth_comparison, truth_note, write_truth_file
 
 log = logging.getLogger(__name__)
 
@@ -169,7 +171,7 @@ def fit_and_score(
     params: Mapping[str, Any],
     *,
     horizon: int = HORIZON,
-    truth_file: str | Path | None = None,
+    truth_files: Mapping[str, str | Path] | None = None,
 ) -> dict[str, Any]:
     """Fit ``family`` on the demo in ``folder`` up to ``E − horizon`` and score its predictions.
 
@@ -181,8 +183,10 @@ def fit_and_score(
     dict
         ``family``, ``params``, ``cutoff``, ``rows`` (panel rows), ``customers`` (in the
         snapshot), ``fit_seconds``, ``predict_seconds``, ``concordance`` and ``events`` per
-        cause (`twelve_month_concordance`), and for the Cox family ``coefficients`` (records of
-        ``cause``, ``feature``, ``coef``, ``se``).
+        cause (`twelve_month_concordance`), for the Cox family ``coefficients`` (records of
+        ``cause``, ``feature``, ``coef``, ``se``), and with ``truth_files`` (truth name, a key
+        of `lifecycle.bench._yardstick.TRUTHS` → its `write_truth_file` parquet) ``truth``:
+        truth name → `truth_comparison`.
     """
     from .._months import format_month
     from ..config import load_config
@@ -225,9 +229,13 @@ def fit_and_score(
         "concordance": concordance,
         "events": events,
     }
-    if truth_file is not None:
-        truth = pd.read_parquet(truth_file)
-        result["truth"] = truth_comparison(outcomes, incidence, model.causes_, truth, horizon)
+    if truth_files:
+        result["truth"] = {
+            name: truth_comparison(
+                outcomes, incidence, model.causes_, pd.read_parquet(file), horizon
+            )
+            for name, file in truth_files.items()
+        }
     if family == "cox":
         table = model.coefficients_[["cause", "feature", "coef", "se"]]
         result["coefficients"] = table.to_dict(orient="records")
@@ -235,16 +243,16 @@ def fit_and_score(
 
 
 def _measured_fit(
-    folder: str, family: str, params: dict[str, Any], result_file: str, truth_file: str | None
+    folder: str, family: str, params: dict[str, Any], result_file: str, truth_files: dict
 ) -> dict:
-    result = fit_and_score(folder, family, params, truth_file=truth_file)
+    result = fit_and_score(folder, family, params, truth_files=truth_files)
     Path(result_file).write_text(json.dumps(result), encoding="utf-8")
     scores = ", ".join(
         f"{cause.replace('uptake_', 'up_')} {c:.4f}" for cause, c in result["concordance"].items()
     )
     note = f"{result['rows'] / 1e6:.2f}M rows; 12-month Uno C: {scores}"
-    if result.get("truth"):
-        note += "; " + truth_note(result["truth"])
+    for against, comparison in result.get("truth", {}).items():
+        note += "; " + truth_note(comparison, against)
     return {"seconds": result["fit_seconds"], "note": note}
 
 
@@ -337,9 +345,19 @@ def run_models_bench(
             folders[cox_customers] = write_demo_folder(
                 root / f"demo_{cox_customers}", cox_customers, seed=seed
             )
-        # The demo's true process scores the same customers (not timed): the yardstick.
+        # The demo's true process scores the same customers (not timed): the yardstick, from
+        # the exact state and as knowable at the cutoff.
         truths = {
-            size: write_truth_file(folder, root / f"truth_{size}.parquet")
+            size: {
+                against: str(
+                    write_truth_file(
+                        folder,
+                        root / f"truth_{size}_{against}.parquet",
+                        campaign_effect=against,
+                    )
+                )
+                for against in TRUTHS
+            }
             for size, folder in folders.items()
         }
         measured: dict[str, Measurement] = {}
@@ -361,7 +379,7 @@ def run_models_bench(
                 family=case.family,
                 params={**extra.get(case.family, {}), **case.params},
                 result_file=str(result_file),
-                truth_file=str(truths[size]),
+                truth_files=truths[size],
             )
             results[case.key] = json.loads(result_file.read_text(encoding="utf-8"))
     return _with_notes(cases, measured, results)
@@ -379,8 +397,8 @@ def _with_notes(
     notes["forest"] = "; ".join(
         n
         for n in (
-            notes.get("forest"),
-            goal_note({c.key: results[c.key].get("truth", {}) for c in cases}),
+            goal_note({c.key: results[c.key].get("truth", {}).get(t, {}) for c in cases}, t)
+            for t in TRUTHS
         )
         if n
     )

@@ -12,6 +12,16 @@ the share of the truth's concordance above chance that the family reaches, and
 (`lifecycle.evaluation.brier_score`, other exits competing). Goal: churn ratio ≥ 0.93 for the
 best family, every cause ≥ 0.90, except causes whose truth itself has ``C_truth < 0.55`` (no
 signal to reach).
+
+The exact state holds one thing no data up to the cutoff can show: each offered customer's own
+campaign effect (the demo's campaign helps some segments and harms another, and the bench's
+cutoff falls one month into its six-month effect window). So the ratios are given twice: against
+the exact truth, and against the truth knowable at the cutoff, the same process with every
+offered customer given the campaign's average effect so far (``campaign_effect="average"``).
+On the default bench (10,000 customers, seed 7) the averaging alone lowers the truth's churn C
+from 0.6463 to 0.6365, and the Cox family on every row (C 0.6354) reaches 0.925 of the first
+and 0.992 of the second; averaging the latent complaint rate too changes neither by more than
+0.001.
 """
 
 from __future__ import annotations
@@ -32,7 +42,7 @@ MIN_TRUTH_C = 0.55
 TRUTH_PATHS = 100
 
 
-def _write_truth(folder: str, out: str, horizon: int, paths: int) -> None:
+def _write_truth(folder: str, out: str, horizon: int, paths: int, campaign_effect: str) -> None:
     from .._months import parse_month
     from ..demo import true_incidence
 
@@ -45,18 +55,26 @@ def _write_truth(folder: str, out: str, horizon: int, paths: int) -> None:
         months=int(truth["window"]["months"]),
         horizon=horizon,
         paths=paths,
+        campaign_effect=campaign_effect,
     )
     result.frame(horizon).to_parquet(out)
 
 
 def write_truth_file(
-    folder: str | Path, out: str | Path, *, horizon: int = 12, paths: int = TRUTH_PATHS
+    folder: str | Path,
+    out: str | Path,
+    *,
+    horizon: int = 12,
+    paths: int = TRUTH_PATHS,
+    campaign_effect: str = "own",
 ) -> Path:
     """Score the demo in ``folder`` with its true process as of ``E − horizon`` (E its
     extract month), in a fresh process; write ``customer_id`` and the true ``horizon``-month
-    incidence per cause to the parquet file ``out``."""
+    incidence per cause to the parquet file ``out``. ``campaign_effect``: as in
+    `lifecycle.demo.true_incidence` (``"average"``: the truth knowable at the cutoff)."""
     ctx = mp.get_context("spawn")
-    proc = ctx.Process(target=_write_truth, args=(str(folder), str(out), horizon, paths))
+    args = (str(folder), str(out), horizon, paths, campaign_effect)
+    proc = ctx.Process(target=_write_truth, args=args)
     proc.start()
     proc.join()
     if proc.exitcode != 0:
@@ -113,8 +131,13 @@ def truth_comparison(
     return out
 
 
-def truth_note(comparison: dict[str, dict[str, float]]) -> str:
-    """``vs truth: churn C 0.612/0.634 ratio 0.91 ΔBS +0.0004; …`` for a case's note."""
+#: How the notes name the two truths (`lifecycle.demo.true_incidence`'s ``campaign_effect``).
+TRUTHS = {"own": "truth", "average": "truth knowable at the cutoff (campaign effect averaged)"}
+
+
+def truth_note(comparison: dict[str, dict[str, float]], against: str = "own") -> str:
+    """``vs truth (…): churn C 0.612/0.634 ratio 0.91 ΔBS +0.0004; …`` for a case's note;
+    ``against`` names the truth (a key of `TRUTHS`)."""
     parts = []
     for cause, v in comparison.items():
         name = cause.replace("uptake_", "up_")
@@ -122,11 +145,13 @@ def truth_note(comparison: dict[str, dict[str, float]]) -> str:
             f"{name} C {v['c']:.3f}/{v['c_truth']:.3f} ratio {v['ratio']:.2f} "
             f"ΔBS {v['brier_diff']:+.4f}"
         )
-    return "vs truth (C ours/truth, (C−½)/(C_truth−½), Brier@12 − truth's): " + "; ".join(parts)
+    heading = f"vs {TRUTHS[against]} (C ours/truth, (C−½)/(C_truth−½), Brier@12 − truth's): "
+    return heading + "; ".join(parts)
 
 
-def goal_note(by_family: dict[str, dict[str, dict[str, float]]]) -> str:
-    """Whether the best family per cause meets the goal of the module docstring."""
+def goal_note(by_family: dict[str, dict[str, dict[str, float]]], against: str = "own") -> str:
+    """Whether the best family per cause meets the goal of the module docstring, against the
+    truth named by ``against`` (a key of `TRUTHS`)."""
     if not by_family:
         return ""
     causes = sorted({c for comp in by_family.values() for c in comp})
@@ -140,5 +165,6 @@ def goal_note(by_family: dict[str, dict[str, dict[str, float]]]) -> str:
         ok = exempt or value["ratio"] >= goal
         met &= ok
         flag = "exempt: truth C < 0.55" if exempt else ("met" if ok else f"missed, goal {goal:g}")
-        parts.append(f"{cause.replace('uptake_', 'up_')} {value['ratio']:.2f} ({best}, {flag})")
-    return f"best family vs truth: {'; '.join(parts)} — {'met' if met else 'missed'}"
+        parts.append(f"{cause.replace('uptake_', 'up_')} {value['ratio']:.3f} ({best}, {flag})")
+    verdict = "met" if met else "missed"
+    return f"best family vs {TRUTHS[against]}: {'; '.join(parts)} — {verdict}"

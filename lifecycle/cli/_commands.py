@@ -432,12 +432,15 @@ def _bench_arguments(p: argparse.ArgumentParser) -> None:
     p.add_argument("suites", nargs="*", help=f"any of {', '.join(SUITES)} (default: all)")
     p.add_argument("--customers", type=int, default=None, help="customers in the large case")
     p.add_argument("--months", type=int, default=48, help="months of history (default 48)")
+    p.add_argument(
+        "--seed", type=int, default=None, help="the demo's seed in the models suite (default 7)"
+    )
 
 
 def _bench_run(args: argparse.Namespace) -> None:
     from ..bench import run_benchmarks
 
-    print(run_benchmarks(args.suites, customers=args.customers, months=args.months))
+    print(run_benchmarks(args.suites, customers=args.customers, months=args.months, seed=args.seed))
 
 
 BENCH = Command(

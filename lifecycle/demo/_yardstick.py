@@ -43,6 +43,8 @@ class TrueIncidence:
     causes: tuple[str, ...]
     incidence: np.ndarray  # (n, horizon, K)
     paths: int
+    campaign_effect: str = "own"
+    campaign_ratio: float | None = None  # the averaged ratio, with campaign_effect "average"
 
     def frame(self, month: int) -> pd.DataFrame:
         """``customer_id`` and one column per cause: the incidence by ``month`` months ahead."""
@@ -86,6 +88,7 @@ def true_incidence(
     months: int = 48,
     horizon: int = 12,
     paths: int = 40,
+    campaign_effect: str = "own",
 ) -> TrueIncidence:
     """Score every customer present at the end of ``cutoff`` with the demo's true process.
 
@@ -113,6 +116,15 @@ def true_incidence(
         Months ahead.
     paths
         Simulated futures (R).
+    campaign_effect
+        ``"own"``: each customer offered by the cutoff keeps its own true hazard ratio (its
+        segment's, `lifecycle.demo.campaign_hazard_ratios`): the exact state. ``"average"``:
+        every customer offered by the cutoff gets the same ratio, the campaign's average so
+        far, ``Σ λ_i·hr_i / Σ λ_i`` over the offered customer-months of the effect window
+        simulated up to the cutoff (λ the churn hazard without the offer; 1 when no such
+        month has passed, as nothing of the effect could be seen). That is what the data up to
+        the cutoff can tell of the effect: its outcomes after the cutoff are what reveal how
+        it differs between customers. A campaign after the cutoff runs as in ``"own"``.
 
     Returns
     -------
@@ -124,6 +136,8 @@ def true_incidence(
         raise UsageError(
             f"cutoff was {format_month(c)} but the demo is simulated from {format_month(cal.first)}"
         )
+    if campaign_effect not in ("own", "average"):
+        raise UsageError(f'campaign_effect was {campaign_effect!r}; use "own" or "average"')
     if horizon < 1 or paths < 1:
         raise UsageError(f"horizon ({horizon}) and paths ({paths}) must be at least 1")
     rng = random_streams(seed)
@@ -132,6 +146,11 @@ def true_incidence(
     for m in range(cal.first, c + 1):
         simulate_month(world, m, rng)
     pop = world.pop
+    ratio = None
+    if campaign_effect == "average":
+        seen, without = world.effect_sums
+        ratio = float(seen / without) if without > 0 else 1.0
+        pop.offer_hr[: pop.n][pop.offered[: pop.n]] = ratio
     cohort = np.flatnonzero((pop.start[: pop.n] <= c) & (pop.end[: pop.n] < 0))
     k_exit = len(P.CAUSES)
     total = np.zeros((cohort.size, horizon, k_exit + 1))
@@ -150,4 +169,6 @@ def true_incidence(
         causes=CAUSE_COLUMNS,
         incidence=total / paths,
         paths=paths,
+        campaign_effect=campaign_effect,
+        campaign_ratio=ratio,
     )
