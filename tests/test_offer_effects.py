@@ -157,6 +157,27 @@ def test_no_variation_falls_back_to_the_average_effect():
     assert abs(math.log(model.average_hazard_ratio) - math.log(0.6)) < 4 * se
 
 
+def test_too_few_events_per_feature_give_the_average_effect_untested():
+    """Fewer than 10 target events per feature (common practice for Cox models: Peduzzi et
+    al. 1995, from memory): no test of variation, every customer gets the average effect,
+    which is lifelines' arm-only Cox ratio."""
+    from lifelines import CoxPHFitter
+
+    follow, x = _common_effect(seed=4, n=150)
+    events = int(follow["event"].sum())
+    wide = x.assign(x3=x["x1"] ** 2, x4=x["x1"] * x["x2"])  # 4 features: 40 events needed
+    assert 0 < events < 40  # the simulation's share of events is about 15 %
+    model = customer_offer_effects(follow, wide, folds=3)
+    assert not model.varying and math.isnan(model.lr_p_value), model.reason
+    assert f"too few target events ({events})" in model.reason and "40" in model.reason
+    assert model.cross_validation.empty and (model.features["interaction"] == 0).all()
+    data = follow[["duration", "event", "offered"]].astype(float)
+    arm_only = CoxPHFitter().fit(data, "duration", "event")
+    reference = float(arm_only.hazard_ratios_["offered"])
+    assert model.average_hazard_ratio == pytest.approx(reference, rel=1e-6)
+    np.testing.assert_allclose(model.predict_hazard_ratio(wide), model.average_hazard_ratio)
+
+
 def test_campaign_covariates_take_the_offer_month_row():
     panel = pd.DataFrame(
         {

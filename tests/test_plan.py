@@ -281,6 +281,11 @@ def test_plan_honours_flags_cooldown_budget_and_capacity():
         weeks = table.loc[table.offer == offer.name, "week"]
         assert weeks.value_counts().max() <= offer.weekly_capacity
     assert plan.summary()["excluded_customers"] == len(flagged)
+    # why they were left out, per flag, counted from the frame itself
+    assert plan.summary()["excluded_by"] == {
+        "do_not_contact": int((frame.do_not_contact == 1).sum()),
+        "hardship": int((frame.hardship == "yes").sum()),
+    }
     assert plan.summary()["budget_used"] == pytest.approx(table.cost.sum())
 
 

@@ -280,6 +280,8 @@ def test_the_report_says_which_effects_were_used_and_how_many_are_harmed():
             "reason": "no evidence that the effect varies",
         },
         "move": {"hazard_ratio": 0.7, "from": "settings", "per_customer": False},
+        # a randomised campaign whose fit per customer failed: not "no randomised campaign"
+        "letter": {"hazard_ratio": 0.9, "from": "campaigns", "per_customer": False},
     }
     figures = {"predicted_harmed": 12, "harmed_planned": 0, "limited_by": "predicted harm"}
     base = {"candidates": 50, "eligible": 40, "positive_value": 30, "chosen": 0, "spend": 0.0}
@@ -291,6 +293,8 @@ def test_the_report_says_which_effects_were_used_and_how_many_are_harmed():
     assert "credit: each customer's own effect" in text and "12 customers predicted harmed" in text
     assert "trial: the campaign's average effect" in text
     assert "move: one effect for everyone" in text
+    assert "letter: the campaign's average effect (its campaign could not give" in text
+    assert "letter: one effect for everyone" not in text
     assert "predicted to be harmed" in text  # why credit got no contacts
 
 

@@ -164,3 +164,30 @@ def test_holes_are_not_inside():
     points = [(X0 + 100, Y0 + 100), (X0 + 450, Y0 + 450)]
     assert not ring.covers(Point(points[1])) and inner.covers(Point(points[1]))  # shapely
     assert premise_areas(tables_with(points, areas)).tolist() == ["RING", "CORE"]
+
+
+def test_areas_in_lon_lat_are_sized_in_metres_without_a_library_warning():
+    """Areas kept in lon/lat (as GeoJSON keeps them): the overlap check and the "smallest"
+    rule size them in metres (geopandas warns on areas taken in square degrees, and the test
+    configuration turns that warning into an error), with the same results as in metres."""
+    from lifecycle.data import planar_areas
+    from lifecycle.data._areas import overlapping_pairs
+
+    big = box(X0, Y0, X0 + 1000, Y0 + 1000)
+    small = box(X0 + 500, Y0 + 500, X0 + 900, Y0 + 900)  # inside the big one: they overlap
+    metric = gpd.GeoDataFrame(
+        {"area_id": ["A-BIG", "B-SMALL"], "rental_share": [0.2, 0.6]},
+        geometry=[big, small],
+        crs=CRS,
+    )
+    lonlat = metric.to_crs("EPSG:4326")
+    # A 1 km square measured back in its own UTM zone: 1,000,000 m² to the zone's scale error
+    # (0.9996–1.0010 a side, so within 0.2 % of the area; common practice for UTM).
+    sizes = planar_areas(lonlat.geometry)
+    np.testing.assert_allclose(sizes, [1_000_000.0, 160_000.0], rtol=2e-3)
+    assert overlapping_pairs(lonlat) == overlapping_pairs(metric) == [(0, 1)]
+    points = [(X0 + 700, Y0 + 700), (X0 + 100, Y0 + 100)]
+    smallest = Config(spatial=SpatialSettings(overlaps="smallest"))
+    got = premise_areas(tables_with(points, lonlat), smallest)
+    assert got.tolist() == premise_areas(tables_with(points, metric), smallest).tolist()
+    assert got.tolist() == ["B-SMALL", "A-BIG"]

@@ -1,5 +1,6 @@
 """Input tables: reading them and checking them against the data contract."""
 
+from ._areas import planar_areas
 from ._check import check_tables, load_tables
 from ._cut import tables_as_of
 from ._describe import describe_tables
@@ -12,6 +13,7 @@ __all__ = [
     "check_tables",
     "describe_tables",
     "load_tables",
+    "planar_areas",
     "read_raw_tables",
     "tables_as_of",
 ]

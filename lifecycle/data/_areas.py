@@ -127,6 +127,15 @@ def _attribute(values: pd.Series, name: str, report: Report) -> pd.Series:
     return pd.Series(number, index=values.index, name=values.name) if is_text(values) else values
 
 
+def planar_areas(geometry: gpd.GeoSeries) -> np.ndarray:
+    """Each polygon's area in square metres where the CRS is geographic (lon/lat degrees, as
+    GeoJSON keeps areas): measured in the WGS 84 UTM zone of the polygons' centre, not in
+    square degrees, whose size shrinks with the cosine of the latitude; else in the CRS's unit."""
+    if geometry.crs is not None and geometry.crs.is_geographic and len(geometry):
+        geometry = geometry.to_crs(geometry.estimate_utm_crs())
+    return geometry.area.to_numpy()
+
+
 def overlapping_pairs(areas: gpd.GeoDataFrame) -> list[tuple[int, int]]:
     """Row pairs ``(i, j)``, ``i < j``, of areas whose interiors overlap: the intersection
     covers more than `OVERLAP_SHARE` of the smaller one (touching edges do not count)."""
@@ -143,8 +152,8 @@ def overlapping_pairs(areas: gpd.GeoDataFrame) -> list[tuple[int, int]]:
         .reset_index(drop=True)
         .intersection(geometry.iloc[right].reset_index(drop=True))
     )
-    smaller = np.minimum(geometry.area.to_numpy()[left], geometry.area.to_numpy()[right])
-    over = shared.area.to_numpy() > OVERLAP_SHARE * smaller
+    size = planar_areas(geometry)
+    over = planar_areas(shared) > OVERLAP_SHARE * np.minimum(size[left], size[right])
     return sorted(zip(left[over].tolist(), right[over].tolist(), strict=True))
 
 

@@ -116,3 +116,18 @@ def consent_mask(frame: pd.DataFrame, consent: str | None) -> np.ndarray:
     if not consent:
         return np.ones(len(frame), dtype=bool)
     return excluded_mask(frame, [consent])
+
+
+def exclusion_counts(
+    frame: pd.DataFrame, flags: Sequence[str], consent: str | None = None
+) -> dict[str, int]:
+    """Why customers were left out of the plan: per flag column present, the customers it
+    flags, and under ``"not opted in (<consent>)"`` those without consent. A customer may be
+    counted under several reasons (so the counts may add up to more than the customers left
+    out)."""
+    from ._offers import excluded_mask
+
+    out = {name: int(excluded_mask(frame, [name]).sum()) for name in flags if name in frame}
+    if consent:
+        out[f"not opted in ({consent})"] = int((~consent_mask(frame, consent)).sum())
+    return out

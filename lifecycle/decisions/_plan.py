@@ -18,7 +18,7 @@ import pandas as pd
 
 from .._months import categorical_to_index, format_month, parse_month
 from ..errors import InputError, UsageError
-from ._exclusions import consent_mask, require_flag_columns
+from ._exclusions import consent_mask, exclusion_counts, require_flag_columns
 from ._offers import Offer, PlanSettings, _numbers, cooldown_ok, eligible_mask, excluded_mask
 from ._reasons import (
     DEFAULT_PHRASES,
@@ -57,7 +57,9 @@ class Plan:
     budget
         The budget the plan had.
     excluded
-        Customers never considered because of an exclusion flag.
+        Customers never considered because of an exclusion flag or consent.
+    excluded_by
+        Why (`exclusion_counts`): customers per flag, and those not opted in.
     offer_figures
         Per offer name, why it got the contacts it did (`offer_figures`).
     allowed
@@ -77,6 +79,7 @@ class Plan:
     offer_figures: dict[str, dict[str, Any]] = field(default_factory=dict)
     allowed: pd.DataFrame | None = None
     own_effects: dict[str, dict[str, Any]] = field(default_factory=dict)
+    excluded_by: dict[str, int] = field(default_factory=dict)
 
     def planned_again(self, previous: pd.DataFrame | None) -> dict[str, Any] | None:
         """How many of last month's planned customers are planned again.
@@ -127,6 +130,7 @@ class Plan:
             },
             "candidate_pairs": a.candidates,
             "excluded_customers": self.excluded,
+            "excluded_by": self.excluded_by,
             "offers": self.offer_figures,
         }
 
@@ -249,6 +253,7 @@ def make_plan(
             table["reasons"].tolist(), _pair_flags(responsive, ids, offers)[rows, chosen]
         )
     result = _plan_result(table, ids, ev, offers, settings, allocation, rules, excluded, allowed)
+    result.excluded_by.update(exclusion_counts(frame, settings.exclusions, settings.consent_column))
     add_harm_figures(result.offer_figures, offers, ev, before & ~allowed, harm, allocation.choice)
     return result
 

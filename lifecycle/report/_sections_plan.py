@@ -36,6 +36,7 @@ def plan_section(inputs: ReportInputs) -> tuple[Section, dict[str, Any]]:
     summary = inputs.plan_summary or {}
     unit = f" {inputs.currency}" if inputs.currency else ""
     _plan_overview(section, plan, summary.get("budget"), unit)
+    _left_out(section, summary)
     by_offer = _offers_table(section, plan, unit)
     _offer_effects(section, summary.get("effects"))
     _own_effects_text(section, summary.get("effects"), summary.get("offers"))
@@ -64,6 +65,18 @@ def _plan_overview(section: Section, plan: pd.DataFrame, budget: Any, unit: str)
             else ""
         )
         + ("" if unit else " Amounts are in the unit of the customers' monthly margin.")
+    )
+
+
+def _left_out(section: Section, summary: dict[str, Any]) -> None:
+    """How many customers were never considered, and why (flags, consent), in words."""
+    total, why = summary.get("excluded_customers"), summary.get("excluded_by") or {}
+    if total is None:
+        return
+    parts = ", ".join(f"{name} {int(n):,}" for name, n in why.items())
+    section.text(
+        f"Left out before planning: {_customers(int(total))}"
+        + (f" ({parts}; a customer may count under more than one)." if parts else ".")
     )
 
 
@@ -152,7 +165,7 @@ def _plan_key(
         },
         "by_week": {str(w): int(row.sum()) for w, row in weekly.iterrows()},
     }
-    for extra in ("gap", "relative_gap", "solver", "excluded_customers"):
+    for extra in ("gap", "relative_gap", "solver", "excluded_customers", "excluded_by"):
         if extra in summary:
             key[extra] = summary[extra]
     return key
@@ -266,6 +279,11 @@ def _own_effects_text(
             lines.append(f"{name}: each customer's own effect ({e.get('reason', '')}){tail}.")
         elif "reason" in e:
             lines.append(f"{name}: the campaign's average effect ({e['reason']}){tail}.")
+        elif e.get("from") == "campaigns":
+            lines.append(
+                f"{name}: the campaign's average effect (its campaign could not give an effect "
+                f"per customer; the log says why){tail}."
+            )
         else:
             lines.append(f"{name}: one effect for everyone (no randomised campaign){tail}.")
     section.text(

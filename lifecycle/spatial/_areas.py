@@ -10,7 +10,7 @@ import pandas as pd
 from pyproj import CRS
 
 from ..config import Config
-from ..data import Tables
+from ..data import Tables, planar_areas
 from ..errors import InputError
 from ._crs import check_coordinates, coordinate_columns, distance_crs, premise_crs
 
@@ -60,7 +60,7 @@ def _rank_by_id(areas: gpd.GeoDataFrame) -> np.ndarray:
 def _rank_by_size(areas: gpd.GeoDataFrame) -> np.ndarray:
     """Rank of each area by its size, smallest first (ties: ``area_id`` order)."""
     by_id = _rank_by_id(areas)
-    order = np.lexsort((by_id, areas.geometry.area.to_numpy()))
+    order = np.lexsort((by_id, planar_areas(areas.geometry)))
     rank = np.empty(len(order), dtype=np.int64)
     rank[order] = np.arange(len(order))
     return rank
