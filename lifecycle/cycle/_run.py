@@ -40,7 +40,7 @@ import hashlib
 import json
 import logging
 import shutil
-from collections.abc import Callable
+from collections.abc import Callable, Sequence
 from dataclasses import dataclass, field
 from pathlib import Path
 
@@ -134,15 +134,21 @@ class RunResult:
     summary: dict[str, object] = field(default_factory=dict)
 
 
-def data_fingerprint(source: str | Path, config: Config) -> str:
-    """SHA-256 over the input files (or DuckDB file) and the config text."""
+def data_fingerprint(source: str | Path, config: Config, outputs: Sequence[Path] = ()) -> str:
+    """SHA-256 over the input files (or DuckDB file) and the config text.
+
+    Files under ``outputs`` (the run's reports, history and work folders, which by default lie
+    inside the data folder beside the config) are not inputs: hashed, they would make every
+    run's fingerprint differ (the run lock's owner file holds the process and the time)."""
     digest = hashlib.sha256()
     source = Path(source)
     files = sorted(p for p in source.rglob("*") if p.is_file()) if source.is_dir() else [source]
+    ours = [Path(p).resolve() for p in outputs]
     for file in files:
         hidden = any(part.startswith(".") for part in file.relative_to(source.parent).parts)
         derived = file.suffix == ".parquet" and file.stem.startswith("panel_")
-        if hidden or derived:  # our own work files are not inputs
+        written = any(file.resolve().is_relative_to(p) for p in ours)
+        if hidden or derived or written:  # our own work files are not inputs
             continue
         digest.update(file.name.encode())
         with open(file, "rb") as handle:
@@ -221,7 +227,9 @@ def _locked_run(source, config, settings, checked, force, tick, client, history)
     offers, min_events = checked["offers"], checked["min_events"]
     folder = settings.reports / month
     refuse_existing(folder, month, force)  # under the lock, after `mend`
-    fingerprint = hashlib.sha256(f"{data_fingerprint(source, config)}:{month}".encode()).hexdigest()
+    outputs = (settings.reports, settings.history_path, settings.work)
+    fingerprint = data_fingerprint(source, config, outputs)
+    fingerprint = hashlib.sha256(f"{fingerprint}:{month}".encode()).hexdigest()
     keys = (month, fingerprint, _config_hash(config))
     saves = []  # saved steps, written to the work folder only once the month is published
     staging = staging_folder(settings.reports, month)
