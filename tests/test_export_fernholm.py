@@ -17,6 +17,7 @@ import re
 import shutil
 from html import unescape
 from html.parser import HTMLParser
+from pathlib import Path
 
 import duckdb
 import geopandas as gpd
@@ -244,18 +245,67 @@ def test_the_same_export_gives_the_same_bytes(fernholm):
         assert (one / name).read_bytes() == (two / name).read_bytes(), name
 
 
+def _copy_with_members(fernholm, folder: Path, edit) -> Path:
+    """The export without its outputs, its members table changed by ``edit``."""
+    shutil.copytree(fernholm["data"], folder, ignore=shutil.ignore_patterns("reports", ".*"))
+    members = pd.read_parquet(folder / "members.parquet")
+    edit(members)
+    members.to_parquet(folder / "members.parquet", index=False)
+    return folder
+
+
+def _refused(folder: Path, capsys, commands=("check", "run")) -> str:
+    """Each command exits 2 with one line and writes nothing; returns the line."""
+    line = ""
+    for command in commands:
+        before = sorted(str(p) for p in folder.rglob("*"))
+        argv = ["check", str(folder)]
+        argv = argv if command == "check" else ["run", "--config", str(folder / "lifecycle.toml")]
+        assert main(argv) == 2, command
+        err = capsys.readouterr().err.strip().splitlines()
+        assert len(err) == 1, err
+        line = err[0]
+        assert sorted(str(p) for p in folder.rglob("*")) == before, command
+    return line
+
+
 def test_payment_arrangement_written_j_n_is_refused_with_one_message(fernholm, tmp_path, capsys):
     """A flag written J/N (Ja/Nej) is no flag word the settings can map: refused by name."""
-    data = tmp_path / "data"
-    shutil.copytree(fernholm["data"], data, ignore=shutil.ignore_patterns("reports", ".*"))
-    members = pd.read_parquet(data / "members.parquet")
-    members["payment_arrangement"] = np.where(members["payment_arrangement"], "J", "N")
-    members.to_parquet(data / "members.parquet", index=False)
-    flagged = members.loc[members["payment_arrangement"] == "J", "member_no"]
-    before = sorted(p.name for p in data.iterdir())
-    assert main(["check", str(data)]) == 2
-    err = capsys.readouterr().err.strip().splitlines()
-    assert len(err) == 1
-    assert "'payment_arrangement' (hardship)" in err[0] and "['J']" in err[0]
-    assert f"({len(flagged)} rows, e.g. {flagged.iloc[0]}" in err[0]
-    assert sorted(p.name for p in data.iterdir()) == before
+
+    def j_n(members):
+        members["payment_arrangement"] = np.where(members["payment_arrangement"], "J", "N")
+
+    data = _copy_with_members(fernholm, tmp_path / "data", j_n)
+    flagged = pd.read_parquet(data / "members.parquet").query("payment_arrangement == 'J'")
+    line = _refused(data, capsys)
+    assert "'payment_arrangement' (hardship)" in line and "['J']" in line
+    assert f"({len(flagged)} rows, e.g. {flagged['member_no'].iloc[0]}" in line
+
+
+def test_consent_written_j_n_is_refused_before_any_work(fernholm, tmp_path, capsys):
+    """Consent written J/N was read as text: `check` passed it and `run` refused it only at
+    the plan, after the backtest and the fit. Now both refuse it from the table, by name."""
+
+    def j_n(members):
+        members["marketing_ok"] = np.where(members["marketing_ok"] == "true", "J", "N")
+
+    data = _copy_with_members(fernholm, tmp_path / "data", j_n)
+    consenting = pd.read_parquet(data / "members.parquet").query("marketing_ok == 'J'")
+    line = _refused(data, capsys)
+    assert "'marketing_ok'" in line and "[plan] consent_column" in line and "['J']" in line
+    assert f"({len(consenting)} rows, e.g. {consenting['member_no'].iloc[0]}" in line
+
+
+def test_reason_codes_stored_as_floats_are_read_as_their_whole_numbers(fernholm, tmp_path):
+    """A whole-number column with blanks, as pandas writes it without a nullable type, holds
+    11.0, 21.0, 31.0: read as the codes 11, 21, 31 of [reasons] (they were refused as
+    unknown codes '11.0', ...)."""
+
+    def floats(members):
+        members["leave_code"] = members["leave_code"].astype("float64")
+
+    data = _copy_with_members(fernholm, tmp_path / "data", floats)
+    code, out, err = _quiet(["check", str(data)])
+    assert code == 0, err
+    exits = next(line for line in out.splitlines() if line.startswith("exits:"))
+    assert exits in fernholm["checked"]  # the same counts as the whole-number codes

@@ -304,9 +304,12 @@ def _check_customers(
     )
     skip = set(REQUIRED_COLUMNS["customers"]) | set(_COORDINATES)
     static_columns = [c for c in raw.columns if c not in skip]
+    plan_flags = _plan_flag_columns(config)
     for name in static_columns:
         if name in FLAG_COLUMNS:
             _check_flag(raw[name], name, report)
+        elif name in plan_flags:
+            _check_flag(raw[name], name, report, plan_flags[name])
         out[name] = static(raw[name])
         if pd.api.types.is_float_dtype(out[name].dtype):
             values = out[name].to_numpy()
@@ -317,18 +320,38 @@ def _check_customers(
     return out, static_columns
 
 
-def _check_flag(values: pd.Series, name: str, report: Report) -> None:
-    """A decision flag: a flag word (1/0, true/false, yes/no, Y/N, any case) on every row."""
+def _check_flag(values: pd.Series, name: str, report: Report, setting: str | None = None) -> None:
+    """A decision flag: a flag word (1/0, true/false, yes/no, Y/N, any case) on every row.
+    A column the plan reads as a flag (``setting``: ``[plan] consent_column`` or ``exclude``)
+    may be blank (not set), but any other word is refused here, before any work: the plan
+    could not tell whether it is set."""
     codes, uniques = pd.factorize(values)
     words = [str(u).strip().lower() for u in uniques]
-    wrong = np.append([w not in FLAG_WORDS for w in words], True)[codes]
+    wrong = np.append([w not in FLAG_WORDS for w in words], setting is None)[codes]
+    if setting is not None:
+        wrong &= ~blank(values)
+    what = "a decision flag" if setting is None else f"read as a flag ({setting})"
+    blanks = "blank is not allowed" if setting is None else "or blank"
     report.fail(
         name,
-        f"is a decision flag and must be 1/0, true/false, yes/no or Y/N on every row (blank "
-        f"is not allowed), not {values_of(values.fillna(''), wrong, 3)}",
+        f"is {what} and must be 1/0, true/false, yes/no or Y/N on every row ({blanks}), not "
+        f"{values_of(values.fillna(''), wrong, 3)}",
         wrong,
-        "Write 1 (or Y) for flagged customers and 0 (or N) for the others",
+        "Write 1 (or Y) where the flag is set and 0 (or N) where it is not",
     )
+
+
+def _plan_flag_columns(config: Config) -> dict[str, str]:
+    """Columns the plan reads as flags beside the decision flags: column → its setting."""
+    from ..config import setting
+
+    extra = setting(config, "plan.exclude")
+    extra = [extra] if isinstance(extra, str) else list(extra or [])
+    out = {str(c): "[plan] exclude" for c in extra if c not in FLAG_COLUMNS}
+    consent = setting(config, "plan.consent_column")
+    if consent:
+        out[str(consent)] = "[plan] consent_column"
+    return out
 
 
 def _future(extract: float) -> str:
@@ -375,8 +398,9 @@ def _end_reasons(values: pd.Series, config: Config, report: Report) -> pd.Catego
         raise UsageError(f"[reasons] maps onto {wrong}; each must be one of {list(REASONS)}")
     mapping = {r: r for r in REASONS} | {str(k): v for k, v in config.reasons.items()}
     codes, uniques = pd.factorize(values)
-    texts = text_ids(pd.Series(np.asarray(uniques, dtype=object), dtype=object))
-    texts = [str(t).strip() for t in texts]
+    # the codes' own dtype, so that whole numbers stored as floats (11.0: a number column with
+    # blanks, as pandas writes it) read as the codes 11 mapped in [reasons]
+    texts = [str(t).strip() for t in text_ids(pd.Series(np.asarray(uniques)))]
     mapped = np.array([mapping.get(t, "" if t else None) for t in texts] + [None], dtype=object)
     unknown = np.array([m == "" for m in mapped], dtype=bool)
     flagged = unknown[codes]
