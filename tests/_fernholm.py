@@ -302,3 +302,28 @@ def write_fernholm(folder: Path, members: int = 360, seed: int = 5) -> Path:
     settings = folder / "lifecycle.toml"
     settings.write_text(SETTINGS, encoding="utf-8")
     return settings
+
+
+def write_fernholm_duckdb(folder: Path, members: int = 360, seed: int = 5) -> Path:
+    """The same export as one DuckDB database (the districts as WKT text in lon/lat, named in
+    ``[data] areas_crs``) beside its ``lifecycle.toml``; returns the settings file."""
+    import duckdb
+
+    folder.mkdir(parents=True, exist_ok=True)
+    frames = fernholm_frames(members, seed)
+    districts = fernholm_districts()
+    frames["districts"] = pd.DataFrame(districts.drop(columns="geometry")).assign(
+        geometry=districts.geometry.to_wkt()
+    )
+    with duckdb.connect(str(folder / "fernholm.duckdb")) as con:
+        for name, frame in frames.items():
+            con.register("frame", frame)
+            con.execute(f'CREATE TABLE "{name}" AS SELECT * FROM frame')
+            con.unregister("frame")
+    settings = SETTINGS.replace("[tables]", '[data]\nareas_crs = "EPSG:4326"\n\n[tables]')
+    for stem in ("members.parquet", "heat_readings.csv", "add_ons.csv", "mailings.csv"):
+        settings = settings.replace(f'"{stem}"', f'"{stem.split(".")[0]}"')
+    settings = settings.replace('"districts.geojson"', '"districts"')
+    path = folder / "lifecycle.toml"
+    path.write_text(settings, encoding="utf-8")
+    return path
