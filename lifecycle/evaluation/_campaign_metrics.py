@@ -182,6 +182,8 @@ class CampaignQini:
                 where, len(follow), self.settings.qini_min_rows,
             )  # fmt: skip
             return None
+        if self._too_few_events(follow, covariates, where):
+            return None
         try:
             value = cross_fitted_qini(follow, covariates)
         except (UsageError, ConvergenceError) as exc:  # e.g. a fold's arm without an event
@@ -197,6 +199,23 @@ class CampaignQini:
             n=len(follow),
             events=int(follow["event"].sum()),
         )
+
+    @staticmethod
+    def _too_few_events(follow: pd.DataFrame, covariates: pd.DataFrame, where: str) -> bool:
+        """Whether each fold's fit would hold too few target events per feature to learn
+        effects at all (`lifecycle.value.EVENTS_PER_FEATURE`): every fold would fall back to
+        the average, a Qini of 0 that says nothing of the effects; no row then."""
+        from ..value import EVENTS_PER_FEATURE
+
+        events = int(follow["event"].sum())
+        needed = EVENTS_PER_FEATURE * covariates.shape[1]
+        if events * (QINI_FOLDS - 1) / QINI_FOLDS >= needed:
+            return False
+        log.info(
+            "%s: %d target events, too few to learn effects over %d features (each fold's fit "
+            "needs %d): no row", where, events, covariates.shape[1], needed,
+        )  # fmt: skip
+        return True
 
     def _with_features(
         self, follow: pd.DataFrame, month: int, where: str

@@ -2,7 +2,12 @@
 (the average effect, and each customer's own)."""
 
 from ._campaigns import campaign_follow_up, estimate_offer_effects
-from ._effects import OfferEffectModel, campaign_covariates, customer_offer_effects
+from ._effects import (
+    EVENTS_PER_FEATURE,
+    OfferEffectModel,
+    campaign_covariates,
+    customer_offer_effects,
+)
 from ._hazards import HazardInput, read_hazards
 from ._lifetime import (
     ValueSettings,
@@ -16,6 +21,7 @@ from ._money import MONEY_COLUMNS, round_money
 from ._offer_value import offer_values
 
 __all__ = [
+    "EVENTS_PER_FEATURE",
     "MONEY_COLUMNS",
     "HazardInput",
     "OfferEffectModel",
