@@ -332,3 +332,24 @@ def test_reason_codes_stored_as_floats_are_read_as_their_whole_numbers(fernholm,
     assert code == 0, err
     exits = next(line for line in out.splitlines() if line.startswith("exits:"))
     assert exits in fernholm["checked"]  # the same counts as the whole-number codes
+
+
+def test_an_extra_exclusion_column_may_hold_numbers_but_no_other_word(fernholm, tmp_path, capsys):
+    """[plan] exclude columns are read as set when not 0 (a count of open complaints works);
+    a word that is neither a flag word nor a number is refused by name, before any work."""
+
+    def complaints(members):
+        members["open_complaints"] = np.arange(len(members)) % 4  # 0..3
+
+    data = _copy_with_members(fernholm, tmp_path / "data", complaints)
+    settings = data / "lifecycle.toml"
+    text = settings.read_text(encoding="utf-8")
+    settings.write_text(text + 'exclude = ["open_complaints"]\n', encoding="utf-8")
+    assert text.rstrip().endswith('consent_column = "marketing_ok"')  # [plan] is the last table
+    code, _, err = _quiet(["check", str(data)])
+    assert code == 0, err
+    members = pd.read_parquet(data / "members.parquet")
+    members["open_complaints"] = np.where(members["open_complaints"] > 0, "open", "")
+    members.to_parquet(data / "members.parquet", index=False)
+    line = _refused(data, capsys, commands=("check",))
+    assert "'open_complaints'" in line and "[plan] exclude" in line and "['open']" in line

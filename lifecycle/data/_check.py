@@ -323,11 +323,12 @@ def _check_customers(
 def _check_flag(values: pd.Series, name: str, report: Report, setting: str | None = None) -> None:
     """A decision flag: a flag word (1/0, true/false, yes/no, Y/N, any case) on every row.
     A column the plan reads as a flag (``setting``: ``[plan] consent_column`` or ``exclude``)
-    may be blank (not set), but any other word is refused here, before any work: the plan
-    could not tell whether it is set."""
+    may be blank (not set) or any number (set when not 0, as the plan reads it), but any other
+    word is refused here, before any work: the plan could not tell whether it is set."""
     codes, uniques = pd.factorize(values)
     words = [str(u).strip().lower() for u in uniques]
-    wrong = np.append([w not in FLAG_WORDS for w in words], setting is None)[codes]
+    known = FLAG_WORDS if setting is None else set(FLAG_WORDS) | _numeric_words(words)
+    wrong = np.append([w not in known for w in words], setting is None)[codes]
     if setting is not None:
         wrong &= ~blank(values)
     what = "a decision flag" if setting is None else f"read as a flag ({setting})"
@@ -339,6 +340,11 @@ def _check_flag(values: pd.Series, name: str, report: Report, setting: str | Non
         wrong,
         "Write 1 (or Y) where the flag is set and 0 (or N) where it is not",
     )
+
+
+def _numeric_words(words: list[str]) -> set[str]:
+    numbers = pd.to_numeric(pd.Series(words, dtype=object), errors="coerce").to_numpy(float)
+    return {w for w, x in zip(words, numbers, strict=True) if np.isfinite(x)}
 
 
 def _plan_flag_columns(config: Config) -> dict[str, str]:
