@@ -86,6 +86,13 @@ def _columns(table: str) -> Section:
     )
 
 
+_WORDS_TO_FLAGS = Kind(
+    'a table of texts (your word = "1" or "0")',
+    lambda v: (
+        isinstance(v, dict) and all(isinstance(x, str) and str(k).strip() for k, x in v.items())
+    ),
+)
+
 _DATA = Section("data", "the data as a whole", (
     Key("extract_month", TEXT, None, "last month the data covers (default: the last month in "
         "which any row of the data is dated)", _MONTH, example="2026-11"),
@@ -93,6 +100,9 @@ _DATA = Section("data", "the data as a whole", (
         "lat)", example="EPSG:32625"),
     Key("areas_crs", TEXT, None, "CRS of areas read from DuckDB as WKT text",
         example="EPSG:32625"),
+    Key("flag_words", _WORDS_TO_FLAGS, {}, "your words for a set (\"1\") or unset (\"0\") "
+        "flag, any case, beside 1/0, true/false, yes/no, Y/N",
+        each(choice("1", "0")), example={"J": "1", "N": "0"}),
 ))  # fmt: skip
 
 _TABLES = Section(

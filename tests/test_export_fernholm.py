@@ -292,17 +292,34 @@ def _refused(folder: Path, capsys, commands=("check", "run")) -> str:
     return line
 
 
-def test_payment_arrangement_written_j_n_is_refused_with_one_message(fernholm, tmp_path, capsys):
-    """A flag written J/N (Ja/Nej) is no flag word the settings can map: refused by name."""
+def test_a_flag_written_j_n_needs_its_words_in_the_settings(fernholm, tmp_path, capsys):
+    """A flag written J/N (Ja/Nej) is refused by name, pointing to [data] flag_words; with
+    { J = "1", N = "0" } there, the run reads it, and no J member is planned."""
 
     def j_n(members):
         members["payment_arrangement"] = np.where(members["payment_arrangement"], "J", "N")
 
     data = _copy_with_members(fernholm, tmp_path / "data", j_n)
-    flagged = pd.read_parquet(data / "members.parquet").query("payment_arrangement == 'J'")
+    members = pd.read_parquet(data / "members.parquet")
+    flagged = members.query("payment_arrangement == 'J'")
     line = _refused(data, capsys)
     assert "'payment_arrangement' (hardship)" in line and "['J']" in line
     assert f"({len(flagged)} rows, e.g. {flagged['member_no'].iloc[0]}" in line
+    assert "[data] flag_words" in line
+    settings = data / "lifecycle.toml"
+    text = settings.read_text(encoding="utf-8")
+    settings.write_text('[data]\nflag_words = { j = "1", N = "0" }\n\n' + text, encoding="utf-8")
+    code, _, err = _quiet(["run", "--config", str(settings)])
+    assert code == 0, err
+    folder = data / "reports" / MONTH
+    plan = pd.read_csv(folder / "contact_plan.csv", dtype={"customer_id": str})
+    assert len(plan) and not set(plan["customer_id"]) & set(flagged["member_no"])
+    summary = json.loads((folder / "run_summary.json").read_text())["plan"]
+    active = _active(members)
+    assert summary["excluded_by"]["hardship"] == int((active["payment_arrangement"] == "J").sum())
+    assert (folder / "contact_plan.csv").read_bytes() == (
+        fernholm["folder"] / "contact_plan.csv"
+    ).read_bytes()  # the same plan as with the flags written as booleans
 
 
 def test_consent_written_j_n_is_refused_before_any_work(fernholm, tmp_path, capsys):

@@ -26,7 +26,16 @@ from ..config import REASONS, Config
 from ..errors import InputError, UsageError, cut_text
 from ._areas import check_areas, check_overlaps
 from ._coordinates import coordinate_columns, premise_coordinates
-from ._parse import FLAG_WORDS, beyond, blank, months, numbers, plain_index, static, text_ids
+from ._flags import FLAG_COLUMNS, check_flag, own_flag_words, plan_flag_columns
+from ._parse import (
+    beyond,
+    blank,
+    months,
+    numbers,
+    plain_index,
+    static,
+    text_ids,
+)
 from ._read import read_raw_tables
 from ._report import Report, values_of
 from ._tables import RawTables, Tables
@@ -44,8 +53,6 @@ REQUIRED_COLUMNS = {
     "areas": ("area_id", "geometry"),
 }
 ARMS = ("offered", "held_out")
-# Decision flags: a blank could hide a customer who must not be contacted, so they must be 0/1.
-FLAG_COLUMNS = ("do_not_contact", "hardship")
 _COORDINATES = ("x", "y", "lon", "lat")
 _RESERVED = ("start", "end")  # names of parsed customer columns
 _POLYGONS = ("Polygon", "MultiPolygon")
@@ -304,12 +311,13 @@ def _check_customers(
     )
     skip = set(REQUIRED_COLUMNS["customers"]) | set(_COORDINATES)
     static_columns = [c for c in raw.columns if c not in skip]
-    plan_flags = _plan_flag_columns(config)
+    plan_flags = plan_flag_columns(config)
+    raw = own_flag_words(raw, config, [*FLAG_COLUMNS, *plan_flags])
     for name in static_columns:
         if name in FLAG_COLUMNS:
-            _check_flag(raw[name], name, report)
+            check_flag(raw[name], name, report)
         elif name in plan_flags:
-            _check_flag(raw[name], name, report, plan_flags[name])
+            check_flag(raw[name], name, report, plan_flags[name])
         out[name] = static(raw[name])
         if pd.api.types.is_float_dtype(out[name].dtype):
             values = out[name].to_numpy()
@@ -318,46 +326,6 @@ def _check_customers(
                 beyond(values, VALUE_MAX), "Check the unit and the export",
             )  # fmt: skip
     return out, static_columns
-
-
-def _check_flag(values: pd.Series, name: str, report: Report, setting: str | None = None) -> None:
-    """A decision flag: a flag word (1/0, true/false, yes/no, Y/N, any case) on every row.
-    A column the plan reads as a flag (``setting``: ``[plan] consent_column`` or ``exclude``)
-    may be blank (not set) or any number (set when not 0, as the plan reads it), but any other
-    word is refused here, before any work: the plan could not tell whether it is set."""
-    codes, uniques = pd.factorize(values)
-    words = [str(u).strip().lower() for u in uniques]
-    known = FLAG_WORDS if setting is None else set(FLAG_WORDS) | _numeric_words(words)
-    wrong = np.append([w not in known for w in words], setting is None)[codes]
-    if setting is not None:
-        wrong &= ~blank(values)
-    what = "a decision flag" if setting is None else f"read as a flag ({setting})"
-    blanks = "blank is not allowed" if setting is None else "or blank"
-    report.fail(
-        name,
-        f"is {what} and must be 1/0, true/false, yes/no or Y/N on every row ({blanks}), not "
-        f"{values_of(values.fillna(''), wrong, 3)}",
-        wrong,
-        "Write 1 (or Y) where the flag is set and 0 (or N) where it is not",
-    )
-
-
-def _numeric_words(words: list[str]) -> set[str]:
-    numbers = pd.to_numeric(pd.Series(words, dtype=object), errors="coerce").to_numpy(float)
-    return {w for w, x in zip(words, numbers, strict=True) if np.isfinite(x)}
-
-
-def _plan_flag_columns(config: Config) -> dict[str, str]:
-    """Columns the plan reads as flags beside the decision flags: column → its setting."""
-    from ..config import setting
-
-    extra = setting(config, "plan.exclude")
-    extra = [extra] if isinstance(extra, str) else list(extra or [])
-    out = {str(c): "[plan] exclude" for c in extra if c not in FLAG_COLUMNS}
-    consent = setting(config, "plan.consent_column")
-    if consent:
-        out[str(consent)] = "[plan] consent_column"
-    return out
 
 
 def _future(extract: float) -> str:
