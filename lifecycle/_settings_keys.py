@@ -100,6 +100,8 @@ _DATA = Section("data", "the data as a whole", (
         "lat)", example="EPSG:32625"),
     Key("areas_crs", TEXT, None, "CRS of areas read from DuckDB as WKT text",
         example="EPSG:32625"),
+    Key("blank_end_reason", TEXT, None, "the end reason of a customer who left with a blank "
+        "end_reason (default: refused)", choice(*REASONS), example="other"),
     Key("flag_words", _WORDS_TO_FLAGS, {}, "your words for a set (\"1\") or unset (\"0\") "
         "flag, any case, beside 1/0, true/false, yes/no, Y/N",
         each(choice("1", "0")), example={"J": "1", "N": "0"}),

@@ -351,6 +351,28 @@ def test_reason_codes_stored_as_floats_are_read_as_their_whole_numbers(fernholm,
     assert exits in fernholm["checked"]  # the same counts as the whole-number codes
 
 
+def test_leavers_without_a_reason_need_the_settings_to_name_it(fernholm, tmp_path, capsys):
+    """Three leavers exported with a blank reason: refused by name, pointing to [data]
+    blank_end_reason; with "other" there, they count as other exits."""
+    left = fernholm["members"].index[fernholm["members"]["left_on"].notna()][:3]
+
+    def blanks(members):
+        members.loc[left, "leave_code"] = pd.NA
+
+    data = _copy_with_members(fernholm, tmp_path / "data", blanks)
+    ids = fernholm["members"].loc[left, "member_no"].tolist()
+    line = _refused(data, capsys, commands=("check",))
+    assert "is blank but end_month is given (3 rows, e.g. " + ", ".join(ids) in line
+    assert "[data] blank_end_reason" in line
+    settings = data / "lifecycle.toml"
+    text = settings.read_text(encoding="utf-8")
+    settings.write_text('[data]\nblank_end_reason = "other"\n\n' + text, encoding="utf-8")
+    code, out, err = _quiet(["check", str(data)])
+    assert code == 0, err
+    codes = fernholm["members"]["leave_code"].drop(index=left).value_counts()
+    assert f"exits: churn {codes[11]}, move_out {codes[21]}, other {codes[31] + 3}" in out
+
+
 def test_an_extra_exclusion_column_may_hold_numbers_but_no_other_word(fernholm, tmp_path, capsys):
     """[plan] exclude columns are read as set when not 0 (a count of open complaints works);
     a word that is neither a flag word nor a number is refused by name, before any work."""

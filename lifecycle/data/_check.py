@@ -272,7 +272,7 @@ def _check_customers(
     report.fail("end_month", _future(extract), end > extract, _FUTURE_FIX)
     report.fail("end_month", "is before start_month", end < start)
 
-    reason = _end_reasons(raw["end_reason"], config, report)
+    reason = _blank_reasons(_end_reasons(raw["end_reason"], config, report), end, config)
     report.fail(
         "end_month",
         "is blank but end_reason is given",
@@ -283,7 +283,8 @@ def _check_customers(
         "end_reason",
         "is blank but end_month is given",
         ~np.isnan(end) & np.asarray(reason.isna()),
-        f"Give the reason ({', '.join(REASONS)}, or your code mapped in [reasons])",
+        f"Give the reason ({', '.join(REASONS)}, or your code mapped in [reasons]), or name "
+        'the reason of every such customer in [data] blank_end_reason (e.g. "other")',
     )
 
     margin, bad = numbers(raw["monthly_margin"])
@@ -386,6 +387,23 @@ def _end_reasons(values: pd.Series, config: Config, report: Report) -> pd.Catego
         'Map each code onto churn, move_out or other in [reasons], e.g. CODE = "churn"',
     )
     return pd.Categorical(mapped[codes], categories=list(REASONS))
+
+
+def _blank_reasons(reason: pd.Categorical, end: np.ndarray, config: Config) -> pd.Categorical:
+    """Customers who left with a blank reason, given ``[data] blank_end_reason`` (logged)."""
+    from ..config import setting
+
+    fill = setting(config, "data.blank_end_reason")
+    missing = ~np.isnan(end) & np.asarray(reason.isna())
+    if fill is None or not missing.any():
+        return reason
+    log.info(
+        "%d customer(s) who left with a blank end reason count as %s ([data] blank_end_reason)",
+        int(missing.sum()), fill,
+    )  # fmt: skip
+    out = reason.copy()
+    out[missing] = fill
+    return out
 
 
 # --- uptakes, activity, campaigns --------------------------------------------------------------
