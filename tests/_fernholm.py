@@ -16,7 +16,8 @@ It differs from Brackwater (tests/_brackwater.py) wherever a real export could:
   text (marketing consent, through ``[plan] consent_column``);
 - a common add-on (``service_plan``) and one taken up by only a few members (``smart_valve``);
 - a winter mailing ``VINTER24`` sent to a random part of one list (``brev``), the rest held back
-  (``kontroll``): the co-operative's own codes.
+  (``kontroll``): the co-operative's own codes;
+- the same tables also as one DuckDB database (`write_fernholm_duckdb`), districts as WKT.
 
 Known truth: churn (code 11: switched to an own heat pump) 1.2 % a month, halved for members on
 the ``fixed`` tariff and lowered by a third for six months after the mailing; move-out (code 21:
