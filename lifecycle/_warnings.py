@@ -105,7 +105,8 @@ _KNOWN: tuple[tuple[re.Pattern[str], str], ...] = tuple(
             "feature '{0}' barely varies among the events (or among the months without one): "
             "with a variance near 0 there it nearly decides alone who has the event "
             "(separation), and its hazard ratio may be extreme and unstable. Leave it out "
-            "([panel] not_features) or set a penalizer > 0 (e.g. [models.cox] penalizer = 0.01)",
+            "([panel] not_features) or shrink its ratio with [models.cox] penalizer (e.g. "
+            "0.01, larger if one is set: the penalty steadies the ratio, the warning stays)",
         ),
         (
             r"Column\(s\) (\[.*?\]) have very low variance",
