@@ -425,6 +425,7 @@ def test_a_fitted_model_feeds_lifetime_value_and_offer_values_consistently():
 
 def test_the_public_surface_of_value():
     assert sorted(lifecycle.value.__all__) == [
+        "EVENTS_PER_FEATURE",
         "HazardInput",
         "MONEY_COLUMNS",
         "OfferEffectModel",
